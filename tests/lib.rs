@@ -1,0 +1,10 @@
+//! The one integration-test binary (see DEVELOPERS.md): every file under tests/ that
+//! holds tests is a module here, so the suite links once.
+
+#![allow(clippy::needless_range_loop)]
+
+mod common;
+mod correlogram_reference;
+mod fuzz_replay;
+mod properties;
+mod simulation_facts;
