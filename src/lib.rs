@@ -81,8 +81,14 @@
 pub mod correlogram;
 pub mod criteria;
 mod error;
+#[allow(dead_code)] // TEMP: parts used by forecasting
+pub mod kalman;
 pub mod lag;
+#[allow(dead_code)] // TEMP: used by the estimation layer
+mod linalg;
 mod series;
+#[allow(dead_code)] // TEMP
+pub mod spec;
 pub mod synth;
 pub mod whiteness;
 
@@ -92,6 +98,7 @@ pub use correlogram::{
 };
 pub use criteria::{Criterion, InformationCriteria};
 pub use error::{Error, ErrorKind, Result};
+pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use whiteness::{PortmanteauRow, PortmanteauScan};
 

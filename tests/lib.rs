@@ -6,5 +6,6 @@
 mod common;
 mod correlogram_reference;
 mod fuzz_replay;
+mod likelihood_reference;
 mod properties;
 mod simulation_facts;

@@ -1,0 +1,762 @@
+//! State-space form of an ARMA model and its exact Kalman filter.
+//!
+//! # Form
+//! An ARMA(p, q) (seasonal factors already multiplied out) with `r = max(p, q + 1)` has
+//! the state `α_t` of length `r`, observation `w_t = α_t[0]`, and
+//!
+//! ```text
+//! α_{t+1} = T α_t + R e_{t+1},   T = [φ | I_{r−1} over 0],   R = (1, θ₁, …, θ_{r−1})ᵀ
+//! ```
+//!
+//! with no observation noise (Harvey 1989, §3.4). The filter works with σ² = 1; the
+//! innovation variance is concentrated out of the likelihood by the estimators.
+//!
+//! # Stationary start in O(r²)
+//! The initial covariance `P₀` solves `P = TPTᵀ + RRᵀ`. Its first row is built from the
+//! theoretical autocovariances `γ(h)` and ψ-weights (`P₀[0][j] = Σ_{k>j} φ_k γ(k−j) +
+//! Σ_{k≥j} θ_k ψ_{k−j}`), and the rest follows from the same equation read diagonally:
+//! `P[i+1][j+1] = P[i][j] − R_iR_j − φ_{i+1}φ_{j+1}P[0][0] − φ_{i+1}P[0][j+1] −
+//! φ_{j+1}P[0][i+1]` (0-based `i, j`, 1-based `φ`). The autocovariances come from the partial autocorrelations of the
+//! AR factor (step-down, then Durbin–Levinson forward), filtered by the MA factor's own
+//! autocovariances — never from an r²×r² solve (Gardner, Harvey & Phillips 1980 use such
+//! a solve; r reaches ~100 for seasonal models).
+//!
+//! # Three phases per pass
+//! 1. **Full**: the covariance update exploits the companion structure, O(r²) per step.
+//!    Missing readings (NaN) skip the measurement update.
+//! 2. **Steady**: once the trace of the updated covariance `P⁺_t` is below 1e-11 the gain has converged to `R` (for an
+//!    invertible MA part); the state is updated in O(r) for `r` steps.
+//! 3. **Direct**: the filter is then exactly the innovations recursion
+//!    `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` over the non-zero coefficients only
+//!    (4 terms for an AR(1)×seasonal MA(1) at r = 97). A missing reading rebuilds the
+//!    state from the last r readings and innovations and returns to phase 1.
+//!
+//! Several columns (the series and regression columns) share one pass: the covariance
+//! and gain are computed once, the state means once per column, which is how regression
+//! coefficients are profiled out by GLS inside the likelihood.
+
+use crate::error::{Error, Result};
+use crate::lag;
+
+/// Convergence threshold on trace(P⁺) for leaving the full-covariance phase.
+pub(crate) const STEADY_TOLERANCE: f64 = 1e-11;
+
+/// The filter's reusable workspace. Sized by `prepare`; reused across evaluations of the
+/// same shape without allocating.
+#[derive(Debug, Default, Clone)]
+pub(crate) struct KalmanWorkspace {
+    pub(crate) r: usize,
+    phi: Vec<f64>,
+    rvec: Vec<f64>,
+    ar_nz: Vec<(usize, f64)>,
+    ma_nz: Vec<(usize, f64)>,
+    p: Vec<f64>,
+    pn: Vec<f64>,
+    kcol: Vec<f64>,
+    state: Vec<f64>,
+    tmp: Vec<f64>,
+    // initial covariance helpers
+    gamma_u: Vec<f64>,
+    gamma_x: Vec<f64>,
+    psi: Vec<f64>,
+    kappa: Vec<f64>,
+    dl_a: Vec<f64>,
+    dl_b: Vec<f64>,
+    macov: Vec<(usize, f64)>,
+    /// Innovations per column (column-major, `n` each).
+    pub(crate) innov: Vec<f64>,
+    /// Innovation variance factors `F_t` (σ² = 1 units); NaN where missing.
+    pub(crate) fvar: Vec<f64>,
+    /// Steps spent in the full-covariance phase during the last pass.
+    pub(crate) full_steps: usize,
+}
+
+/// Accumulated results of one filter pass.
+#[derive(Debug, Clone, Copy, Default)]
+pub(crate) struct PassTotals {
+    /// Σ ln F_t over non-missing readings.
+    pub log_det: f64,
+    /// Number of non-missing readings.
+    pub used: usize,
+}
+
+impl KalmanWorkspace {
+    /// Set the model (expanded φ and θ, conventions of [`crate::lag`]) and compute the
+    /// stationary initial covariance. Errors if the AR part is not stationary.
+    pub(crate) fn set_model(&mut self, phi: &[f64], theta: &[f64]) -> Result<()> {
+        let p = phi.len();
+        let q = theta.len();
+        let r = p.max(q + 1);
+        self.r = r;
+        resize(&mut self.phi, r);
+        resize(&mut self.rvec, r);
+        self.phi[..p].copy_from_slice(phi);
+        self.rvec[0] = 1.0;
+        self.rvec[1..=q].copy_from_slice(theta);
+        self.ar_nz.clear();
+        self.ar_nz.extend(
+            phi.iter()
+                .enumerate()
+                .filter(|(_, v)| **v != 0.0)
+                .map(|(i, v)| (i + 1, *v)),
+        );
+        self.ma_nz.clear();
+        self.ma_nz.extend(
+            theta
+                .iter()
+                .enumerate()
+                .filter(|(_, v)| **v != 0.0)
+                .map(|(i, v)| (i + 1, *v)),
+        );
+        resize(&mut self.p, r * r);
+        resize(&mut self.pn, r * r);
+        resize(&mut self.kcol, r);
+        resize(&mut self.tmp, r);
+        self.stationary_covariance(p, q)
+    }
+
+    /// `P₀` for σ² = 1 into `self.p` (see module docs).
+    fn stationary_covariance(&mut self, p: usize, q: usize) -> Result<()> {
+        let r = self.r;
+        let lags = r + q + 1;
+        // γ_u: autocovariances of the AR part driven by unit white noise.
+        resize(&mut self.gamma_u, lags);
+        resize(&mut self.kappa, p);
+        resize(&mut self.dl_a, p + 1);
+        resize(&mut self.dl_b, p + 1);
+        if p == 0 {
+            self.gamma_u[0] = 1.0;
+        } else {
+            // Step-down into κ (allocation-free variant of lag::step_down).
+            self.dl_a[..p].copy_from_slice(&self.phi[..p]);
+            for k in (1..=p).rev() {
+                let kk = self.dl_a[k - 1];
+                if !(kk.abs() < 1.0) {
+                    return Err(Error::numerical(
+                        "exact likelihood",
+                        "the AR part is not stationary",
+                    ));
+                }
+                self.kappa[k - 1] = kk;
+                let denom = 1.0 - kk * kk;
+                for j in 1..k {
+                    self.dl_b[j - 1] = (self.dl_a[j - 1] + kk * self.dl_a[k - j - 1]) / denom;
+                }
+                let (a, b) = (&mut self.dl_a, &self.dl_b);
+                a[..k - 1].copy_from_slice(&b[..k - 1]);
+            }
+            // Forward Durbin–Levinson: autocorrelations ρ(1..p) from κ.
+            let mut v = 1.0;
+            self.gamma_u[0] = 1.0;
+            for k in 1..=p {
+                let kk = self.kappa[k - 1];
+                let mut rho = kk * v;
+                for j in 1..k {
+                    rho += self.dl_a[j - 1] * self.gamma_u[k - j];
+                }
+                self.gamma_u[k] = rho;
+                for j in 1..k {
+                    self.dl_b[j - 1] = self.dl_a[j - 1] - kk * self.dl_a[k - j - 1];
+                }
+                self.dl_b[k - 1] = kk;
+                let (a, b) = (&mut self.dl_a, &self.dl_b);
+                a[..k].copy_from_slice(&b[..k]);
+                v *= 1.0 - kk * kk;
+            }
+            // γ(0) = 1/Π(1−κ²) = 1/v for unit innovations.
+            let g0 = 1.0 / v;
+            for h in 1..=p {
+                self.gamma_u[h] *= g0;
+            }
+            self.gamma_u[0] = g0;
+            if !g0.is_finite() {
+                return Err(Error::numerical(
+                    "exact likelihood",
+                    "the AR part is too close to a unit root",
+                ));
+            }
+        }
+        for h in (p + 1)..lags {
+            let mut s = 0.0;
+            for &(i, c) in &self.ar_nz {
+                s += c * self.gamma_u[h - i];
+            }
+            self.gamma_u[h] = s;
+        }
+        let gu = |h: isize, g: &[f64]| g[h.unsigned_abs()];
+        // MA autocovariances c_m = Σ_j θ_j θ_{j+m} (θ₀ = 1) over non-zero terms.
+        self.macov.clear();
+        let nz = self.ma_nz.len();
+        let term = |k: usize, ma: &[(usize, f64)]| if k == 0 { (0usize, 1.0) } else { ma[k - 1] };
+        for a in 0..=nz {
+            for b in a..=nz {
+                let (la, ca) = term(a, &self.ma_nz);
+                let (lb, cb) = term(b, &self.ma_nz);
+                let m = lb - la;
+                let v = ca * cb;
+                if let Some(e) = self.macov.iter_mut().find(|e| e.0 == m) {
+                    e.1 += v;
+                } else {
+                    self.macov.push((m, v));
+                }
+            }
+        }
+        // γ_x(h) = Σ_m c_|m| γ_u(h + m), h = 0..r
+        resize(&mut self.gamma_x, r + 1);
+        for h in 0..=r {
+            let mut s = 0.0;
+            for &(m, c) in &self.macov {
+                if m == 0 {
+                    s += c * self.gamma_u[h];
+                } else {
+                    s += c
+                        * (gu(h as isize + m as isize, &self.gamma_u)
+                            + gu(h as isize - m as isize, &self.gamma_u));
+                }
+            }
+            self.gamma_x[h] = s;
+        }
+        // ψ-weights 0..r
+        resize(&mut self.psi, r + 1);
+        for j in 0..=r {
+            let mut v = if j == 0 {
+                1.0
+            } else if j <= q {
+                self.rvec[j]
+            } else {
+                0.0
+            };
+            for &(i, c) in &self.ar_nz {
+                if i > j {
+                    break;
+                }
+                v += c * self.psi[j - i];
+            }
+            self.psi[j] = v;
+        }
+        // First row.
+        let pm = &mut self.p;
+        pm[0] = self.gamma_x[0];
+        for j in 1..r {
+            let mut s = 0.0;
+            for &(k, c) in &self.ar_nz {
+                if k > j {
+                    s += c * self.gamma_x[k - j];
+                }
+            }
+            for k in j..r {
+                let th = self.rvec[k];
+                if th != 0.0 {
+                    s += th * self.psi[k - j];
+                }
+            }
+            pm[j] = s;
+            pm[j * r] = s;
+        }
+        // Diagonal fill.
+        let p00 = pm[0];
+        for i in 0..r.saturating_sub(1) {
+            for j in i..r - 1 {
+                let v = pm[i * r + j]
+                    - self.rvec[i] * self.rvec[j]
+                    - self.phi[i] * self.phi[j] * p00
+                    - self.phi[i] * pm[j + 1]
+                    - self.phi[j] * pm[i + 1];
+                pm[(i + 1) * r + (j + 1)] = v;
+                pm[(j + 1) * r + (i + 1)] = v;
+            }
+        }
+        if pm.iter().any(|v| !v.is_finite()) || !(pm[0] > 0.0) {
+            return Err(Error::numerical(
+                "exact likelihood",
+                "stationary covariance is not finite",
+            ));
+        }
+        Ok(())
+    }
+
+    /// Run the filter over `ncols` columns of length `n` stored column-major in `data`
+    /// (column 0 decides missingness). Innovations go to `self.innov`, F to `self.fvar`;
+    /// `cross` (ncols×ncols, row-major) receives Σ v_i v_j / F.
+    pub(crate) fn pass(
+        &mut self,
+        data: &[f64],
+        n: usize,
+        ncols: usize,
+        cross: &mut [f64],
+    ) -> PassTotals {
+        let r = self.r;
+        resize(&mut self.state, ncols * r);
+        resize(&mut self.innov, ncols * n);
+        resize(&mut self.fvar, n);
+        for v in cross.iter_mut() {
+            *v = 0.0;
+        }
+        for v in self.state.iter_mut() {
+            *v = 0.0;
+        }
+        let mut totals = PassTotals::default();
+        let mut phase = Phase::Full;
+        self.full_steps = 0;
+        let mut t = 0;
+        while t < n {
+            let missing = data[t].is_nan();
+            match phase {
+                Phase::Full => {
+                    self.full_steps += 1;
+                    let f = self.p[0];
+                    if missing {
+                        self.fvar[t] = f64::NAN;
+                        for c in 0..ncols {
+                            self.innov[c * n + t] = f64::NAN;
+                        }
+                        self.predict_states(ncols);
+                        self.predict_covariance_no_update();
+                    } else {
+                        self.fvar[t] = f;
+                        totals.log_det += f.ln();
+                        totals.used += 1;
+                        for i in 0..r {
+                            self.kcol[i] = self.p[i] / f;
+                        }
+                        for c in 0..ncols {
+                            let v = data[c * n + t] - self.state[c * r];
+                            self.innov[c * n + t] = v;
+                            let st = &mut self.state[c * r..(c + 1) * r];
+                            for i in 0..r {
+                                st[i] += self.kcol[i] * v;
+                            }
+                        }
+                        accumulate_cross(&self.innov, n, t, ncols, f, cross);
+                        self.predict_states(ncols);
+                        let trace = self.predict_covariance_after_update(f);
+                        // Converged when the updated covariance vanishes: then the
+                        // gain is R and every later F is 1. (F − 1 alone only sees
+                        // P⁺[1][1]; seasonal components converge later.)
+                        if trace < STEADY_TOLERANCE {
+                            phase = Phase::Steady(0);
+                        }
+                    }
+                }
+                Phase::Steady(count) => {
+                    if missing {
+                        self.reset_covariance_to_steady();
+                        phase = Phase::Full;
+                        continue;
+                    }
+                    self.fvar[t] = 1.0;
+                    totals.used += 1;
+                    for c in 0..ncols {
+                        let v = data[c * n + t] - self.state[c * r];
+                        self.innov[c * n + t] = v;
+                        let st = &mut self.state[c * r..(c + 1) * r];
+                        for i in 0..r {
+                            st[i] += self.rvec[i] * v;
+                        }
+                    }
+                    accumulate_cross(&self.innov, n, t, ncols, 1.0, cross);
+                    self.predict_states(ncols);
+                    phase = if count + 1 >= r {
+                        Phase::Direct
+                    } else {
+                        Phase::Steady(count + 1)
+                    };
+                }
+                Phase::Direct => {
+                    // Tight loop until the next missing reading or the end.
+                    let start = t;
+                    let mut end = t;
+                    while end < n && !data[end].is_nan() {
+                        end += 1;
+                    }
+                    for c in 0..ncols {
+                        let w = &data[c * n..(c + 1) * n];
+                        let v = &mut self.innov[c * n..(c + 1) * n];
+                        direct_recursion(w, v, start, end, &self.ar_nz, &self.ma_nz);
+                    }
+                    for s in start..end {
+                        self.fvar[s] = 1.0;
+                        accumulate_cross(&self.innov, n, s, ncols, 1.0, cross);
+                    }
+                    totals.used += end - start;
+                    t = end;
+                    if t < n {
+                        // Missing reading at t: rebuild the predicted state and go full.
+                        self.rebuild_states(data, n, ncols, t);
+                        self.reset_covariance_to_steady();
+                        phase = Phase::Full;
+                    } else {
+                        self.rebuild_states(data, n, ncols, n);
+                    }
+                    continue;
+                }
+            }
+            t += 1;
+        }
+        totals
+    }
+
+    /// Predicted state (for time `n`) of column `c` after the last pass.
+    pub(crate) fn final_state(&self, c: usize) -> &[f64] {
+        &self.state[c * self.r..(c + 1) * self.r]
+    }
+
+    /// Predicted covariance after the last pass (r×r, σ² = 1 units).
+    pub(crate) fn final_covariance(&self) -> &[f64] {
+        &self.p
+    }
+
+    fn predict_states(&mut self, ncols: usize) {
+        let r = self.r;
+        for c in 0..ncols {
+            let st = &mut self.state[c * r..(c + 1) * r];
+            let a0 = st[0];
+            for i in 0..r - 1 {
+                st[i] = self.phi[i] * a0 + st[i + 1];
+            }
+            st[r - 1] = self.phi[r - 1] * a0;
+        }
+    }
+
+    /// P ← T(P − k kᵀ F)Tᵀ + RRᵀ with k = P[:,0]/F, using the companion structure.
+    /// Returns the trace of the updated covariance `P⁺` (zero once the state is known).
+    fn predict_covariance_after_update(&mut self, f: f64) -> f64 {
+        let r = self.r;
+        let mut trace = 0.0;
+        // M = P − P[:,0] P[0,:] / F, written into pn.
+        for i in 0..r {
+            let ki = self.p[i] / f;
+            for j in i..r {
+                let v = self.p[i * r + j] - ki * self.p[j];
+                self.pn[i * r + j] = v;
+                self.pn[j * r + i] = v;
+            }
+            trace += self.pn[i * r + i];
+        }
+        self.companion_transform();
+        trace
+    }
+
+    fn predict_covariance_no_update(&mut self) {
+        let (p, pn) = (&self.p, &mut self.pn);
+        pn.copy_from_slice(p);
+        self.companion_transform();
+    }
+
+    /// p ← T pn Tᵀ + RRᵀ (pn holds M).
+    fn companion_transform(&mut self) {
+        let r = self.r;
+        let m = &self.pn;
+        let m00 = m[0];
+        for i in 0..r {
+            let fi = self.phi[i];
+            for j in i..r {
+                let fj = self.phi[j];
+                let mut v = fi * fj * m00 + self.rvec[i] * self.rvec[j];
+                if j + 1 < r {
+                    v += fi * m[j + 1];
+                }
+                if i + 1 < r {
+                    v += fj * m[i + 1];
+                    if j + 1 < r {
+                        v += m[(i + 1) * r + j + 1];
+                    }
+                }
+                self.p[i * r + j] = v;
+                self.p[j * r + i] = v;
+            }
+        }
+    }
+
+    fn reset_covariance_to_steady(&mut self) {
+        let r = self.r;
+        for i in 0..r {
+            for j in 0..r {
+                self.p[i * r + j] = self.rvec[i] * self.rvec[j];
+            }
+        }
+    }
+
+    /// Predicted state at time `t` from readings and innovations before `t`:
+    /// `a_t[i] = Σ_{k=i+1}^{r} φ_k w_{t+i−k} + θ_k v_{t+i−k}` (steady-state identity).
+    fn rebuild_states(&mut self, data: &[f64], n: usize, ncols: usize, t: usize) {
+        let r = self.r;
+        for c in 0..ncols {
+            let w = &data[c * n..(c + 1) * n];
+            let v = &self.innov[c * n..(c + 1) * n];
+            for i in 0..r {
+                let mut s = 0.0;
+                for k in i + 1..=r {
+                    if t + i < k {
+                        continue;
+                    }
+                    let idx = t + i - k;
+                    s += self.phi[k - 1] * w[idx];
+                    if k < r {
+                        s += self.rvec[k] * v[idx];
+                    }
+                }
+                self.state[c * r + i] = s;
+            }
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Phase {
+    Full,
+    Steady(usize),
+    Direct,
+}
+
+/// `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` for `t` in `start..end` (all lags in range).
+#[inline]
+pub(crate) fn direct_recursion(
+    w: &[f64],
+    v: &mut [f64],
+    start: usize,
+    end: usize,
+    ar_nz: &[(usize, f64)],
+    ma_nz: &[(usize, f64)],
+) {
+    // Small fixed shapes get unrolled loops; the general case walks the sparse lists.
+    for t in start..end {
+        let mut pred = 0.0;
+        for &(i, c) in ar_nz {
+            pred += c * w[t - i];
+        }
+        let mut ma = 0.0;
+        for &(j, c) in ma_nz {
+            ma += c * v[t - j];
+        }
+        v[t] = (w[t] - pred) - ma;
+    }
+}
+
+#[inline]
+fn accumulate_cross(innov: &[f64], n: usize, t: usize, ncols: usize, f: f64, cross: &mut [f64]) {
+    if ncols == 1 {
+        let v = innov[t];
+        cross[0] += v * v / f;
+        return;
+    }
+    for i in 0..ncols {
+        let vi = innov[i * n + t] / f;
+        for j in i..ncols {
+            cross[i * ncols + j] += vi * innov[j * n + t];
+        }
+    }
+}
+
+fn resize(v: &mut Vec<f64>, len: usize) {
+    if v.len() != len {
+        v.resize(len, 0.0);
+    }
+    for x in v.iter_mut() {
+        *x = 0.0;
+    }
+}
+
+/// Exact Gaussian log-likelihood of a zero-mean ARMA series (NaN = missing) with known
+/// innovation variance, by the Kalman filter.
+///
+/// `phi` and `theta` are the expanded coefficient lists in the conventions of
+/// [`crate::lag`] (`1 − Σφ_iB^i`, `1 + Σθ_jB^j`); multiply seasonal factors out first with
+/// [`lag::expand_autoregressive`] / [`lag::expand_moving_average`]. Errors if the AR part is
+/// not stationary, the MA part is not invertible, σ² is not positive, the series is empty,
+/// all missing, or holds ±inf.
+///
+/// ```
+/// # fn main() -> Result<(), lagwise::Error> {
+/// // AR(1), φ = 0.5, σ² = 1, one reading x: log L = −½(ln 2π + ln γ₀ + x²/γ₀), γ₀ = 4/3.
+/// let ll = lagwise::kalman::exact_log_likelihood(&[0.5], &[], 1.0, &[1.0])?;
+/// let g0 = 4.0 / 3.0;
+/// assert!((ll + 0.5 * ((2.0 * std::f64::consts::PI).ln() + g0.ln() + 1.0 / g0)).abs() < 1e-14);
+/// # Ok(()) }
+/// ```
+pub fn exact_log_likelihood(
+    phi: &[f64],
+    theta: &[f64],
+    innovation_variance: f64,
+    series: &[f64],
+) -> Result<f64> {
+    const WHAT: &str = "exact log-likelihood";
+    crate::series::screen(series, WHAT, 1, crate::series::ConstantPolicy::Allow)?;
+    if !(innovation_variance > 0.0 && innovation_variance.is_finite()) {
+        return Err(Error::invalid(
+            WHAT,
+            format!("innovation variance {innovation_variance} must be positive"),
+        ));
+    }
+    if !lag::is_stationary(phi) {
+        return Err(Error::invalid(
+            WHAT,
+            "the AR coefficients are not stationary",
+        ));
+    }
+    if !lag::is_invertible(theta) {
+        return Err(Error::invalid(
+            WHAT,
+            "the MA coefficients are not invertible",
+        ));
+    }
+    let mut ws = KalmanWorkspace::default();
+    ws.set_model(phi, theta)?;
+    let mut cross = [0.0];
+    let totals = ws.pass(series, series.len(), 1, &mut cross);
+    let n = totals.used as f64;
+    Ok(-0.5
+        * (n * (2.0 * std::f64::consts::PI * innovation_variance).ln()
+            + totals.log_det
+            + cross[0] / innovation_variance))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Dense stationary covariance by fixed-point iteration of P = TPTᵀ + RRᵀ.
+    fn dense_p0(phi: &[f64], theta: &[f64]) -> Vec<f64> {
+        let r = phi.len().max(theta.len() + 1);
+        let mut t = vec![0.0; r * r];
+        for i in 0..r {
+            t[i * r] = phi.get(i).copied().unwrap_or(0.0);
+            if i + 1 < r {
+                t[i * r + i + 1] = 1.0;
+            }
+        }
+        let mut rv = vec![0.0; r];
+        rv[0] = 1.0;
+        rv[1..=theta.len()].copy_from_slice(theta);
+        let mut p = vec![0.0; r * r];
+        for _ in 0..5000 {
+            let mut tp = vec![0.0; r * r];
+            for i in 0..r {
+                for j in 0..r {
+                    tp[i * r + j] = (0..r).map(|k| t[i * r + k] * p[k * r + j]).sum();
+                }
+            }
+            let mut np = vec![0.0; r * r];
+            for i in 0..r {
+                for j in 0..r {
+                    np[i * r + j] =
+                        (0..r).map(|k| tp[i * r + k] * t[j * r + k]).sum::<f64>() + rv[i] * rv[j];
+                }
+            }
+            p = np;
+        }
+        p
+    }
+
+    #[test]
+    fn stationary_covariance_matches_lyapunov_iteration() {
+        for (phi, theta) in [
+            (vec![0.5], vec![]),
+            (vec![], vec![0.4]),
+            (vec![0.6, -0.3], vec![0.2]),
+            (vec![0.3, 0.2, 0.1], vec![0.5, -0.2, 0.1]),
+            (vec![0.5], vec![0.3, 0.0, 0.0, 0.4, 0.12]),
+            (vec![1.2, -0.5], vec![]),
+        ] {
+            let mut ws = KalmanWorkspace::default();
+            ws.set_model(&phi, &theta).unwrap();
+            let want = dense_p0(&phi, &theta);
+            for (a, b) in ws.p.iter().zip(&want) {
+                assert!(
+                    (a - b).abs() < 1e-10 * (1.0 + b.abs()),
+                    "{phi:?} {theta:?}: {a} vs {b}\n{:?}\n{:?}",
+                    ws.p,
+                    want
+                );
+            }
+        }
+    }
+
+    /// Reference: the full-covariance recursion at every step (no phase switch).
+    fn full_only(phi: &[f64], theta: &[f64], x: &[f64]) -> (f64, f64) {
+        let mut refw = KalmanWorkspace::default();
+        refw.set_model(phi, theta).unwrap();
+        let r = refw.r;
+        let mut a = vec![0.0; r];
+        let (mut ld, mut ss) = (0.0, 0.0);
+        for t in 0..x.len() {
+            let f = refw.p[0];
+            if x[t].is_nan() {
+                refw.predict_covariance_no_update();
+            } else {
+                let v = x[t] - a[0];
+                ld += f.ln();
+                ss += v * v / f;
+                for i in 0..r {
+                    a[i] += refw.p[i] / f * v;
+                }
+                let _ = refw.predict_covariance_after_update(f);
+            }
+            let a0 = a[0];
+            for i in 0..r - 1 {
+                a[i] = refw.phi[i] * a0 + a[i + 1];
+            }
+            a[r - 1] = refw.phi[r - 1] * a0;
+        }
+        (ld, ss)
+    }
+
+    #[test]
+    fn seasonal_gaps_match_full_filter() {
+        let phi = lag::expand_autoregressive(&[0.5], &[], 4);
+        let theta = lag::expand_moving_average(&[], &[0.6], 4);
+        let n = 150;
+        let mut x: Vec<f64> = (0..n)
+            .map(|t| ((t * 7919 % 113) as f64 / 50.0) - 1.1)
+            .collect();
+        for i in [
+            3usize, 30, 31, 32, 33, 34, 35, 36, 37, 38, 39, 40, 41, 42, 90,
+        ] {
+            x[i] = f64::NAN;
+        }
+        let mut ws = KalmanWorkspace::default();
+        ws.set_model(&phi, &theta).unwrap();
+        let mut cross = [0.0];
+        let tot = ws.pass(&x, n, 1, &mut cross);
+        let (ld, ss) = full_only(&phi, &theta, &x);
+        assert!(
+            (tot.log_det - ld).abs() < 1e-9 && (cross[0] - ss).abs() < 1e-9 * ss,
+            "{} {} vs {ld} {ss}",
+            tot.log_det,
+            cross[0]
+        );
+    }
+
+    #[test]
+    fn steady_switch_matches_full_filter() {
+        // Compare against a pass forced to stay in the full phase (tolerance 0 via a
+        // non-invertible-looking setup is not possible, so recompute with huge n split).
+        let phi = [0.6, -0.2];
+        let theta = [0.9];
+        let n = 3000;
+        let mut x = vec![0.0; n];
+        let mut e_prev = 0.0;
+        let mut seed = 12345u64;
+        for t in 0..n {
+            seed = seed
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            let e = ((seed >> 11) as f64 / (1u64 << 53) as f64) - 0.5;
+            let ar = phi[0] * if t >= 1 { x[t - 1] } else { 0.0 }
+                + phi[1] * if t >= 2 { x[t - 2] } else { 0.0 };
+            x[t] = ar + e + theta[0] * e_prev;
+            e_prev = e;
+        }
+        x[1500] = f64::NAN;
+        x[1501] = f64::NAN;
+        let mut ws = KalmanWorkspace::default();
+        ws.set_model(&phi, &theta).unwrap();
+        let mut cross = [0.0];
+        let tot = ws.pass(&x, n, 1, &mut cross);
+        assert!(ws.full_steps < n / 2, "never reached steady state");
+        let (ld, ss) = full_only(&phi, &theta, &x);
+        let ll = |ld: f64, ss: f64| -0.5 * (ld + ss);
+        let (got, want) = (ll(tot.log_det, cross[0]), ll(ld, ss));
+        assert!((got - want).abs() < 1e-9 * want.abs(), "{got} vs {want}");
+    }
+}

@@ -1,0 +1,524 @@
+//! Model specification: the [`Blueprint`] and its builder.
+//!
+//! A blueprint says *which* model to fit — orders, differencing, mean/drift, held
+//! coefficients, estimator and optimiser settings — and never holds data. `build()`
+//! validates everything, so after it only genuine numerical trouble can fail a fit.
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, ErrorKind, Result};
+
+/// Largest seasonal period accepted (10 days of minute readings).
+pub const MAX_PERIOD: usize = 14_400;
+/// Largest expanded AR or MA degree (`p + P·s`, `q + Q·s`) accepted.
+pub const MAX_EXPANDED_DEGREE: usize = 20_000;
+/// Largest order accepted for any one of p, q, P, Q.
+pub const MAX_ORDER: usize = 50;
+
+/// A coefficient of the model, used to hold (fix) a value and to label estimates.
+#[non_exhaustive]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+pub enum Term {
+    /// Non-seasonal autoregressive coefficient `φ_i` (1-based lag).
+    Ar(usize),
+    /// Non-seasonal moving-average coefficient `θ_j` (1-based lag).
+    Ma(usize),
+    /// Seasonal autoregressive coefficient `Φ_i` (lag `i·s`).
+    SeasonalAr(usize),
+    /// Seasonal moving-average coefficient `Θ_j` (lag `j·s`).
+    SeasonalMa(usize),
+    /// Mean of an undifferenced series.
+    Mean,
+    /// Drift: mean change per reading of a once-differenced series.
+    Drift,
+}
+
+impl std::fmt::Display for Term {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Term::Ar(i) => write!(f, "phi.{i}"),
+            Term::Ma(i) => write!(f, "theta.{i}"),
+            Term::SeasonalAr(i) => write!(f, "seasonal_phi.{i}"),
+            Term::SeasonalMa(i) => write!(f, "seasonal_theta.{i}"),
+            Term::Mean => f.write_str("mean"),
+            Term::Drift => f.write_str("drift"),
+        }
+    }
+}
+
+/// How the coefficients are estimated.
+#[non_exhaustive]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize, Default)]
+pub enum Estimator {
+    /// Conditional sum of squares: condition on the first `p + P·s` differenced readings
+    /// with pre-sample innovations set to zero. Fast; its log-likelihood is partial, so no
+    /// information criteria are offered.
+    ConditionalSumOfSquares,
+    /// Exact Gaussian maximum likelihood (Kalman filter, σ² concentrated out), started
+    /// from Hannan–Rissanen estimates.
+    ExactLikelihood,
+    /// Conditional sum of squares first, then exact maximum likelihood from that solution.
+    #[default]
+    StagedLikelihood,
+}
+
+impl std::fmt::Display for Estimator {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            Estimator::ConditionalSumOfSquares => "conditional sum of squares",
+            Estimator::ExactLikelihood => "exact likelihood",
+            Estimator::StagedLikelihood => {
+                "exact likelihood started from conditional sum of squares"
+            }
+        })
+    }
+}
+
+/// A validated model specification. `Clone + Send + Sync`, immutable.
+///
+/// ```
+/// use lagwise::{Blueprint, Estimator, Term};
+/// # fn main() -> Result<(), lagwise::Error> {
+/// // Return temperature: SARIMA(1,0,1)(0,1,1) with a daily period of 96 readings.
+/// let bp = Blueprint::builder()
+///     .nonseasonal(1, 0, 1)
+///     .periodic(0, 1, 1, 96)
+///     .estimator(Estimator::StagedLikelihood)
+///     .build()?;
+/// assert_eq!(bp.expanded_degrees(), (1, 97));
+/// assert!(!bp.has_mean()); // differenced: no mean by default
+///
+/// // Bad settings fail at build time with a typed error:
+/// let err = Blueprint::builder().periodic(1, 0, 0, 1).build().unwrap_err();
+/// assert!(err.to_string().contains("period"));
+/// let err = Blueprint::builder().nonseasonal(1, 0, 0).hold(Term::Ma(1), 0.3).build().unwrap_err();
+/// assert!(err.to_string().contains("theta.1"));
+/// # Ok(()) }
+/// ```
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Blueprint {
+    pub(crate) p: usize,
+    pub(crate) d: usize,
+    pub(crate) q: usize,
+    pub(crate) seasonal_p: usize,
+    pub(crate) seasonal_d: usize,
+    pub(crate) seasonal_q: usize,
+    pub(crate) period: usize,
+    pub(crate) mean: bool,
+    pub(crate) drift: bool,
+    pub(crate) held: Vec<(Term, f64)>,
+    pub(crate) estimator: Estimator,
+    pub(crate) tolerance: f64,
+    pub(crate) max_iterations: usize,
+}
+
+/// Builder for [`Blueprint`]; setters chain on `&mut self`, `build()` validates.
+#[derive(Debug, Clone, Default)]
+pub struct BlueprintBuilder {
+    orders: (usize, usize, usize),
+    seasonal: (usize, usize, usize, usize),
+    mean: Option<bool>,
+    drift: Option<bool>,
+    held: Vec<(Term, f64)>,
+    estimator: Estimator,
+    tolerance: Option<f64>,
+    max_iterations: Option<usize>,
+}
+
+impl BlueprintBuilder {
+    /// Non-seasonal orders: AR order `p`, differencing `d`, MA order `q`.
+    pub fn nonseasonal(&mut self, p: usize, d: usize, q: usize) -> &mut Self {
+        self.orders = (p, d, q);
+        self
+    }
+    /// Seasonal orders `P`, `D`, `Q` at period `s` readings (`s ≥ 2` when any is non-zero).
+    pub fn periodic(&mut self, p: usize, d: usize, q: usize, period: usize) -> &mut Self {
+        self.seasonal = (p, d, q, period);
+        self
+    }
+    /// Include an estimated mean (default: yes when `d + D = 0`; not allowed otherwise).
+    pub fn mean_term(&mut self, yes: bool) -> &mut Self {
+        self.mean = Some(yes);
+        self
+    }
+    /// Include an estimated drift (default: no; allowed only when `d + D = 1`).
+    pub fn drift_term(&mut self, yes: bool) -> &mut Self {
+        self.drift = Some(yes);
+        self
+    }
+    /// Hold a coefficient at a fixed value instead of estimating it. Holding the same
+    /// term twice keeps the last value.
+    pub fn hold(&mut self, term: Term, value: f64) -> &mut Self {
+        self.held.retain(|(t, _)| *t != term);
+        self.held.push((term, value));
+        self
+    }
+    /// The estimator (default [`Estimator::StagedLikelihood`]).
+    pub fn estimator(&mut self, estimator: Estimator) -> &mut Self {
+        self.estimator = estimator;
+        self
+    }
+    /// Convergence tolerance on the gradient norm of the objective per reading
+    /// (default 1e-7).
+    pub fn tolerance(&mut self, tolerance: f64) -> &mut Self {
+        self.tolerance = Some(tolerance);
+        self
+    }
+    /// Iteration cap for each optimisation stage (default 200).
+    pub fn max_iterations(&mut self, iterations: usize) -> &mut Self {
+        self.max_iterations = Some(iterations);
+        self
+    }
+
+    /// Validate the settings and return the blueprint.
+    pub fn build(&self) -> Result<Blueprint> {
+        let (p, d, q) = self.orders;
+        let (sp, sd, sq, period) = self.seasonal;
+        let bad = |field: &'static str, message: String| {
+            Err(Error::new(ErrorKind::InvalidSpecification {
+                field,
+                message,
+            }))
+        };
+        for (name, v) in [("p", p), ("q", q), ("P", sp), ("Q", sq)] {
+            if v > MAX_ORDER {
+                return bad(
+                    "orders",
+                    format!("order {name} = {v} exceeds the limit {MAX_ORDER}"),
+                );
+            }
+        }
+        if d > 3 || sd > 2 {
+            return bad(
+                "differencing",
+                format!("d = {d}, D = {sd}; at most d = 3 and D = 2 are supported"),
+            );
+        }
+        let seasonal = sp + sd + sq > 0;
+        let period = if seasonal { period } else { 1 };
+        if seasonal && period < 2 {
+            return bad(
+                "period",
+                format!("seasonal orders need a period s >= 2 readings, got s = {period}"),
+            );
+        }
+        if period > MAX_PERIOD {
+            return bad(
+                "period",
+                format!("period {period} exceeds the limit {MAX_PERIOD}"),
+            );
+        }
+        if p + sp * period > MAX_EXPANDED_DEGREE || q + sq * period > MAX_EXPANDED_DEGREE {
+            return bad(
+                "orders",
+                format!(
+                    "expanded degree above {MAX_EXPANDED_DEGREE}: p + P*s = {}, q + Q*s = {}",
+                    p + sp * period,
+                    q + sq * period
+                ),
+            );
+        }
+        let integrated = d + sd;
+        let mean = self.mean.unwrap_or(integrated == 0);
+        if mean && integrated > 0 {
+            return bad(
+                "mean",
+                "a mean is only identifiable for an undifferenced model (d + D = 0); use a drift for d + D = 1".into(),
+            );
+        }
+        let drift = self.drift.unwrap_or(false);
+        if drift && integrated != 1 {
+            return bad(
+                "drift",
+                format!(
+                    "a drift needs exactly one difference (d + D = 1), got d + D = {integrated}"
+                ),
+            );
+        }
+        for &(term, value) in &self.held {
+            if !value.is_finite() {
+                return bad(
+                    "hold",
+                    format!("held value for {term} is {value}; it must be finite"),
+                );
+            }
+            let exists = match term {
+                Term::Ar(i) => (1..=p).contains(&i),
+                Term::Ma(i) => (1..=q).contains(&i),
+                Term::SeasonalAr(i) => (1..=sp).contains(&i),
+                Term::SeasonalMa(i) => (1..=sq).contains(&i),
+                Term::Mean => mean,
+                Term::Drift => drift,
+            };
+            if !exists {
+                return bad("hold", format!("{term} is not a coefficient of this model"));
+            }
+        }
+        // A factor whose coefficients are all held must be admissible.
+        let mut held = self.held.clone();
+        held.sort_by_key(|h| h.0);
+        let tolerance = self.tolerance.unwrap_or(1e-7);
+        if !(tolerance > 0.0 && tolerance.is_finite()) {
+            return bad(
+                "tolerance",
+                format!("tolerance {tolerance} must be positive"),
+            );
+        }
+        let max_iterations = self.max_iterations.unwrap_or(200);
+        if max_iterations == 0 {
+            return bad(
+                "max_iterations",
+                "the iteration cap must be at least 1".into(),
+            );
+        }
+        let bp = Blueprint {
+            p,
+            d,
+            q,
+            seasonal_p: sp,
+            seasonal_d: sd,
+            seasonal_q: sq,
+            period,
+            mean,
+            drift,
+            held,
+            estimator: self.estimator,
+            tolerance,
+            max_iterations,
+        };
+        for (factor, len, is_ar) in [
+            (Term::Ar(0), p, true),
+            (Term::Ma(0), q, false),
+            (Term::SeasonalAr(0), sp, true),
+            (Term::SeasonalMa(0), sq, false),
+        ] {
+            if len > 0 && bp.factor_fully_held(factor, len) {
+                let coefs: Vec<f64> = (1..=len)
+                    .map(|i| bp.held_value(same_kind(factor, i)).unwrap_or(0.0))
+                    .collect();
+                let ok = if is_ar {
+                    crate::lag::is_stationary(&coefs)
+                } else {
+                    crate::lag::is_invertible(&coefs)
+                };
+                if !ok {
+                    return bad(
+                        "hold",
+                        format!(
+                            "the held {} coefficients are not {}",
+                            factor_name(factor),
+                            if is_ar { "stationary" } else { "invertible" }
+                        ),
+                    );
+                }
+            }
+        }
+        Ok(bp)
+    }
+}
+
+pub(crate) fn same_kind(factor: Term, i: usize) -> Term {
+    match factor {
+        Term::Ar(_) => Term::Ar(i),
+        Term::Ma(_) => Term::Ma(i),
+        Term::SeasonalAr(_) => Term::SeasonalAr(i),
+        Term::SeasonalMa(_) => Term::SeasonalMa(i),
+        other => other,
+    }
+}
+
+fn factor_name(factor: Term) -> &'static str {
+    match factor {
+        Term::Ar(_) => "AR",
+        Term::Ma(_) => "MA",
+        Term::SeasonalAr(_) => "seasonal AR",
+        Term::SeasonalMa(_) => "seasonal MA",
+        _ => "regression",
+    }
+}
+
+impl Blueprint {
+    /// Start a blueprint (default: white noise with a mean, staged likelihood).
+    pub fn builder() -> BlueprintBuilder {
+        BlueprintBuilder::default()
+    }
+    /// `(p, d, q)`.
+    pub fn nonseasonal_orders(&self) -> (usize, usize, usize) {
+        (self.p, self.d, self.q)
+    }
+    /// `(P, D, Q, s)`; `s = 1` when there are no seasonal terms.
+    pub fn periodic_orders(&self) -> (usize, usize, usize, usize) {
+        (
+            self.seasonal_p,
+            self.seasonal_d,
+            self.seasonal_q,
+            self.period,
+        )
+    }
+    /// Degrees of the expanded AR and MA polynomials: `(p + P·s, q + Q·s)`.
+    pub fn expanded_degrees(&self) -> (usize, usize) {
+        (
+            self.p + self.seasonal_p * self.period,
+            self.q + self.seasonal_q * self.period,
+        )
+    }
+    /// Readings lost to differencing: `d + D·s`.
+    pub fn differencing_loss(&self) -> usize {
+        self.d + self.seasonal_d * self.period
+    }
+    /// Whether a mean is part of the model.
+    pub fn has_mean(&self) -> bool {
+        self.mean
+    }
+    /// Whether a drift is part of the model.
+    pub fn has_drift(&self) -> bool {
+        self.drift
+    }
+    /// The estimator.
+    pub fn estimator(&self) -> Estimator {
+        self.estimator
+    }
+    /// Gradient tolerance.
+    pub fn tolerance(&self) -> f64 {
+        self.tolerance
+    }
+    /// Iteration cap per optimisation stage.
+    pub fn max_iterations(&self) -> usize {
+        self.max_iterations
+    }
+    /// Held coefficients and their values.
+    pub fn held(&self) -> &[(Term, f64)] {
+        &self.held
+    }
+    /// The held value of `term`, if held.
+    pub fn held_value(&self, term: Term) -> Option<f64> {
+        self.held.iter().find(|(t, _)| *t == term).map(|(_, v)| *v)
+    }
+    /// Every coefficient of the model in canonical order: φ, θ, Φ, Θ, mean, drift.
+    pub fn terms(&self) -> Vec<Term> {
+        let mut out = Vec::new();
+        out.extend((1..=self.p).map(Term::Ar));
+        out.extend((1..=self.q).map(Term::Ma));
+        out.extend((1..=self.seasonal_p).map(Term::SeasonalAr));
+        out.extend((1..=self.seasonal_q).map(Term::SeasonalMa));
+        if self.mean {
+            out.push(Term::Mean);
+        }
+        if self.drift {
+            out.push(Term::Drift);
+        }
+        out
+    }
+    /// Number of ARMA coefficients (φ, θ, Φ, Θ) that are estimated, not held: the
+    /// reduction of portmanteau degrees of freedom.
+    pub fn estimated_arma_coefficients(&self) -> usize {
+        self.terms()
+            .iter()
+            .filter(|t| !matches!(t, Term::Mean | Term::Drift) && self.held_value(**t).is_none())
+            .count()
+    }
+    /// A short name of the model shape, e.g. `SARIMA(1,0,1)(0,1,1)[96] + mean`.
+    pub fn shape_label(&self) -> String {
+        let mut s = if self.period > 1 {
+            format!(
+                "SARIMA({},{},{})({},{},{})[{}]",
+                self.p,
+                self.d,
+                self.q,
+                self.seasonal_p,
+                self.seasonal_d,
+                self.seasonal_q,
+                self.period
+            )
+        } else if self.d > 0 {
+            format!("ARIMA({},{},{})", self.p, self.d, self.q)
+        } else {
+            format!("ARMA({},{})", self.p, self.q)
+        };
+        if self.mean {
+            s.push_str(" + mean");
+        }
+        if self.drift {
+            s.push_str(" + drift");
+        }
+        s
+    }
+    pub(crate) fn factor_fully_held(&self, factor: Term, len: usize) -> bool {
+        (1..=len).all(|i| self.held_value(same_kind(factor, i)).is_some())
+    }
+    pub(crate) fn factor_partly_held(&self, factor: Term, len: usize) -> bool {
+        (1..=len).any(|i| self.held_value(same_kind(factor, i)).is_some())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn defaults_and_labels() {
+        let bp = Blueprint::builder().nonseasonal(2, 0, 1).build().unwrap();
+        assert!(bp.has_mean() && !bp.has_drift());
+        assert_eq!(bp.shape_label(), "ARMA(2,1) + mean");
+        assert_eq!(bp.estimated_arma_coefficients(), 3);
+        let bp = Blueprint::builder()
+            .nonseasonal(0, 1, 1)
+            .drift_term(true)
+            .build()
+            .unwrap();
+        assert_eq!(bp.shape_label(), "ARIMA(0,1,1) + drift");
+        assert_eq!(bp.terms(), vec![Term::Ma(1), Term::Drift]);
+    }
+
+    #[test]
+    fn refusals_name_the_field() {
+        let cases: Vec<(BlueprintBuilder, &str)> = vec![
+            (Blueprint::builder().periodic(0, 1, 1, 0).clone(), "period"),
+            (
+                Blueprint::builder()
+                    .nonseasonal(0, 1, 0)
+                    .mean_term(true)
+                    .clone(),
+                "mean",
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(0, 2, 0)
+                    .drift_term(true)
+                    .clone(),
+                "drift",
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .hold(Term::Ar(1), f64::NAN)
+                    .clone(),
+                "hold",
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .hold(Term::Ar(1), 1.5)
+                    .clone(),
+                "hold",
+            ),
+            (Blueprint::builder().nonseasonal(99, 0, 0).clone(), "orders"),
+            (Blueprint::builder().tolerance(0.0).clone(), "tolerance"),
+            (
+                Blueprint::builder().max_iterations(0).clone(),
+                "max_iterations",
+            ),
+            (
+                Blueprint::builder().nonseasonal(0, 4, 0).clone(),
+                "differencing",
+            ),
+        ];
+        for (b, field) in cases {
+            let e = b.build().unwrap_err();
+            match e.kind() {
+                ErrorKind::InvalidSpecification { field: f, .. } => assert_eq!(*f, field, "{e}"),
+                other => panic!("{other:?}"),
+            }
+        }
+    }
+}
