@@ -570,7 +570,7 @@ fn resize(v: &mut Vec<f64>, len: usize) {
 /// # fn main() -> Result<(), lagwise::Error> {
 /// // AR(1), φ = 0.5, σ² = 1, one reading x: log L = −½(ln 2π + ln γ₀ + x²/γ₀), γ₀ = 4/3.
 /// let ll = lagwise::kalman::exact_log_likelihood(&[0.5], &[], 1.0, &[1.0])?;
-/// let g0 = 4.0 / 3.0;
+/// let g0: f64 = 4.0 / 3.0;
 /// assert!((ll + 0.5 * ((2.0 * std::f64::consts::PI).ln() + g0.ln() + 1.0 / g0)).abs() < 1e-14);
 /// # Ok(()) }
 /// ```
