@@ -166,6 +166,15 @@ pub enum ErrorKind {
         /// What happened.
         message: String,
     },
+    /// Two fitted models cannot be compared the way that was asked (different data,
+    /// not nested, conditional likelihoods, …).
+    #[error("{what}: models not comparable: {message}")]
+    NotComparable {
+        /// Routine that refused.
+        what: &'static str,
+        /// Why the models cannot be compared.
+        message: String,
+    },
     /// A stored model or monitor could not be restored.
     #[error("stored model rejected: {message}")]
     CorruptStore {

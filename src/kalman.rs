@@ -24,7 +24,7 @@
 //! # Three phases per pass
 //! 1. **Full**: the covariance update exploits the companion structure, O(r²) per step.
 //!    Missing readings (NaN) skip the measurement update.
-//! 2. **Steady**: once the trace of the updated covariance `P⁺_t` is below 1e-11 the gain has converged to `R` (for an
+//! 2. **Steady**: once the trace of the updated covariance `P⁺_t` is below 1e-14 the gain has converged to `R` (for an
 //!    invertible MA part); the state is updated in O(r) for `r` steps.
 //! 3. **Direct**: the filter is then exactly the innovations recursion
 //!    `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` over the non-zero coefficients only
@@ -39,7 +39,7 @@ use crate::error::{Error, Result};
 use crate::lag;
 
 /// Convergence threshold on trace(P⁺) for leaving the full-covariance phase.
-pub(crate) const STEADY_TOLERANCE: f64 = 1e-11;
+pub(crate) const STEADY_TOLERANCE: f64 = 1e-14;
 
 /// The filter's reusable workspace. Sized by `prepare`; reused across evaluations of the
 /// same shape without allocating.
@@ -397,11 +397,13 @@ impl KalmanWorkspace {
     }
 
     /// Predicted state (for time `n`) of column `c` after the last pass.
+    #[allow(dead_code)] // used by forecasting (next)
     pub(crate) fn final_state(&self, c: usize) -> &[f64] {
         &self.state[c * self.r..(c + 1) * self.r]
     }
 
     /// Predicted covariance after the last pass (r×r, σ² = 1 units).
+    #[allow(dead_code)] // used by forecasting (next)
     pub(crate) fn final_covariance(&self) -> &[f64] {
         &self.p
     }

@@ -109,7 +109,6 @@ pub fn is_invertible(theta: &[f64]) -> bool {
 
 /// Durbin–Levinson forward map from partial autocorrelations `κ` (each in (−1, 1)) to AR
 /// coefficients `φ`, written into `out` (same length). Allocation-free.
-#[allow(dead_code)] // TEMP: used by the estimation layer
 pub(crate) fn coefficients_from_partials(kappa: &[f64], out: &mut [f64], tmp: &mut [f64]) {
     let p = kappa.len();
     for k in 0..p {
@@ -124,7 +123,6 @@ pub(crate) fn coefficients_from_partials(kappa: &[f64], out: &mut [f64], tmp: &m
 
 /// Map unconstrained reals to the coefficients of an admissible AR factor (`κ = tanh u`).
 /// `kappa` and `tmp` are scratch of the same length as `u`. Allocation-free.
-#[allow(dead_code)] // TEMP: used by the estimation layer
 pub(crate) fn admissible_from_unconstrained(
     u: &[f64],
     out: &mut [f64],
@@ -139,7 +137,6 @@ pub(crate) fn admissible_from_unconstrained(
 }
 
 /// Inverse of [`admissible_from_unconstrained`]: `u = atanh κ`. `None` if not admissible.
-#[allow(dead_code)] // TEMP: used by the estimation layer
 pub(crate) fn unconstrained_from_admissible(phi: &[f64]) -> Option<Vec<f64>> {
     step_down(phi).map(|k| k.iter().map(|v| v.atanh()).collect())
 }
@@ -147,7 +144,6 @@ pub(crate) fn unconstrained_from_admissible(phi: &[f64]) -> Option<Vec<f64>> {
 /// Move an AR coefficient set strictly inside the admissible region: if it is not
 /// admissible, shrink its partial autocorrelations to at most `limit` in modulus.
 /// Used for starting values.
-#[allow(dead_code)] // TEMP: used by the estimation layer
 pub(crate) fn pull_inside(phi: &[f64], limit: f64) -> Vec<f64> {
     if let Some(k) = step_down(phi)
         && k.iter().all(|v| v.abs() <= limit)

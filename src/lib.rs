@@ -78,26 +78,32 @@
 // Numeric kernels index several arrays with one counter; iterator chains hide that.
 #![allow(clippy::needless_range_loop)]
 
+pub mod compare;
 pub mod correlogram;
 pub mod criteria;
 mod error;
-#[allow(dead_code)] // TEMP: parts used by forecasting
+mod estimate;
+pub mod fitted;
 pub mod kalman;
 pub mod lag;
-#[allow(dead_code)] // TEMP: used by the estimation layer
 mod linalg;
 mod series;
-#[allow(dead_code)] // TEMP
 pub mod spec;
 pub mod synth;
 pub mod whiteness;
 
+pub use compare::{NestedTest, RankedModel, nested_likelihood_ratio, rank_by_criterion};
 pub use correlogram::{
     BandRule, Correlogram, CorrelogramScratch, CrossCorrelogram, cross_correlogram,
     cross_correlogram_with,
 };
 pub use criteria::{Criterion, InformationCriteria};
 pub use error::{Error, ErrorKind, Result};
+pub use estimate::{StageRecord, StopReason};
+pub use fitted::{
+    CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LogLikelihood,
+    ReadingCounts, ResidualCheck,
+};
 pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use whiteness::{PortmanteauRow, PortmanteauScan};

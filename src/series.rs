@@ -20,7 +20,6 @@ pub(crate) struct Screened {
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub(crate) enum ConstantPolicy {
     Refuse,
-    #[allow(dead_code)] // TEMP: used by the estimation layer
     Allow,
 }
 
@@ -150,21 +149,6 @@ fn lane_sum(values: &[f64], f: impl Fn(f64) -> f64) -> f64 {
         }
     }
     sum + c_total
-}
-
-/// Refuse ±inf in an array of settings or regressors (NaN refused too unless `allow_nan`).
-#[allow(dead_code)] // TEMP: used by the estimation layer
-pub(crate) fn require_finite(values: &[f64], what: &'static str, allow_nan: bool) -> Result<()> {
-    for (index, &v) in values.iter().enumerate() {
-        if v.is_infinite() || (!allow_nan && v.is_nan()) {
-            return Err(Error::new(ErrorKind::NonFiniteReading {
-                what,
-                index,
-                value: v,
-            }));
-        }
-    }
-    Ok(())
 }
 
 #[cfg(test)]

@@ -446,9 +446,6 @@ impl Blueprint {
     pub(crate) fn factor_fully_held(&self, factor: Term, len: usize) -> bool {
         (1..=len).all(|i| self.held_value(same_kind(factor, i)).is_some())
     }
-    pub(crate) fn factor_partly_held(&self, factor: Term, len: usize) -> bool {
-        (1..=len).any(|i| self.held_value(same_kind(factor, i)).is_some())
-    }
 }
 
 #[cfg(test)]

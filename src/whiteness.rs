@@ -191,7 +191,7 @@ pub(crate) fn chi_square_upper(x: f64, df: usize) -> f64 {
 }
 
 /// Chi-square quantile: the `x` with `P(χ²_df ≤ x) = probability`.
-#[allow(dead_code)] // TEMP: used by the estimation layer
+#[cfg(test)]
 pub(crate) fn chi_square_quantile(probability: f64, df: usize) -> f64 {
     match ChiSquared::new(df as f64) {
         Ok(d) => d.inverse_cdf(probability),

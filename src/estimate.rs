@@ -1,0 +1,1180 @@
+//! Estimators: conditional sum of squares, exact maximum likelihood, and the staged
+//! combination; Hannan–Rissanen starting values; the optimiser boundary (argmin BFGS
+//! with a Moré–Thuente line search); numerical Hessian for standard errors.
+//!
+//! # Objective
+//! The optimiser sees only the free ARMA coefficients. Each polynomial factor without
+//! held coefficients is parameterised by `u_k = atanh κ_k` (partial autocorrelations), so
+//! every trial point is admissible (Jones 1980; Monahan 1984). Regression coefficients
+//! (mean, drift) are profiled out by GLS inside the likelihood, and σ² is concentrated
+//! out, so the objective is `−log L / n` as a function of the ARMA part alone.
+//!
+//! # Conditional sum of squares (convention)
+//! On the differenced series `w`, residuals are `e_t = w_t − Σφ_i w_{t−i} − Σθ_j e_{t−j}`
+//! for `t ≥ p + P·s` (the first `p + P·s` differenced readings are conditioned on), with
+//! pre-sample residuals set to zero. A missing reading after the conditioning stretch gets
+//! residual zero and is replaced by its one-step prediction in later lags; a missing
+//! reading inside the conditioning stretch is taken as zero deviation. σ² = SS/m with `m`
+//! the number of non-missing residual times. The log-likelihood reported is the
+//! conditional one, `−m/2·(ln 2πσ² + 1)`, typed as conditional.
+
+use std::cell::{Cell, RefCell};
+
+use argmin::core::{CostFunction, Executor, Gradient, State, TerminationReason, TerminationStatus};
+use argmin::solver::linesearch::BacktrackingLineSearch;
+use argmin::solver::linesearch::condition::ArmijoCondition;
+use argmin::solver::quasinewton::BFGS;
+
+use crate::correlogram::partial_from_autocorrelations;
+use crate::error::{Error, ErrorKind, Result};
+use crate::kalman::{KalmanWorkspace, direct_recursion};
+use crate::lag;
+use crate::linalg;
+use crate::spec::{Blueprint, Term};
+
+/// The differenced data of one fit, with its regression columns.
+#[derive(Debug, Clone)]
+pub(crate) struct Prepared {
+    /// Length of the original series.
+    pub original_len: usize,
+    /// Length after differencing.
+    pub n: usize,
+    /// Columns (column-major): 0 = differenced series minus held regression effects,
+    /// then one column per profiled regression term.
+    pub data: Vec<f64>,
+    pub ncols: usize,
+    /// Terms of the profiled regression columns (col 1..).
+    pub profiled: Vec<Term>,
+    pub has_missing: bool,
+    pub missing_original: usize,
+    /// Preliminary regression coefficients (OLS) already removed from column 0, so the
+    /// filtered cross-products do not cancel catastrophically; the likelihood's GLS
+    /// estimates are corrections to these.
+    pub beta_offset: Vec<f64>,
+    /// Standard deviation of the differenced series (for step sizes).
+    pub scale: f64,
+}
+
+/// Apply `(1 − B)^d (1 − B^s)^D` to `x`, returning a series shorter by `d + D·s`.
+pub(crate) fn difference(x: &[f64], d: usize, seasonal_d: usize, period: usize) -> Vec<f64> {
+    let mut v = x.to_vec();
+    for _ in 0..seasonal_d {
+        if v.len() <= period {
+            return Vec::new();
+        }
+        v = (period..v.len()).map(|t| v[t] - v[t - period]).collect();
+    }
+    for _ in 0..d {
+        if v.len() <= 1 {
+            return Vec::new();
+        }
+        v = (1..v.len()).map(|t| v[t] - v[t - 1]).collect();
+    }
+    v
+}
+
+/// Regression column of a term on the original time axis.
+fn regression_column(term: Term, len: usize) -> Vec<f64> {
+    match term {
+        Term::Drift => (0..len).map(|t| t as f64).collect(),
+        _ => vec![1.0; len],
+    }
+}
+
+/// Screen the series against the blueprint and build the differenced columns.
+pub(crate) fn prepare(bp: &Blueprint, series: &[f64]) -> Result<Prepared> {
+    const WHAT: &str = "fit";
+    let (p_exp, q_exp) = bp.expanded_degrees();
+    let loss = bp.differencing_loss();
+    let estimated = bp
+        .terms()
+        .iter()
+        .filter(|t| bp.held_value(**t).is_none())
+        .count();
+    let s = crate::series::screen(series, WHAT, 1, crate::series::ConstantPolicy::Refuse)?;
+    if series.len() <= loss {
+        return Err(Error::new(ErrorKind::TooShort {
+            what: WHAT,
+            present: s.present,
+            needed: loss + estimated + 2,
+        }));
+    }
+    let mut y = series.to_vec();
+    let mut profiled = Vec::new();
+    for term in [Term::Mean, Term::Drift] {
+        let present = match term {
+            Term::Mean => bp.has_mean(),
+            _ => bp.has_drift(),
+        };
+        if !present {
+            continue;
+        }
+        match bp.held_value(term) {
+            Some(v) => {
+                let col = regression_column(term, y.len());
+                for (yi, c) in y.iter_mut().zip(col) {
+                    *yi -= v * c;
+                }
+            }
+            None => profiled.push(term),
+        }
+    }
+    let w = difference(&y, bp.d, bp.seasonal_d, bp.period);
+    let n = w.len();
+    let present_w = w.iter().filter(|v| !v.is_nan()).count();
+    // Need more readings than estimated parameters (σ² included) after differencing and
+    // conditioning.
+    let needed = estimated
+        + 2
+        + if bp.estimator == crate::Estimator::ConditionalSumOfSquares {
+            p_exp
+        } else {
+            0
+        };
+    if present_w < needed {
+        return Err(Error::new(ErrorKind::TooShort {
+            what: WHAT,
+            present: s.present,
+            needed: needed + loss + (s.present - present_w.min(s.present)).min(loss),
+        }));
+    }
+    if p_exp + q_exp >= n {
+        return Err(Error::invalid(
+            WHAT,
+            format!(
+                "expanded orders p + P*s = {p_exp}, q + Q*s = {q_exp} need more than {} differenced readings",
+                n
+            ),
+        ));
+    }
+    let present: Vec<f64> = w.iter().copied().filter(|v| !v.is_nan()).collect();
+    let mean = present.iter().sum::<f64>() / present.len() as f64;
+    let var = present.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / present.len() as f64;
+    if !(var > 0.0) || !var.is_finite() {
+        return Err(Error::new(ErrorKind::ConstantSeries {
+            what: "fit (after differencing)",
+            value: mean,
+        }));
+    }
+    let ncols = 1 + profiled.len();
+    let mut data = Vec::with_capacity(ncols * n);
+    data.extend_from_slice(&w);
+    for &term in &profiled {
+        let col = regression_column(term, series.len());
+        let dcol = difference(&col, bp.d, bp.seasonal_d, bp.period);
+        data.extend(dcol);
+    }
+    // Centre column 0 on a preliminary OLS fit of the regression columns.
+    let mut beta_offset = vec![0.0; ncols - 1];
+    if ncols > 1 {
+        let rows: Vec<usize> = (0..n).filter(|&t| !data[t].is_nan()).collect();
+        let cols: Vec<Vec<f64>> = (1..ncols)
+            .map(|c| rows.iter().map(|&t| data[c * n + t]).collect())
+            .collect();
+        let y: Vec<f64> = rows.iter().map(|&t| data[t]).collect();
+        if let Some((b, _)) = crate::linalg::least_squares(&cols, &y) {
+            for t in 0..n {
+                let mut fit = 0.0;
+                for c in 1..ncols {
+                    fit += b[c - 1] * data[c * n + t];
+                }
+                data[t] -= fit;
+            }
+            beta_offset = b;
+        }
+    }
+    Ok(Prepared {
+        beta_offset,
+        original_len: series.len(),
+        n,
+        data,
+        ncols,
+        profiled,
+        has_missing: present_w < n,
+        missing_original: series.len() - s.present,
+        scale: var.sqrt(),
+    })
+}
+
+/// The four polynomial factors in canonical order.
+pub(crate) const FACTORS: [Term; 4] = [
+    Term::Ar(0),
+    Term::Ma(0),
+    Term::SeasonalAr(0),
+    Term::SeasonalMa(0),
+];
+
+/// Natural coefficients of the four factors.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub(crate) struct Coefs {
+    pub f: [Vec<f64>; 4],
+}
+
+#[derive(Debug, Clone)]
+struct FactorLayout {
+    len: usize,
+    transformed: bool,
+    held: Vec<Option<f64>>,
+    offset: usize,
+    is_ma: bool,
+}
+
+/// Where the optimiser's free parameters go.
+#[derive(Debug, Clone)]
+pub(crate) struct Layout {
+    factors: Vec<FactorLayout>,
+    pub free_len: usize,
+}
+
+impl Layout {
+    pub(crate) fn new(bp: &Blueprint) -> Self {
+        let lens = [bp.p, bp.q, bp.seasonal_p, bp.seasonal_q];
+        let mut offset = 0;
+        let mut factors = Vec::with_capacity(4);
+        for (k, &factor) in FACTORS.iter().enumerate() {
+            let len = lens[k];
+            let held: Vec<Option<f64>> = (1..=len)
+                .map(|i| bp.held_value(crate::spec::same_kind(factor, i)))
+                .collect();
+            let nheld = held.iter().filter(|h| h.is_some()).count();
+            let transformed = nheld == 0;
+            factors.push(FactorLayout {
+                len,
+                transformed,
+                held,
+                offset,
+                is_ma: k % 2 == 1,
+            });
+            offset += len - nheld;
+        }
+        Layout {
+            factors,
+            free_len: offset,
+        }
+    }
+
+    /// Fill natural coefficients from optimiser coordinates. `false` if inadmissible.
+    fn natural(
+        &self,
+        x: &[f64],
+        out: &mut Coefs,
+        kappa: &mut Vec<f64>,
+        tmp: &mut Vec<f64>,
+    ) -> bool {
+        let mut ok = true;
+        for (k, fl) in self.factors.iter().enumerate() {
+            let c = &mut out.f[k];
+            c.clear();
+            c.resize(fl.len, 0.0);
+            if fl.len == 0 {
+                continue;
+            }
+            kappa.resize(fl.len, 0.0);
+            tmp.resize(fl.len, 0.0);
+            if fl.transformed {
+                lag::admissible_from_unconstrained(
+                    &x[fl.offset..fl.offset + fl.len],
+                    c,
+                    kappa,
+                    tmp,
+                );
+                if fl.is_ma {
+                    c.iter_mut().for_each(|v| *v = -*v);
+                }
+            } else {
+                let mut j = 0;
+                for i in 0..fl.len {
+                    c[i] = match fl.held[i] {
+                        Some(v) => v,
+                        None => {
+                            j += 1;
+                            x[fl.offset + j - 1]
+                        }
+                    };
+                }
+                let sign = if fl.is_ma { -1.0 } else { 1.0 };
+                ok &= admissible_with(c, sign, kappa, tmp);
+            }
+        }
+        ok
+    }
+
+    /// Optimiser coordinates from natural coefficients (which must be admissible).
+    fn coordinates(&self, c: &Coefs) -> Option<Vec<f64>> {
+        let mut x = vec![0.0; self.free_len];
+        for (k, fl) in self.factors.iter().enumerate() {
+            if fl.len == 0 {
+                continue;
+            }
+            if fl.transformed {
+                let ar: Vec<f64> = c.f[k]
+                    .iter()
+                    .map(|v| if fl.is_ma { -v } else { *v })
+                    .collect();
+                let u = lag::unconstrained_from_admissible(&ar)?;
+                x[fl.offset..fl.offset + fl.len].copy_from_slice(&u);
+            } else {
+                let mut j = 0;
+                for i in 0..fl.len {
+                    if fl.held[i].is_none() {
+                        x[fl.offset + j] = c.f[k][i];
+                        j += 1;
+                    }
+                }
+            }
+        }
+        Some(x)
+    }
+
+    /// Natural free coefficients (for the Hessian), in factor order.
+    fn natural_free(&self, c: &Coefs) -> Vec<f64> {
+        let mut z = Vec::with_capacity(self.free_len);
+        for (k, fl) in self.factors.iter().enumerate() {
+            for i in 0..fl.len {
+                if fl.held[i].is_none() {
+                    z.push(c.f[k][i]);
+                }
+            }
+        }
+        z
+    }
+
+    /// Natural coefficients with free entries replaced by `z` (inverse of natural_free).
+    fn with_natural_free(&self, base: &Coefs, z: &[f64]) -> Coefs {
+        let mut out = base.clone();
+        let mut j = 0;
+        for (k, fl) in self.factors.iter().enumerate() {
+            for i in 0..fl.len {
+                if fl.held[i].is_none() {
+                    out.f[k][i] = z[j];
+                    j += 1;
+                }
+            }
+        }
+        out
+    }
+
+    /// Terms of the free coefficients, in the order of `natural_free`.
+    pub(crate) fn free_terms(&self) -> Vec<Term> {
+        let mut out = Vec::new();
+        for (k, fl) in self.factors.iter().enumerate() {
+            for i in 0..fl.len {
+                if fl.held[i].is_none() {
+                    out.push(crate::spec::same_kind(FACTORS[k], i + 1));
+                }
+            }
+        }
+        out
+    }
+}
+
+/// Allocation-free admissibility check of `1 − Σ(sign·c_i)B^i` via the step-down recursion.
+fn admissible_with(c: &[f64], sign: f64, a: &mut Vec<f64>, b: &mut Vec<f64>) -> bool {
+    let p = c.len();
+    a.resize(p, 0.0);
+    b.resize(p, 0.0);
+    for i in 0..p {
+        a[i] = sign * c[i];
+        if !a[i].is_finite() {
+            return false;
+        }
+    }
+    for k in (1..=p).rev() {
+        let kk = a[k - 1];
+        if !(kk.abs() < 1.0) {
+            return false;
+        }
+        let denom = 1.0 - kk * kk;
+        for j in 1..k {
+            b[j - 1] = (a[j - 1] + kk * a[k - j - 1]) / denom;
+        }
+        a[..k - 1].copy_from_slice(&b[..k - 1]);
+    }
+    true
+}
+
+/// Expand `(1 ∓ Σa_iB^i)(1 ∓ Σb_jB^{js})` into `out` (coefficient list, sign convention of
+/// the factor kind); allocation-free once `out` has capacity.
+fn expand_into(a: &[f64], b: &[f64], period: usize, is_ma: bool, out: &mut Vec<f64>) {
+    let len = a.len() + b.len() * period;
+    out.clear();
+    out.resize(len, 0.0);
+    for (i, &ai) in a.iter().enumerate() {
+        out[i] += ai;
+    }
+    for (j, &bj) in b.iter().enumerate() {
+        let lag = (j + 1) * period;
+        out[lag - 1] += bj;
+        for (i, &ai) in a.iter().enumerate() {
+            // AR: −(−a)(−b) = −ab in "1 − Σc" form; MA: +ab.
+            out[lag + i] += if is_ma { ai * bj } else { -ai * bj };
+        }
+    }
+}
+
+/// Which objective.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum ObjectiveKind {
+    Conditional,
+    Exact,
+}
+
+/// Reusable evaluation workspace: one per worker, reused across fits of any shape.
+#[derive(Debug, Default, Clone)]
+pub(crate) struct EvalWorkspace {
+    pub kalman: KalmanWorkspace,
+    coefs: Coefs,
+    phi: Vec<f64>,
+    theta: Vec<f64>,
+    ar_nz: Vec<(usize, f64)>,
+    ma_nz: Vec<(usize, f64)>,
+    cross: Vec<f64>,
+    gram: Vec<f64>,
+    rhs: Vec<f64>,
+    kappa: Vec<f64>,
+    tmp: Vec<f64>,
+    fill: Vec<f64>,
+    pub css_innov: Vec<f64>,
+}
+
+/// Result of one objective evaluation.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct Evaluation {
+    pub neg_log_likelihood: f64,
+    pub innovation_variance: f64,
+    pub beta: Vec<f64>,
+    pub used: usize,
+}
+
+impl EvalWorkspace {
+    fn expand(&mut self, c: &Coefs, period: usize) {
+        expand_into(&c.f[0], &c.f[2], period, false, &mut self.phi);
+        expand_into(&c.f[1], &c.f[3], period, true, &mut self.theta);
+        self.ar_nz.clear();
+        self.ar_nz.extend(
+            self.phi
+                .iter()
+                .enumerate()
+                .filter(|(_, v)| **v != 0.0)
+                .map(|(i, v)| (i + 1, *v)),
+        );
+        self.ma_nz.clear();
+        self.ma_nz.extend(
+            self.theta
+                .iter()
+                .enumerate()
+                .filter(|(_, v)| **v != 0.0)
+                .map(|(i, v)| (i + 1, *v)),
+        );
+    }
+
+    /// Evaluate the objective at natural coefficients `c`. With `beta` given, the
+    /// regression coefficients are fixed there; otherwise they are profiled by GLS.
+    pub(crate) fn evaluate(
+        &mut self,
+        prep: &Prepared,
+        bp: &Blueprint,
+        c: &Coefs,
+        kind: ObjectiveKind,
+        beta: Option<&[f64]>,
+        out: &mut Evaluation,
+    ) -> Result<()> {
+        self.expand(c, bp.period);
+        let k = prep.ncols;
+        self.cross.clear();
+        self.cross.resize(k * k, 0.0);
+        let (log_det, used) = match kind {
+            ObjectiveKind::Exact => {
+                self.kalman.set_model(&self.phi, &self.theta)?;
+                let tot = self.kalman.pass(&prep.data, prep.n, k, &mut self.cross);
+                (tot.log_det, tot.used)
+            }
+            ObjectiveKind::Conditional => (0.0, self.css_pass(prep)),
+        };
+        if used == 0 {
+            return Err(Error::numerical("fit", "no readings left in the objective"));
+        }
+        // Symmetrise the cross-product matrix (upper triangle was accumulated).
+        for i in 0..k {
+            for j in 0..i {
+                self.cross[i * k + j] = self.cross[j * k + i];
+            }
+        }
+        let nr = k - 1;
+        out.beta.clear();
+        match beta {
+            Some(b) => out
+                .beta
+                .extend(b.iter().zip(&prep.beta_offset).map(|(b, o)| b - o)),
+            None if nr > 0 => {
+                self.gram.clear();
+                self.rhs.clear();
+                for i in 1..k {
+                    for j in 1..k {
+                        self.gram.push(self.cross[i * k + j]);
+                    }
+                    self.rhs.push(self.cross[i * k]);
+                }
+                if !linalg::cholesky_solve(&mut self.gram, &mut self.rhs, nr) {
+                    return Err(Error::numerical(
+                        "fit",
+                        "regression columns are collinear after filtering",
+                    ));
+                }
+                out.beta.extend_from_slice(&self.rhs);
+            }
+            None => {}
+        }
+        // SS(β) = S_yy − 2βᵀS_Xy + βᵀS_XXβ
+        let mut ss = self.cross[0];
+        for i in 0..nr {
+            ss -= 2.0 * out.beta[i] * self.cross[(i + 1) * k];
+            for j in 0..nr {
+                ss += out.beta[i] * out.beta[j] * self.cross[(i + 1) * k + j + 1];
+            }
+        }
+        for (b, o) in out.beta.iter_mut().zip(&prep.beta_offset) {
+            *b += o;
+        }
+        let m = used as f64;
+        let ss = ss.max(f64::MIN_POSITIVE * m);
+        let s2 = ss / m;
+        out.innovation_variance = s2;
+        out.used = used;
+        out.neg_log_likelihood = 0.5 * (m * (2.0 * std::f64::consts::PI * s2).ln() + m + log_det);
+        if !out.neg_log_likelihood.is_finite() {
+            return Err(Error::numerical("fit", "log-likelihood is not finite"));
+        }
+        Ok(())
+    }
+
+    /// CSS residual pass over all columns into `css_innov`; accumulates `cross`.
+    fn css_pass(&mut self, prep: &Prepared) -> usize {
+        let n = prep.n;
+        let k = prep.ncols;
+        let cond = self.phi.len().min(n);
+        self.css_innov.clear();
+        self.css_innov.resize(k * n, 0.0);
+        let src: &[f64] = if prep.has_missing {
+            self.fill.clear();
+            self.fill.extend_from_slice(&prep.data);
+            &self.fill
+        } else {
+            &prep.data
+        };
+        let _ = src;
+        let max_ma = self.ma_nz.last().map_or(0, |e| e.0);
+        for c in 0..k {
+            let v = &mut self.css_innov[c * n..(c + 1) * n];
+            if prep.has_missing {
+                let w = &mut self.fill[c * n..(c + 1) * n];
+                for t in 0..n {
+                    let miss = prep.data[t].is_nan();
+                    if t < cond {
+                        v[t] = 0.0;
+                        if miss {
+                            w[t] = 0.0;
+                        }
+                        continue;
+                    }
+                    let mut pred = 0.0;
+                    for &(i, a) in &self.ar_nz {
+                        pred += a * w[t - i];
+                    }
+                    for &(j, b) in &self.ma_nz {
+                        if t >= j {
+                            pred += b * v[t - j];
+                        }
+                    }
+                    if miss {
+                        v[t] = 0.0;
+                        w[t] = pred;
+                    } else {
+                        v[t] = w[t] - pred;
+                    }
+                }
+            } else {
+                let w = &prep.data[c * n..(c + 1) * n];
+                for x in v[..cond].iter_mut() {
+                    *x = 0.0;
+                }
+                let guarded_end = (cond.max(max_ma)).min(n);
+                for t in cond..guarded_end {
+                    let mut pred = 0.0;
+                    for &(i, a) in &self.ar_nz {
+                        pred += a * w[t - i];
+                    }
+                    for &(j, b) in &self.ma_nz {
+                        if t >= j {
+                            pred += b * v[t - j];
+                        }
+                    }
+                    v[t] = w[t] - pred;
+                }
+                direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
+            }
+        }
+        let mut used = 0;
+        for t in cond..n {
+            if prep.data[t].is_nan() {
+                continue;
+            }
+            used += 1;
+            for i in 0..k {
+                let vi = self.css_innov[i * n + t];
+                for j in i..k {
+                    self.cross[i * k + j] += vi * self.css_innov[j * n + t];
+                }
+            }
+        }
+        used
+    }
+}
+
+/// Why an optimisation stage stopped.
+#[non_exhaustive]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+pub enum StopReason {
+    /// The gradient norm fell below the tolerance.
+    GradientSmall,
+    /// The objective stopped changing (relative change below machine precision).
+    ObjectiveStalled,
+    /// The iteration cap was reached.
+    IterationCap,
+    /// The line search could not make progress; the best point found is reported.
+    LineSearchStuck,
+    /// Every coefficient was held or there were none to estimate.
+    NothingToEstimate,
+}
+
+impl std::fmt::Display for StopReason {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            StopReason::GradientSmall => "gradient below tolerance",
+            StopReason::ObjectiveStalled => "objective stopped changing",
+            StopReason::IterationCap => "iteration cap reached",
+            StopReason::LineSearchStuck => "line search could not improve",
+            StopReason::NothingToEstimate => "nothing to estimate",
+        })
+    }
+}
+
+/// What one optimisation stage did.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct StageRecord {
+    /// Objective of this stage.
+    pub exact: bool,
+    /// Iterations of the quasi-Newton method.
+    pub iterations: usize,
+    /// Objective evaluations (gradient evaluations count their own evaluations).
+    pub evaluations: usize,
+    /// Euclidean norm of the gradient of `−log L / n` at the reported point.
+    pub gradient_norm: f64,
+    /// Why the stage stopped.
+    pub reason: StopReason,
+}
+
+impl StageRecord {
+    /// Whether the stage met its convergence criterion.
+    pub fn converged(&self) -> bool {
+        matches!(
+            self.reason,
+            StopReason::GradientSmall
+                | StopReason::ObjectiveStalled
+                | StopReason::NothingToEstimate
+        )
+    }
+}
+
+/// The optimiser's view of the problem (the one trait boundary to argmin).
+struct Objective<'a> {
+    prep: &'a Prepared,
+    bp: &'a Blueprint,
+    layout: &'a Layout,
+    kind: ObjectiveKind,
+    ws: &'a RefCell<EvalWorkspace>,
+    evals: &'a Cell<usize>,
+    best: &'a RefCell<(f64, Vec<f64>)>,
+    eval_out: &'a RefCell<Evaluation>,
+}
+
+impl Objective<'_> {
+    fn value(&self, x: &[f64]) -> f64 {
+        self.evals.set(self.evals.get() + 1);
+        let mut ws = self.ws.borrow_mut();
+        let ws = &mut *ws;
+        let mut coefs = std::mem::take(&mut ws.coefs);
+        let ok = self
+            .layout
+            .natural(x, &mut coefs, &mut ws.kappa, &mut ws.tmp);
+        let v = if ok {
+            let mut out = self.eval_out.borrow_mut();
+            match ws.evaluate(self.prep, self.bp, &coefs, self.kind, None, &mut out) {
+                Ok(()) => out.neg_log_likelihood / out.used as f64,
+                Err(_) => f64::INFINITY,
+            }
+        } else {
+            f64::INFINITY
+        };
+        ws.coefs = coefs;
+        if v.is_finite() {
+            let mut best = self.best.borrow_mut();
+            if v < best.0 {
+                best.0 = v;
+                best.1.clear();
+                best.1.extend_from_slice(x);
+            }
+        }
+        // Large finite penalty keeps the line search's interpolation defined.
+        if v.is_finite() { v } else { 1e30 }
+    }
+
+    fn gradient_at(&self, x: &[f64]) -> Vec<f64> {
+        let mut g = vec![0.0; x.len()];
+        let mut xp = x.to_vec();
+        for i in 0..x.len() {
+            let h = 1e-5 * x[i].abs().max(1.0);
+            xp[i] = x[i] + h;
+            let fp = self.value(&xp);
+            xp[i] = x[i] - h;
+            let fm = self.value(&xp);
+            xp[i] = x[i];
+            g[i] = if fp >= 1e30 || fm >= 1e30 {
+                0.0
+            } else {
+                (fp - fm) / (2.0 * h)
+            };
+        }
+        g
+    }
+}
+
+impl CostFunction for Objective<'_> {
+    type Param = Vec<f64>;
+    type Output = f64;
+    fn cost(&self, x: &Self::Param) -> std::result::Result<f64, argmin::core::Error> {
+        Ok(self.value(x))
+    }
+}
+
+impl Gradient for Objective<'_> {
+    type Param = Vec<f64>;
+    type Gradient = Vec<f64>;
+    fn gradient(&self, x: &Self::Param) -> std::result::Result<Vec<f64>, argmin::core::Error> {
+        Ok(self.gradient_at(x))
+    }
+}
+
+/// Minimise the objective from coordinates `x0`. Returns the best coordinates and record.
+pub(crate) fn minimise(
+    prep: &Prepared,
+    bp: &Blueprint,
+    layout: &Layout,
+    kind: ObjectiveKind,
+    ws: &RefCell<EvalWorkspace>,
+    x0: Vec<f64>,
+) -> Result<(Vec<f64>, StageRecord)> {
+    let evals = Cell::new(0);
+    let best = RefCell::new((f64::INFINITY, x0.clone()));
+    let eval_out = RefCell::new(Evaluation::default());
+    let obj = Objective {
+        prep,
+        bp,
+        layout,
+        kind,
+        ws,
+        evals: &evals,
+        best: &best,
+        eval_out: &eval_out,
+    };
+    let f0 = obj.value(&x0);
+    if !(f0 < 1e30) {
+        return Err(Error::numerical(
+            "fit",
+            "the objective is not finite at the starting values",
+        ));
+    }
+    if layout.free_len == 0 {
+        return Ok((
+            x0,
+            StageRecord {
+                exact: kind == ObjectiveKind::Exact,
+                iterations: 0,
+                evaluations: evals.get(),
+                gradient_norm: 0.0,
+                reason: StopReason::NothingToEstimate,
+            },
+        ));
+    }
+    let k = layout.free_len;
+    let max_iter = bp.max_iterations;
+    let mut iterations = 0usize;
+    let mut reason = StopReason::IterationCap;
+    let mut gradient_norm = f64::INFINITY;
+    // BFGS with an Armijo backtracking line search: one gradient per iteration and
+    // usually one or two objective values. A BFGS update can lose positive definiteness
+    // with numerical gradients; the run is then restarted from the best point with a
+    // fresh inverse Hessian (at most three restarts).
+    for _restart in 0..4 {
+        let start = best.borrow().1.clone();
+        let remaining = max_iter.saturating_sub(iterations);
+        if remaining == 0 {
+            reason = StopReason::IterationCap;
+            break;
+        }
+        let mut inv_h = vec![vec![0.0; k]; k];
+        for (i, row) in inv_h.iter_mut().enumerate() {
+            row[i] = 1.0;
+        }
+        let line = ArmijoCondition::new(1e-4)
+            .map(BacktrackingLineSearch::new)
+            .and_then(|l| l.rho(0.5));
+        let solver = line
+            .and_then(|l| BFGS::new(l).with_tolerance_grad(bp.tolerance))
+            .and_then(|s| s.with_tolerance_cost(1e-15))
+            .map_err(|e| Error::numerical("fit", format!("optimiser settings: {e}")))?;
+        let helper = Objective { ..obj };
+        let run = Executor::new(helper, solver)
+            .configure(|state| {
+                state
+                    .param(start)
+                    .inv_hessian(inv_h)
+                    .max_iters(remaining as u64)
+            })
+            .run();
+        let stalled = match &run {
+            Ok(res) => {
+                let st = res.state();
+                iterations += st.get_iter() as usize;
+                match st.get_termination_status() {
+                    TerminationStatus::Terminated(TerminationReason::MaxItersReached)
+                    | TerminationStatus::NotTerminated => {
+                        reason = StopReason::IterationCap;
+                        false
+                    }
+                    TerminationStatus::Terminated(TerminationReason::SolverConverged) => {
+                        reason = StopReason::ObjectiveStalled;
+                        false
+                    }
+                    TerminationStatus::Terminated(_) => {
+                        reason = StopReason::LineSearchStuck;
+                        true
+                    }
+                }
+            }
+            Err(_) => {
+                reason = StopReason::LineSearchStuck;
+                true
+            }
+        };
+        let here = best.borrow().1.clone();
+        let g = obj.gradient_at(&here);
+        gradient_norm = g.iter().map(|v| v * v).sum::<f64>().sqrt();
+        if gradient_norm <= bp.tolerance {
+            reason = StopReason::GradientSmall;
+            break;
+        }
+        if !stalled {
+            break;
+        }
+    }
+    let best = best.borrow().1.clone();
+    Ok((
+        best,
+        StageRecord {
+            exact: kind == ObjectiveKind::Exact,
+            iterations,
+            evaluations: evals.get(),
+            gradient_norm,
+            reason,
+        },
+    ))
+}
+
+/// Hannan–Rissanen starting values (long AR, then least squares on lagged readings and
+/// lagged long-AR residuals), pulled inside the admissible region.
+pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
+    let n = prep.n;
+    let k = prep.ncols;
+    // Remove the regression part by least squares on present readings.
+    let mut w: Vec<f64> = prep.data[..n].to_vec();
+    if k > 1 {
+        let rows: Vec<usize> = (0..n).filter(|&t| !w[t].is_nan()).collect();
+        let cols: Vec<Vec<f64>> = (1..k)
+            .map(|c| rows.iter().map(|&t| prep.data[c * n + t]).collect())
+            .collect();
+        let y: Vec<f64> = rows.iter().map(|&t| w[t]).collect();
+        if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
+            for t in 0..n {
+                let mut fit = 0.0;
+                for c in 1..k {
+                    fit += beta[c - 1] * prep.data[c * n + t];
+                }
+                w[t] -= fit;
+            }
+        }
+    } else {
+        let present: Vec<f64> = w.iter().copied().filter(|v| !v.is_nan()).collect();
+        let mean = present.iter().sum::<f64>() / present.len().max(1) as f64;
+        // A model without a mean is fitted around zero: keep the data as is, but start
+        // the AR regression from the centred series for stability.
+        let _ = mean;
+    }
+    for v in w.iter_mut() {
+        if v.is_nan() {
+            *v = 0.0;
+        }
+    }
+    let (p, q, sp, sq, s) = (bp.p, bp.q, bp.seasonal_p, bp.seasonal_q, bp.period);
+    let mut out = Coefs::default();
+    out.f[0] = vec![0.0; p];
+    out.f[1] = vec![0.0; q];
+    out.f[2] = vec![0.0; sp];
+    out.f[3] = vec![0.0; sq];
+    let ar_lags: Vec<(usize, usize, usize)> = (1..=p)
+        .map(|i| (0, i - 1, i))
+        .chain((1..=sp).map(|i| (2, i - 1, i * s)))
+        .collect();
+    let ma_lags: Vec<(usize, usize, usize)> = (1..=q)
+        .map(|i| (1, i - 1, i))
+        .chain((1..=sq).map(|i| (3, i - 1, i * s)))
+        .collect();
+    if ar_lags.is_empty() && ma_lags.is_empty() {
+        return out;
+    }
+    // Long AR by Durbin–Levinson on the sample autocorrelations.
+    let (p_exp, q_exp) = bp.expanded_degrees();
+    let nlog = (10.0 * (n as f64).log10()).ceil() as usize;
+    let m = if ma_lags.is_empty() {
+        0
+    } else {
+        (p_exp.max(q_exp) + nlog).min(n / 3)
+    };
+    let mut ehat = vec![0.0; n];
+    if m > 0
+        && let Ok(cg) = crate::correlogram::Correlogram::compute(&w, m)
+    {
+        let r = cg.autocorrelations();
+        // AR(m) coefficients by Durbin–Levinson.
+        let mut a = vec![0.0; m];
+        let mut prev = vec![0.0; m];
+        let mut vv = 1.0;
+        if partial_from_autocorrelations(r).is_ok() {
+            for kk in 1..=m {
+                let mut num = r[kk];
+                for j in 1..kk {
+                    num -= prev[j - 1] * r[kk - j];
+                }
+                if !(vv > 1e-12) {
+                    break;
+                }
+                let kap = (num / vv).clamp(-0.999, 0.999);
+                for j in 1..kk {
+                    a[j - 1] = prev[j - 1] - kap * prev[kk - j - 1];
+                }
+                a[kk - 1] = kap;
+                vv *= 1.0 - kap * kap;
+                prev[..kk].copy_from_slice(&a[..kk]);
+            }
+        }
+        for t in m..n {
+            let mut pred = 0.0;
+            for j in 1..=m {
+                pred += a[j - 1] * w[t - j];
+            }
+            ehat[t] = w[t] - pred;
+        }
+    }
+    let max_lag = ar_lags
+        .iter()
+        .chain(&ma_lags)
+        .map(|l| l.2)
+        .max()
+        .unwrap_or(0);
+    let start = m + max_lag;
+    if start + ar_lags.len() + ma_lags.len() + 2 >= n {
+        return out;
+    }
+    // Held coefficients: subtract their contributions and leave their columns out.
+    let mut y: Vec<f64> = w[start..].to_vec();
+    let mut cols: Vec<Vec<f64>> = Vec::new();
+    let mut slots: Vec<(usize, usize)> = Vec::new();
+    for &(f, i, lagv) in &ar_lags {
+        let col: Vec<f64> = (start..n).map(|t| w[t - lagv]).collect();
+        match bp.held_value(crate::spec::same_kind(FACTORS[f], i + 1)) {
+            Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
+            None => {
+                cols.push(col);
+                slots.push((f, i));
+            }
+        }
+    }
+    for &(f, i, lagv) in &ma_lags {
+        let col: Vec<f64> = (start..n).map(|t| ehat[t - lagv]).collect();
+        match bp.held_value(crate::spec::same_kind(FACTORS[f], i + 1)) {
+            Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
+            None => {
+                cols.push(col);
+                slots.push((f, i));
+            }
+        }
+    }
+    if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
+        for (b, &(f, i)) in beta.iter().zip(&slots) {
+            if b.is_finite() {
+                out.f[f][i] = *b;
+            }
+        }
+    }
+    for (f, coefs) in out.f.iter_mut().enumerate() {
+        let held_all: Vec<Option<f64>> = (1..=coefs.len())
+            .map(|i| bp.held_value(crate::spec::same_kind(FACTORS[f], i)))
+            .collect();
+        for (c, h) in coefs.iter_mut().zip(&held_all) {
+            if let Some(v) = h {
+                *c = *v;
+            }
+        }
+        let is_ma = f % 2 == 1;
+        let as_ar: Vec<f64> = coefs.iter().map(|v| if is_ma { -v } else { *v }).collect();
+        let inside = lag::pull_inside(&as_ar, 0.95);
+        let pulled: Vec<f64> = inside.iter().map(|v| if is_ma { -v } else { *v }).collect();
+        // Keep held values exactly; if pulling changed them, fall back to the held set.
+        if held_all.iter().all(|h| h.is_none()) {
+            *coefs = pulled;
+        }
+    }
+    out
+}
+
+/// Numerical Hessian of `−log L` (total) over the free natural ARMA coefficients and
+/// the profiled regression coefficients, at `c`, `beta`. Central differences with steps
+/// `1e-4·max(|z|, scale)`, shrunk if a step leaves the admissible region.
+pub(crate) fn hessian(
+    prep: &Prepared,
+    bp: &Blueprint,
+    layout: &Layout,
+    kind: ObjectiveKind,
+    ws: &mut EvalWorkspace,
+    c: &Coefs,
+    beta: &[f64],
+) -> Option<Vec<f64>> {
+    let z_arma = layout.natural_free(c);
+    let na = z_arma.len();
+    let nb = beta.len();
+    let k = na + nb;
+    if k == 0 {
+        return Some(Vec::new());
+    }
+    let mut z: Vec<f64> = z_arma.clone();
+    z.extend_from_slice(beta);
+    let mut out = Evaluation::default();
+    let mut f = |zz: &[f64], ws: &mut EvalWorkspace| -> Option<f64> {
+        let cc = layout.with_natural_free(c, &zz[..na]);
+        for (fi, coefs) in cc.f.iter().enumerate() {
+            let sign = if fi % 2 == 1 { -1.0 } else { 1.0 };
+            let mut a = Vec::new();
+            let mut b = Vec::new();
+            if !admissible_with(coefs, sign, &mut a, &mut b) {
+                return None;
+            }
+        }
+        ws.evaluate(prep, bp, &cc, kind, Some(&zz[na..]), &mut out)
+            .ok()?;
+        Some(out.neg_log_likelihood)
+    };
+    let f0 = f(&z, ws)?;
+    let mut h = vec![0.0; k];
+    for i in 0..k {
+        let scale = if i < na { 1.0 } else { prep.scale.max(1e-300) };
+        let mut hi = 1e-4 * z[i].abs().max(scale * if i < na { 0.1 } else { 1.0 });
+        // Shrink until both ±h steps are admissible.
+        for _ in 0..30 {
+            let mut zp = z.clone();
+            zp[i] += hi;
+            let mut zm = z.clone();
+            zm[i] -= hi;
+            if f(&zp, ws).is_some() && f(&zm, ws).is_some() {
+                break;
+            }
+            hi *= 0.5;
+        }
+        h[i] = hi;
+    }
+    let mut hess = vec![0.0; k * k];
+    for i in 0..k {
+        let mut zp = z.clone();
+        zp[i] += h[i];
+        let mut zm = z.clone();
+        zm[i] -= h[i];
+        let (fp, fm) = (f(&zp, ws)?, f(&zm, ws)?);
+        hess[i * k + i] = (fp - 2.0 * f0 + fm) / (h[i] * h[i]);
+        for j in 0..i {
+            let mut zz = z.clone();
+            zz[i] += h[i];
+            zz[j] += h[j];
+            let fpp = f(&zz, ws)?;
+            zz[j] -= 2.0 * h[j];
+            let fpm = f(&zz, ws)?;
+            zz[i] -= 2.0 * h[i];
+            let fmm = f(&zz, ws)?;
+            zz[j] += 2.0 * h[j];
+            let fmp = f(&zz, ws)?;
+            let v = (fpp - fpm - fmp + fmm) / (4.0 * h[i] * h[j]);
+            hess[i * k + j] = v;
+            hess[j * k + i] = v;
+        }
+    }
+    Some(hess)
+}
+
+/// Coordinates for the optimiser from natural coefficients (None if inadmissible).
+pub(crate) fn coordinates(layout: &Layout, c: &Coefs) -> Option<Vec<f64>> {
+    layout.coordinates(c)
+}
+
+/// Natural coefficients from optimiser coordinates.
+pub(crate) fn natural(layout: &Layout, x: &[f64], ws: &mut EvalWorkspace) -> Option<Coefs> {
+    let mut c = Coefs::default();
+    let ok = layout.natural(x, &mut c, &mut ws.kappa, &mut ws.tmp);
+    ok.then_some(c)
+}
+
+/// Expanded (φ, θ) of natural coefficients.
+#[allow(dead_code)] // used by forecasting (next)
+pub(crate) fn expanded(c: &Coefs, period: usize) -> (Vec<f64>, Vec<f64>) {
+    let mut phi = Vec::new();
+    let mut theta = Vec::new();
+    expand_into(&c.f[0], &c.f[2], period, false, &mut phi);
+    expand_into(&c.f[1], &c.f[3], period, true, &mut theta);
+    (phi, theta)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn expansion_matches_polynomial_product() {
+        let mut out = Vec::new();
+        expand_into(&[0.5, -0.2], &[0.3], 4, false, &mut out);
+        assert_eq!(out, lag::expand_autoregressive(&[0.5, -0.2], &[0.3], 4));
+        expand_into(&[0.4], &[0.6, 0.1], 3, true, &mut out);
+        let want = lag::expand_moving_average(&[0.4], &[0.6, 0.1], 3);
+        for (a, b) in out.iter().zip(&want) {
+            assert!((a - b).abs() < 1e-15);
+        }
+    }
+
+    #[test]
+    fn differencing_lengths() {
+        let x: Vec<f64> = (0..30).map(|t| (t * t) as f64).collect();
+        let w = difference(&x, 2, 0, 1);
+        assert_eq!(w.len(), 28);
+        assert!(w.iter().all(|v| (*v - 2.0).abs() < 1e-12));
+        let w = difference(&x, 1, 1, 12);
+        assert_eq!(w.len(), 17);
+        assert!(difference(&x[..5], 0, 1, 12).is_empty());
+    }
+}

@@ -1,0 +1,670 @@
+//! Fitting a [`Blueprint`] to a series, and the [`FittedModel`] that explains itself.
+
+use std::cell::RefCell;
+use std::fmt;
+
+use serde::{Deserialize, Serialize};
+
+use crate::correlogram::{BandRule, Correlogram, CorrelogramScratch};
+use crate::criteria::InformationCriteria;
+use crate::error::{Error, Result};
+use crate::estimate::{self, Coefs, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
+use crate::lag::{self, Complex};
+use crate::linalg;
+use crate::spec::{Blueprint, Estimator, Term};
+use crate::whiteness::PortmanteauScan;
+
+/// Modulus of an inverse root above which a fit carries a near-unit-root warning
+/// (common practice: roots within about 2% of the unit circle).
+pub const NEAR_UNIT_MODULUS: f64 = 0.98;
+
+/// A reusable workspace for fitting: create one per worker thread and pass it to
+/// [`Blueprint::fit_with`]; it grows to the largest shape and length seen and is then
+/// reused without allocating per likelihood evaluation.
+#[derive(Debug, Default, Clone)]
+pub struct FitWorkspace {
+    inner: EvalWorkspace,
+}
+
+impl FitWorkspace {
+    /// An empty workspace; it sizes itself on first use.
+    pub fn new() -> Self {
+        Self::default()
+    }
+}
+
+/// The kind of log-likelihood a fit reports.
+#[non_exhaustive]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub enum LogLikelihood {
+    /// Exact Gaussian log-likelihood of the differenced series (Kalman filter).
+    Exact(f64),
+    /// Conditional log-likelihood of a conditional-sum-of-squares fit; partial, so not
+    /// comparable across models and not used for information criteria.
+    Conditional(f64),
+}
+
+impl LogLikelihood {
+    /// The value, whatever its kind.
+    pub fn value(&self) -> f64 {
+        match *self {
+            LogLikelihood::Exact(v) | LogLikelihood::Conditional(v) => v,
+        }
+    }
+    /// Whether it is the exact likelihood.
+    pub fn is_exact(&self) -> bool {
+        matches!(self, LogLikelihood::Exact(_))
+    }
+}
+
+/// One estimated or held coefficient.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct CoefficientEstimate {
+    /// Which coefficient.
+    pub term: Term,
+    /// Its value.
+    pub value: f64,
+    /// Standard error from the inverse Hessian; `None` if held or unavailable.
+    pub std_error: Option<f64>,
+    /// Whether the value was held (not estimated).
+    pub held: bool,
+}
+
+/// How the readings were used.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct ReadingCounts {
+    /// Length of the series passed to `fit`.
+    pub total: usize,
+    /// Missing (NaN) readings in it.
+    pub missing: usize,
+    /// Readings consumed by differencing (`d + D·s`).
+    pub lost_to_differencing: usize,
+    /// Differenced readings conditioned on (CSS only: `p + P·s`).
+    pub conditioned_on: usize,
+    /// Readings entering the (log-)likelihood.
+    pub in_likelihood: usize,
+}
+
+/// Inverse roots of one polynomial factor.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct FactorRoots {
+    /// The factor (`Term::Ar(0)` = non-seasonal AR, `Term::SeasonalMa(0)` = seasonal MA, …).
+    pub factor: Term,
+    /// Inverse roots of the factor in its own variable (`B` or `B^s`), largest first.
+    pub inverse_roots: Vec<Complex>,
+}
+
+impl FactorRoots {
+    /// Largest modulus (0 for an empty factor).
+    pub fn largest_modulus(&self) -> f64 {
+        self.inverse_roots.first().map_or(0.0, |z| z.modulus())
+    }
+}
+
+/// Something the caller should know about a fit that is not an error.
+#[non_exhaustive]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub enum FitWarning {
+    /// An inverse root lies close to the unit circle: near non-stationarity (AR) or
+    /// near non-invertibility (MA); consider differencing or a simpler model.
+    NearUnitRoot {
+        /// The factor.
+        factor: Term,
+        /// Modulus of its largest inverse root.
+        modulus: f64,
+    },
+    /// An optimisation stage stopped without meeting its convergence criterion.
+    NotConverged {
+        /// Why it stopped.
+        reason: estimate::StopReason,
+    },
+    /// The Hessian was not positive definite: standard errors are unavailable.
+    NoStandardErrors,
+}
+
+impl fmt::Display for FitWarning {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            FitWarning::NearUnitRoot { factor, modulus } => write!(
+                f,
+                "{} factor has an inverse root of modulus {modulus:.4}, near the unit circle",
+                factor_label(*factor)
+            ),
+            FitWarning::NotConverged { reason } => {
+                write!(f, "optimiser did not converge ({reason})")
+            }
+            FitWarning::NoStandardErrors => {
+                f.write_str("Hessian not positive definite: no standard errors")
+            }
+        }
+    }
+}
+
+fn factor_label(t: Term) -> &'static str {
+    match t {
+        Term::Ar(_) => "AR",
+        Term::Ma(_) => "MA",
+        Term::SeasonalAr(_) => "seasonal AR",
+        Term::SeasonalMa(_) => "seasonal MA",
+        Term::Mean | Term::Drift => "regression",
+    }
+}
+
+/// A fitted model: estimates, uncertainty, likelihood, residuals and diagnostics.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct FittedModel {
+    pub(crate) blueprint: Blueprint,
+    pub(crate) coefficients: Vec<CoefficientEstimate>,
+    pub(crate) covariance_terms: Vec<Term>,
+    pub(crate) covariance: Option<Vec<f64>>,
+    pub(crate) innovation_variance: f64,
+    pub(crate) log_likelihood: LogLikelihood,
+    pub(crate) counts: ReadingCounts,
+    pub(crate) stages: Vec<StageRecord>,
+    pub(crate) residuals: Vec<f64>,
+    pub(crate) standardized: Vec<f64>,
+    pub(crate) roots: Vec<FactorRoots>,
+    pub(crate) warnings: Vec<FitWarning>,
+    pub(crate) data_fingerprint: u64,
+}
+
+impl Blueprint {
+    /// Fit this model to `series` (NaN = missing reading).
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, Simulator, Term};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let x = Simulator::builder().autoregressive(&[0.6]).moving_average(&[0.3])
+    ///     .level(88.0).build()?.generate(2000, 7);
+    /// let fit = Blueprint::builder().nonseasonal(1, 0, 1).build()?.fit(&x)?;
+    /// let phi = fit.coefficient(Term::Ar(1)).unwrap();
+    /// assert!((phi.value - 0.6).abs() < 4.0 * phi.std_error.unwrap());
+    /// assert!(fit.criteria().is_ok()); // exact likelihood: criteria offered
+    /// # Ok(()) }
+    /// ```
+    pub fn fit(&self, series: &[f64]) -> Result<FittedModel> {
+        self.fit_with(series, &mut FitWorkspace::new())
+    }
+
+    /// [`Blueprint::fit`] on a caller-held workspace (no allocation per likelihood
+    /// evaluation once the workspace has grown).
+    pub fn fit_with(&self, series: &[f64], workspace: &mut FitWorkspace) -> Result<FittedModel> {
+        let prep = estimate::prepare(self, series)?;
+        let layout = Layout::new(self);
+        let cell = RefCell::new(std::mem::take(&mut workspace.inner));
+        let result = fit_prepared(self, series, &prep, &layout, &cell);
+        workspace.inner = cell.into_inner();
+        result
+    }
+}
+
+fn fit_prepared(
+    bp: &Blueprint,
+    series: &[f64],
+    prep: &estimate::Prepared,
+    layout: &Layout,
+    cell: &RefCell<EvalWorkspace>,
+) -> Result<FittedModel> {
+    let start = estimate::starting_values(prep, bp);
+    let x0 = estimate::coordinates(layout, &start).unwrap_or_else(|| vec![0.0; layout.free_len]);
+    let mut stages = Vec::new();
+    let (x, kind) = match bp.estimator {
+        Estimator::ConditionalSumOfSquares => {
+            let (x, rec) =
+                estimate::minimise(prep, bp, layout, ObjectiveKind::Conditional, cell, x0)?;
+            stages.push(rec);
+            (x, ObjectiveKind::Conditional)
+        }
+        Estimator::ExactLikelihood => {
+            let (x, rec) = estimate::minimise(prep, bp, layout, ObjectiveKind::Exact, cell, x0)?;
+            stages.push(rec);
+            (x, ObjectiveKind::Exact)
+        }
+        Estimator::StagedLikelihood => {
+            let (x1, rec1) = estimate::minimise(
+                prep,
+                bp,
+                layout,
+                ObjectiveKind::Conditional,
+                cell,
+                x0.clone(),
+            )?;
+            stages.push(rec1);
+            // If the CSS solution is not usable for the exact objective, restart from
+            // the Hannan–Rissanen values.
+            let (x, rec) =
+                match estimate::minimise(prep, bp, layout, ObjectiveKind::Exact, cell, x1) {
+                    Ok(v) => v,
+                    Err(_) => estimate::minimise(prep, bp, layout, ObjectiveKind::Exact, cell, x0)?,
+                };
+            stages.push(rec);
+            (x, ObjectiveKind::Exact)
+        }
+    };
+    let mut ws = cell.borrow_mut();
+    let coefs = estimate::natural(layout, &x, &mut ws).ok_or_else(|| {
+        Error::numerical("fit", "the optimiser ended outside the admissible region")
+    })?;
+    let mut ev = Evaluation::default();
+    ws.evaluate(prep, bp, &coefs, kind, None, &mut ev)?;
+    let beta = ev.beta.clone();
+    let n = prep.n;
+    let k = prep.ncols;
+    let loss = bp.differencing_loss();
+    // Residuals on the original time axis.
+    let mut residuals = vec![f64::NAN; prep.original_len];
+    let mut standardized = vec![f64::NAN; prep.original_len];
+    let sd = ev.innovation_variance.sqrt();
+    let (innov, fvar): (&[f64], Option<&[f64]>) = match kind {
+        ObjectiveKind::Exact => (&ws.kalman.innov, Some(&ws.kalman.fvar)),
+        ObjectiveKind::Conditional => (&ws.css_innov, None),
+    };
+    let cond = match kind {
+        ObjectiveKind::Conditional => bp.expanded_degrees().0.min(n),
+        ObjectiveKind::Exact => 0,
+    };
+    for t in cond..n {
+        if prep.data[t].is_nan() {
+            continue;
+        }
+        let mut v = innov[t];
+        for c in 1..k {
+            v -= (beta[c - 1] - prep.beta_offset[c - 1]) * innov[c * n + t];
+        }
+        let f = fvar.map_or(1.0, |fv| fv[t]);
+        residuals[t + loss] = v;
+        standardized[t + loss] = v / (sd * f.sqrt());
+    }
+    // Covariance from the Hessian of −log L over free ARMA and profiled regression terms.
+    let mut warnings = Vec::new();
+    let hess = estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs, &beta);
+    drop(ws);
+    let mut covariance_terms = layout.free_terms();
+    covariance_terms.extend(prep.profiled.iter().copied());
+    let kk = covariance_terms.len();
+    let covariance = hess.and_then(|h| linalg::invert_spd(&h, kk));
+    if covariance.is_none() && kk > 0 {
+        warnings.push(FitWarning::NoStandardErrors);
+    }
+    let se_of = |term: Term| -> Option<f64> {
+        let i = covariance_terms.iter().position(|t| *t == term)?;
+        let v = covariance.as_ref()?[i * kk + i];
+        (v > 0.0).then(|| v.sqrt())
+    };
+    let mut coefficients = Vec::new();
+    for term in bp.terms() {
+        let held = bp.held_value(term);
+        let value = match term {
+            Term::Ar(i) => coefs.f[0][i - 1],
+            Term::Ma(i) => coefs.f[1][i - 1],
+            Term::SeasonalAr(i) => coefs.f[2][i - 1],
+            Term::SeasonalMa(i) => coefs.f[3][i - 1],
+            Term::Mean | Term::Drift => match held {
+                Some(v) => v,
+                None => prep
+                    .profiled
+                    .iter()
+                    .position(|t| *t == term)
+                    .map_or(f64::NAN, |i| beta[i]),
+            },
+        };
+        coefficients.push(CoefficientEstimate {
+            term,
+            value,
+            std_error: if held.is_some() { None } else { se_of(term) },
+            held: held.is_some(),
+        });
+    }
+    // Roots per factor.
+    let mut roots = Vec::new();
+    for (fi, factor) in estimate::FACTORS.iter().enumerate() {
+        let c = &coefs.f[fi];
+        if c.is_empty() {
+            continue;
+        }
+        let poly: Vec<f64> = if fi % 2 == 0 {
+            c.iter().map(|v| -v).collect()
+        } else {
+            c.clone()
+        };
+        let inverse_roots = lag::inverse_roots(&poly)?;
+        let fr = FactorRoots {
+            factor: *factor,
+            inverse_roots,
+        };
+        let m = fr.largest_modulus();
+        if m > NEAR_UNIT_MODULUS {
+            warnings.push(FitWarning::NearUnitRoot {
+                factor: *factor,
+                modulus: m,
+            });
+        }
+        roots.push(fr);
+    }
+    for st in &stages {
+        if !st.converged() {
+            warnings.push(FitWarning::NotConverged { reason: st.reason });
+        }
+    }
+    let log_likelihood = match kind {
+        ObjectiveKind::Exact => LogLikelihood::Exact(-ev.neg_log_likelihood),
+        ObjectiveKind::Conditional => LogLikelihood::Conditional(-ev.neg_log_likelihood),
+    };
+    Ok(FittedModel {
+        blueprint: bp.clone(),
+        coefficients,
+        covariance_terms,
+        covariance,
+        innovation_variance: ev.innovation_variance,
+        log_likelihood,
+        counts: ReadingCounts {
+            total: prep.original_len,
+            missing: prep.missing_original,
+            lost_to_differencing: loss.min(prep.original_len),
+            conditioned_on: cond,
+            in_likelihood: ev.used,
+        },
+        stages,
+        residuals,
+        standardized,
+        roots,
+        warnings,
+        data_fingerprint: fingerprint(series),
+    })
+}
+
+/// FNV-1a over the bit patterns of the readings (NaN canonicalised).
+pub(crate) fn fingerprint(series: &[f64]) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    for v in series {
+        let bits = if v.is_nan() {
+            f64::NAN.to_bits()
+        } else {
+            v.to_bits()
+        };
+        for b in bits.to_le_bytes() {
+            h ^= b as u64;
+            h = h.wrapping_mul(0x0100_0000_01b3);
+        }
+    }
+    h ^ (series.len() as u64)
+}
+
+/// The residual check bundle: correlogram of the residuals with bands, and Ljung–Box /
+/// Box–Pierce scans with degrees of freedom reduced by the estimated ARMA coefficients.
+#[derive(Debug, Clone, PartialEq)]
+#[non_exhaustive]
+pub struct ResidualCheck {
+    /// Correlogram (ACF and PACF) of the residuals.
+    pub correlogram: Correlogram,
+    /// 95% white-noise band half-width per lag (index 0 = lag 1).
+    pub band: Vec<f64>,
+    /// Portmanteau statistics for lags 1..=H.
+    pub portmanteau: PortmanteauScan,
+    /// Significance level used for `white`.
+    pub alpha: f64,
+    /// Whether no Ljung–Box p-value over the scanned lags is below `alpha`.
+    pub white: bool,
+}
+
+impl FittedModel {
+    /// The blueprint that was fitted.
+    pub fn blueprint(&self) -> &Blueprint {
+        &self.blueprint
+    }
+    /// Every coefficient (estimated and held), canonical order.
+    pub fn coefficients(&self) -> &[CoefficientEstimate] {
+        &self.coefficients
+    }
+    /// One coefficient by term.
+    pub fn coefficient(&self, term: Term) -> Option<&CoefficientEstimate> {
+        self.coefficients.iter().find(|c| c.term == term)
+    }
+    /// Covariance matrix (row-major) of the estimated coefficients, in the order of
+    /// [`FittedModel::covariance_terms`]; `None` if the Hessian was not positive definite.
+    pub fn covariance(&self) -> Option<&[f64]> {
+        self.covariance.as_deref()
+    }
+    /// Terms indexing [`FittedModel::covariance`].
+    pub fn covariance_terms(&self) -> &[Term] {
+        &self.covariance_terms
+    }
+    /// Estimated innovation variance σ² (ML: sum of squares / readings in likelihood).
+    pub fn innovation_variance(&self) -> f64 {
+        self.innovation_variance
+    }
+    /// The log-likelihood, typed as exact or conditional.
+    pub fn log_likelihood(&self) -> LogLikelihood {
+        self.log_likelihood
+    }
+    /// Number of estimated parameters `k` for criteria (σ² included; held excluded).
+    pub fn estimated_parameters(&self) -> usize {
+        self.coefficients.iter().filter(|c| !c.held).count() + 1
+    }
+    /// AIC, AICc, BIC, HQIC — only for exact-likelihood fits; a CSS fit returns an error
+    /// that says why.
+    pub fn criteria(&self) -> Result<InformationCriteria> {
+        match self.log_likelihood {
+            LogLikelihood::Exact(ll) => InformationCriteria::from_log_likelihood(
+                ll,
+                self.estimated_parameters(),
+                self.counts.in_likelihood,
+            ),
+            LogLikelihood::Conditional(_) => Err(Error::invalid(
+                "information criteria",
+                "a conditional-sum-of-squares fit has only a partial (conditional) likelihood; \
+                 refit with the exact or staged estimator to compare models by criteria",
+            )),
+        }
+    }
+    /// How the readings were used.
+    pub fn reading_counts(&self) -> ReadingCounts {
+        self.counts
+    }
+    /// Optimisation stages (CSS, exact, or both), in order.
+    pub fn stages(&self) -> &[StageRecord] {
+        &self.stages
+    }
+    /// Whether every optimisation stage converged.
+    pub fn converged(&self) -> bool {
+        self.stages.iter().all(|s| s.converged())
+    }
+    /// One-step innovations on the original time axis (NaN where missing, lost to
+    /// differencing, or conditioned on).
+    pub fn residuals(&self) -> &[f64] {
+        &self.residuals
+    }
+    /// Residuals divided by their standard deviation `σ·√F_t`.
+    pub fn standardized_residuals(&self) -> &[f64] {
+        &self.standardized
+    }
+    /// Inverse roots per polynomial factor.
+    pub fn roots(&self) -> &[FactorRoots] {
+        &self.roots
+    }
+    /// Warnings (near unit roots, non-convergence, missing standard errors).
+    pub fn warnings(&self) -> &[FitWarning] {
+        &self.warnings
+    }
+
+    /// The default number of lags for the residual check (common practice): `2s` for a
+    /// seasonal model, otherwise 10; never more than a fifth of the residuals and at
+    /// least one more than the estimated ARMA coefficients.
+    pub fn default_check_lags(&self) -> usize {
+        let n = self.counts.in_likelihood;
+        let s = self.blueprint.period;
+        let base = if s > 1 { 2 * s } else { 10 };
+        let k = self.blueprint.estimated_arma_coefficients();
+        base.min(n / 5).max(k + 1).min(n.saturating_sub(1)).max(1)
+    }
+
+    /// The residual check bundle over lags `1..=max_lag` at level `alpha` (e.g. 0.05).
+    pub fn residual_check(&self, max_lag: usize, alpha: f64) -> Result<ResidualCheck> {
+        if !(alpha > 0.0 && alpha < 1.0) {
+            return Err(Error::invalid(
+                "residual check",
+                format!("alpha {alpha} must be in (0, 1)"),
+            ));
+        }
+        let mut scratch = CorrelogramScratch::new();
+        let cg = Correlogram::compute_with(&self.residuals, max_lag, &mut scratch)?;
+        let band = cg.bands(1.0 - alpha, BandRule::WhiteNoise)?;
+        let portmanteau = PortmanteauScan::from_correlogram(
+            &cg,
+            max_lag,
+            self.blueprint.estimated_arma_coefficients(),
+        )?;
+        let white = portmanteau.ljung_box_rejections(alpha).is_empty();
+        Ok(ResidualCheck {
+            correlogram: cg,
+            band,
+            portmanteau,
+            alpha,
+            white,
+        })
+    }
+
+    /// Fingerprint of the data the model was fitted to (used to refuse comparisons of
+    /// models fitted to different data).
+    pub fn data_fingerprint(&self) -> u64 {
+        self.data_fingerprint
+    }
+
+    /// Natural coefficients by factor (crate-internal).
+    #[allow(dead_code)] // used by forecasting (next)
+    pub(crate) fn factor_coefficients(&self) -> Coefs {
+        let mut c = Coefs::default();
+        for e in &self.coefficients {
+            match e.term {
+                Term::Ar(_) => c.f[0].push(e.value),
+                Term::Ma(_) => c.f[1].push(e.value),
+                Term::SeasonalAr(_) => c.f[2].push(e.value),
+                Term::SeasonalMa(_) => c.f[3].push(e.value),
+                _ => {}
+            }
+        }
+        c
+    }
+}
+
+impl fmt::Display for FittedModel {
+    /// A report in lagwise's own layout.
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let bp = &self.blueprint;
+        writeln!(f, "== {} · {}", bp.shape_label(), bp.estimator())?;
+        let c = self.counts;
+        writeln!(
+            f,
+            "   readings {} · missing {} · lost to differencing {} · conditioned on {} · in likelihood {}",
+            c.total, c.missing, c.lost_to_differencing, c.conditioned_on, c.in_likelihood
+        )?;
+        writeln!(
+            f,
+            "   {:<20} {:>12} {:>11} {:>9}",
+            "term", "value", "± s.e.", "ratio"
+        )?;
+        for e in &self.coefficients {
+            match (e.held, e.std_error) {
+                (true, _) => writeln!(
+                    f,
+                    "   {:<20} {:>12.6} {:>11} {:>9}",
+                    e.term.to_string(),
+                    e.value,
+                    "held",
+                    ""
+                )?,
+                (false, Some(se)) => writeln!(
+                    f,
+                    "   {:<20} {:>12.6} {:>11.6} {:>9.2}",
+                    e.term.to_string(),
+                    e.value,
+                    se,
+                    e.value / se
+                )?,
+                (false, None) => writeln!(
+                    f,
+                    "   {:<20} {:>12.6} {:>11} {:>9}",
+                    e.term.to_string(),
+                    e.value,
+                    "n/a",
+                    ""
+                )?,
+            }
+        }
+        writeln!(
+            f,
+            "   innovation variance {:.6} (sd {:.6})",
+            self.innovation_variance,
+            self.innovation_variance.sqrt()
+        )?;
+        match self.log_likelihood {
+            LogLikelihood::Exact(ll) => {
+                write!(f, "   log-likelihood (exact) {ll:.4}")?;
+                if let Ok(ic) = self.criteria() {
+                    write!(
+                        f,
+                        " · k = {} · AIC {:.3} · BIC {:.3}",
+                        ic.parameters, ic.aic, ic.bic
+                    )?;
+                    if let Some(a) = ic.aicc {
+                        write!(f, " · AICc {a:.3}")?;
+                    }
+                }
+                writeln!(f)?;
+            }
+            LogLikelihood::Conditional(ll) => writeln!(
+                f,
+                "   log-likelihood (conditional) {ll:.4} · no information criteria for a conditional fit"
+            )?,
+        }
+        for st in &self.stages {
+            writeln!(
+                f,
+                "   {} stage: {} after {} iterations, {} evaluations, gradient norm {:.2e}",
+                if st.exact { "exact" } else { "CSS" },
+                st.reason,
+                st.iterations,
+                st.evaluations,
+                st.gradient_norm
+            )?;
+        }
+        for r in &self.roots {
+            let mods: Vec<String> = r
+                .inverse_roots
+                .iter()
+                .map(|z| format!("{:.3}", z.modulus()))
+                .collect();
+            writeln!(
+                f,
+                "   inverse roots, {}: |z| = {}",
+                factor_label(r.factor),
+                mods.join(", ")
+            )?;
+        }
+        if let Ok(check) = self.residual_check(self.default_check_lags(), 0.05) {
+            let p = check.portmanteau.smallest_ljung_box_p_value();
+            match p {
+                Some((lag, p)) => writeln!(
+                    f,
+                    "   residuals over lags 1..{}: smallest Ljung–Box p = {:.4} at lag {} → {}",
+                    check.portmanteau.rows().len(),
+                    p,
+                    lag,
+                    if check.white {
+                        "white at 5%"
+                    } else {
+                        "NOT white at 5%"
+                    }
+                )?,
+                None => writeln!(f, "   residuals: too few lags for a portmanteau test")?,
+            }
+        }
+        for w in &self.warnings {
+            writeln!(f, "   ! {w}")?;
+        }
+        Ok(())
+    }
+}
