@@ -299,6 +299,29 @@ impl Layout {
         ok
     }
 
+    /// Fill natural coefficients from raw free values (held entries from the blueprint).
+    /// `false` if inadmissible. Allocation-free once `out` has grown.
+    pub(crate) fn natural_raw(&self, z: &[f64], out: &mut Coefs, ws: &mut EvalWorkspace) -> bool {
+        let mut j = 0;
+        let mut ok = true;
+        for (k, fl) in self.factors.iter().enumerate() {
+            let c = &mut out.f[k];
+            c.clear();
+            for i in 0..fl.len {
+                c.push(match fl.held[i] {
+                    Some(v) => v,
+                    None => {
+                        j += 1;
+                        z[j - 1]
+                    }
+                });
+            }
+            let sign = if fl.is_ma { -1.0 } else { 1.0 };
+            ok &= admissible_with(c, sign, &mut ws.kappa, &mut ws.tmp);
+        }
+        ok
+    }
+
     /// Optimiser coordinates from natural coefficients (which must be admissible).
     fn coordinates(&self, c: &Coefs) -> Option<Vec<f64>> {
         let mut x = vec![0.0; self.free_len];
@@ -435,6 +458,8 @@ pub(crate) struct EvalWorkspace {
     tmp: Vec<f64>,
     fill: Vec<f64>,
     pub css_innov: Vec<f64>,
+    pub scratch_coefs: Coefs,
+    pub scratch_eval: Evaluation,
 }
 
 /// Result of one objective evaluation.
@@ -611,8 +636,41 @@ impl EvalWorkspace {
                     }
                     v[t] = w[t] - pred;
                 }
-                direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
+                if k != 2 {
+                    direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
+                }
             }
+        }
+        if k == 2 && !prep.has_missing {
+            // Both columns through one loop (independent chains overlap).
+            let guarded_end = (cond.max(max_ma)).min(n);
+            let paired = crate::kalman::direct_recursion_pair(
+                &prep.data[..2 * n],
+                &mut self.css_innov[..2 * n],
+                n,
+                guarded_end,
+                n,
+                &self.ar_nz,
+                &self.ma_nz,
+            );
+            if !paired {
+                for c in 0..2 {
+                    let w = &prep.data[c * n..(c + 1) * n];
+                    let v = &mut self.css_innov[c * n..(c + 1) * n];
+                    direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
+                }
+            }
+        }
+        if !prep.has_missing {
+            for i in 0..k {
+                for j in i..k {
+                    self.cross[i * k + j] += crate::kalman::segment_dot(
+                        &self.css_innov[i * n + cond..(i + 1) * n],
+                        &self.css_innov[j * n + cond..(j + 1) * n],
+                    );
+                }
+            }
+            return n - cond;
         }
         let mut used = 0;
         for t in cond..n {
@@ -750,6 +808,47 @@ impl Objective<'_> {
     }
 }
 
+impl Objective<'_> {
+    /// Inverse of a central-difference Hessian of the objective at `x`, if positive
+    /// definite.
+    fn inverse_hessian_at(&self, x: &[f64]) -> Option<Vec<Vec<f64>>> {
+        let k = x.len();
+        let f0 = self.value(x);
+        let h: Vec<f64> = x.iter().map(|v| 1e-4 * v.abs().max(1.0)).collect();
+        let mut hess = vec![0.0; k * k];
+        let mut z = x.to_vec();
+        for i in 0..k {
+            z[i] = x[i] + h[i];
+            let fp = self.value(&z);
+            z[i] = x[i] - h[i];
+            let fm = self.value(&z);
+            z[i] = x[i];
+            hess[i * k + i] = (fp - 2.0 * f0 + fm) / (h[i] * h[i]);
+            for j in 0..i {
+                z[i] = x[i] + h[i];
+                z[j] = x[j] + h[j];
+                let fpp = self.value(&z);
+                z[j] = x[j] - h[j];
+                let fpm = self.value(&z);
+                z[i] = x[i] - h[i];
+                let fmm = self.value(&z);
+                z[j] = x[j] + h[j];
+                let fmp = self.value(&z);
+                z[i] = x[i];
+                z[j] = x[j];
+                let v = (fpp - fpm - fmp + fmm) / (4.0 * h[i] * h[j]);
+                hess[i * k + j] = v;
+                hess[j * k + i] = v;
+            }
+        }
+        if hess.iter().any(|v| !v.is_finite() || v.abs() >= 1e29) {
+            return None;
+        }
+        let inv = linalg::invert_spd(&hess, k)?;
+        Some((0..k).map(|i| inv[i * k..(i + 1) * k].to_vec()).collect())
+    }
+}
+
 impl CostFunction for Objective<'_> {
     type Param = Vec<f64>;
     type Output = f64;
@@ -766,6 +865,9 @@ impl Gradient for Objective<'_> {
     }
 }
 
+/// Best coordinates, the stage record, and the final quasi-Newton inverse Hessian.
+pub(crate) type StageOutcome = (Vec<f64>, StageRecord, Option<Vec<Vec<f64>>>);
+
 /// Minimise the objective from coordinates `x0`. Returns the best coordinates and record.
 pub(crate) fn minimise(
     prep: &Prepared,
@@ -774,7 +876,8 @@ pub(crate) fn minimise(
     kind: ObjectiveKind,
     ws: &RefCell<EvalWorkspace>,
     x0: Vec<f64>,
-) -> Result<(Vec<f64>, StageRecord)> {
+    inv_hessian0: Option<Vec<Vec<f64>>>,
+) -> Result<StageOutcome> {
     let evals = Cell::new(0);
     let best = RefCell::new((f64::INFINITY, x0.clone()));
     let eval_out = RefCell::new(Evaluation::default());
@@ -805,6 +908,7 @@ pub(crate) fn minimise(
                 gradient_norm: 0.0,
                 reason: StopReason::NothingToEstimate,
             },
+            None,
         ));
     }
     let k = layout.free_len;
@@ -816,6 +920,13 @@ pub(crate) fn minimise(
     // usually one or two objective values. A BFGS update can lose positive definiteness
     // with numerical gradients; the run is then restarted from the best point with a
     // fresh inverse Hessian (at most three restarts).
+    // Without a carried curvature, start BFGS from the inverse of a finite-difference
+    // Hessian at the starting point when that is cheap (k ≤ 6: 2k² + 1 evaluations);
+    // ARMA objectives are often ill-conditioned and an identity start wastes iterations.
+    let inv_hessian0 =
+        inv_hessian0.or_else(|| (k <= 6).then(|| obj.inverse_hessian_at(&x0)).flatten());
+    let mut carried = inv_hessian0.filter(|h| h.len() == k);
+    let mut last_inv_hessian = None;
     for _restart in 0..4 {
         let start = best.borrow().1.clone();
         let remaining = max_iter.saturating_sub(iterations);
@@ -823,10 +934,13 @@ pub(crate) fn minimise(
             reason = StopReason::IterationCap;
             break;
         }
-        let mut inv_h = vec![vec![0.0; k]; k];
-        for (i, row) in inv_h.iter_mut().enumerate() {
-            row[i] = 1.0;
-        }
+        let inv_h = carried.take().unwrap_or_else(|| {
+            let mut h = vec![vec![0.0; k]; k];
+            for (i, row) in h.iter_mut().enumerate() {
+                row[i] = 1.0;
+            }
+            h
+        });
         let line = ArmijoCondition::new(1e-4)
             .map(BacktrackingLineSearch::new)
             .and_then(|l| l.rho(0.5));
@@ -847,6 +961,7 @@ pub(crate) fn minimise(
             Ok(res) => {
                 let st = res.state();
                 iterations += st.get_iter() as usize;
+                last_inv_hessian = st.get_inv_hessian().cloned();
                 match st.get_termination_status() {
                     TerminationStatus::Terminated(TerminationReason::MaxItersReached)
                     | TerminationStatus::NotTerminated => {
@@ -889,6 +1004,7 @@ pub(crate) fn minimise(
             gradient_norm,
             reason,
         },
+        last_inv_hessian,
     ))
 }
 

@@ -213,35 +213,32 @@ fn fit_prepared(
     let mut stages = Vec::new();
     let (x, kind) = match bp.estimator {
         Estimator::ConditionalSumOfSquares => {
-            let (x, rec) =
-                estimate::minimise(prep, bp, layout, ObjectiveKind::Conditional, cell, x0)?;
+            let kind = ObjectiveKind::Conditional;
+            let (x, rec, _) = estimate::minimise(prep, bp, layout, kind, cell, x0, None)?;
             stages.push(rec);
-            (x, ObjectiveKind::Conditional)
+            (x, kind)
         }
         Estimator::ExactLikelihood => {
-            let (x, rec) = estimate::minimise(prep, bp, layout, ObjectiveKind::Exact, cell, x0)?;
+            let kind = ObjectiveKind::Exact;
+            let (x, rec, _) = estimate::minimise(prep, bp, layout, kind, cell, x0, None)?;
             stages.push(rec);
-            (x, ObjectiveKind::Exact)
+            (x, kind)
         }
         Estimator::StagedLikelihood => {
-            let (x1, rec1) = estimate::minimise(
-                prep,
-                bp,
-                layout,
-                ObjectiveKind::Conditional,
-                cell,
-                x0.clone(),
-            )?;
+            let css = ObjectiveKind::Conditional;
+            let (x1, rec1, inv_h) =
+                estimate::minimise(prep, bp, layout, css, cell, x0.clone(), None)?;
             stages.push(rec1);
-            // If the CSS solution is not usable for the exact objective, restart from
-            // the Hannan–Rissanen values.
-            let (x, rec) =
-                match estimate::minimise(prep, bp, layout, ObjectiveKind::Exact, cell, x1) {
-                    Ok(v) => v,
-                    Err(_) => estimate::minimise(prep, bp, layout, ObjectiveKind::Exact, cell, x0)?,
-                };
+            // The CSS curvature is a good first guess of the exact one: hand the
+            // quasi-Newton inverse Hessian over. If the CSS solution is not usable for
+            // the exact objective, restart from the Hannan–Rissanen values.
+            let kind = ObjectiveKind::Exact;
+            let (x, rec, _) = match estimate::minimise(prep, bp, layout, kind, cell, x1, inv_h) {
+                Ok(v) => v,
+                Err(_) => estimate::minimise(prep, bp, layout, kind, cell, x0, None)?,
+            };
             stages.push(rec);
-            (x, ObjectiveKind::Exact)
+            (x, kind)
         }
     };
     let mut ws = cell.borrow_mut();
@@ -666,5 +663,105 @@ impl fmt::Display for FittedModel {
             writeln!(f, "   ! {w}")?;
         }
         Ok(())
+    }
+}
+
+/// The likelihood of one blueprint over one series, as a function of the ARMA
+/// coefficients: the expert layer under [`Blueprint::fit`], for profile-likelihood scans,
+/// custom optimisers and benchmarks.
+///
+/// Regression terms (mean, drift) are profiled out by GLS and σ² is concentrated out, as
+/// in the estimators. Evaluations with a [`FitWorkspace`] allocate nothing once the
+/// workspace has grown to the model's shape.
+///
+/// ```
+/// use lagwise::{Blueprint, FitWorkspace, Simulator};
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let x = Simulator::builder().autoregressive(&[0.5]).build()?.generate(300, 2);
+/// let bp = Blueprint::builder().nonseasonal(1, 0, 0).build()?;
+/// let surface = bp.likelihood_surface(&x)?;
+/// let mut ws = FitWorkspace::new();
+/// let at_half = surface.exact_log_likelihood_with(&[0.5], &mut ws)?;
+/// let at_zero = surface.exact_log_likelihood_with(&[0.0], &mut ws)?;
+/// assert!(at_half > at_zero);
+/// # Ok(()) }
+/// ```
+#[derive(Debug, Clone)]
+pub struct LikelihoodSurface {
+    blueprint: Blueprint,
+    prep: estimate::Prepared,
+    layout: Layout,
+}
+
+impl Blueprint {
+    /// Prepare the likelihood surface of this blueprint over `series` (differencing and
+    /// screening done once).
+    pub fn likelihood_surface(&self, series: &[f64]) -> Result<LikelihoodSurface> {
+        Ok(LikelihoodSurface {
+            blueprint: self.clone(),
+            prep: estimate::prepare(self, series)?,
+            layout: Layout::new(self),
+        })
+    }
+}
+
+impl LikelihoodSurface {
+    /// Number of free ARMA coefficients expected by the evaluation methods (canonical
+    /// order φ, θ, Φ, Θ, skipping held ones).
+    pub fn free_coefficients(&self) -> usize {
+        self.layout.free_len
+    }
+
+    /// Readings entering the exact likelihood.
+    pub fn readings(&self) -> usize {
+        self.prep.data[..self.prep.n]
+            .iter()
+            .filter(|v| !v.is_nan())
+            .count()
+    }
+
+    fn eval(&self, arma: &[f64], ws: &mut FitWorkspace, kind: ObjectiveKind) -> Result<f64> {
+        if arma.len() != self.layout.free_len {
+            return Err(Error::invalid(
+                "likelihood surface",
+                format!(
+                    "{} coefficients given, {} expected",
+                    arma.len(),
+                    self.layout.free_len
+                ),
+            ));
+        }
+        let inner = &mut ws.inner;
+        let mut coefs = std::mem::take(&mut inner.scratch_coefs);
+        let ok = self.layout.natural_raw(arma, &mut coefs, inner);
+        let result = if ok {
+            let mut ev = std::mem::take(&mut inner.scratch_eval);
+            let r = inner.evaluate(&self.prep, &self.blueprint, &coefs, kind, None, &mut ev);
+            let ll = -ev.neg_log_likelihood;
+            inner.scratch_eval = ev;
+            r.map(|()| ll)
+        } else {
+            Err(Error::invalid(
+                "likelihood surface",
+                "the coefficients are not stationary/invertible",
+            ))
+        };
+        inner.scratch_coefs = coefs;
+        result
+    }
+
+    /// Exact log-likelihood (σ² concentrated, regression profiled) at the free ARMA
+    /// coefficients `arma`.
+    pub fn exact_log_likelihood_with(&self, arma: &[f64], ws: &mut FitWorkspace) -> Result<f64> {
+        self.eval(arma, ws, ObjectiveKind::Exact)
+    }
+
+    /// Conditional (CSS) log-likelihood at the free ARMA coefficients `arma`.
+    pub fn conditional_log_likelihood_with(
+        &self,
+        arma: &[f64],
+        ws: &mut FitWorkspace,
+    ) -> Result<f64> {
+        self.eval(arma, ws, ObjectiveKind::Conditional)
     }
 }

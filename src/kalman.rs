@@ -109,7 +109,7 @@ impl KalmanWorkspace {
                 .map(|(i, v)| (i + 1, *v)),
         );
         resize(&mut self.p, r * r);
-        resize(&mut self.pn, r * r);
+        resize(&mut self.pn, (r + 1) * (r + 1));
         resize(&mut self.kcol, r);
         resize(&mut self.tmp, r);
         self.stationary_covariance(p, q)
@@ -369,14 +369,33 @@ impl KalmanWorkspace {
                     while end < n && !data[end].is_nan() {
                         end += 1;
                     }
-                    for c in 0..ncols {
-                        let w = &data[c * n..(c + 1) * n];
-                        let v = &mut self.innov[c * n..(c + 1) * n];
-                        direct_recursion(w, v, start, end, &self.ar_nz, &self.ma_nz);
+                    let paired = ncols == 2
+                        && direct_recursion_pair(
+                            &data[..2 * n],
+                            &mut self.innov[..2 * n],
+                            n,
+                            start,
+                            end,
+                            &self.ar_nz,
+                            &self.ma_nz,
+                        );
+                    if !paired {
+                        for c in 0..ncols {
+                            let w = &data[c * n..(c + 1) * n];
+                            let v = &mut self.innov[c * n..(c + 1) * n];
+                            direct_recursion(w, v, start, end, &self.ar_nz, &self.ma_nz);
+                        }
                     }
-                    for s in start..end {
-                        self.fvar[s] = 1.0;
-                        accumulate_cross(&self.innov, n, s, ncols, 1.0, cross);
+                    for f in &mut self.fvar[start..end] {
+                        *f = 1.0;
+                    }
+                    for i in 0..ncols {
+                        for j in i..ncols {
+                            cross[i * ncols + j] += segment_dot(
+                                &self.innov[i * n + start..i * n + end],
+                                &self.innov[j * n + start..j * n + end],
+                            );
+                        }
                     }
                     totals.used += end - start;
                     t = end;
@@ -424,48 +443,51 @@ impl KalmanWorkspace {
     /// Returns the trace of the updated covariance `P⁺` (zero once the state is known).
     fn predict_covariance_after_update(&mut self, f: f64) -> f64 {
         let r = self.r;
+        let s = r + 1;
         let mut trace = 0.0;
-        // M = P − P[:,0] P[0,:] / F, written into pn.
+        // M = P − P[:,0] P[0,:] / F into the padded (r+1)×(r+1) buffer `pn` whose last
+        // row and column stay zero, so the transform below needs no branches.
         for i in 0..r {
             let ki = self.p[i] / f;
-            for j in i..r {
-                let v = self.p[i * r + j] - ki * self.p[j];
-                self.pn[i * r + j] = v;
-                self.pn[j * r + i] = v;
+            let (prow, mrow) = (&self.p[i * r..(i + 1) * r], &mut self.pn[i * s..i * s + r]);
+            for ((m, &pv), &p0) in mrow.iter_mut().zip(prow).zip(&self.p[..r]) {
+                *m = pv - ki * p0;
             }
-            trace += self.pn[i * r + i];
+            trace += self.pn[i * s + i];
         }
         self.companion_transform();
         trace
     }
 
     fn predict_covariance_no_update(&mut self) {
-        let (p, pn) = (&self.p, &mut self.pn);
-        pn.copy_from_slice(p);
+        let r = self.r;
+        let s = r + 1;
+        for i in 0..r {
+            let (src, dst) = (&self.p[i * r..(i + 1) * r], &mut self.pn[i * s..i * s + r]);
+            dst.copy_from_slice(src);
+        }
         self.companion_transform();
     }
 
-    /// p ← T pn Tᵀ + RRᵀ (pn holds M).
+    /// p ← T M Tᵀ + RRᵀ with M in the padded buffer `pn` (row stride r+1, zero border):
+    /// `P[i][j] = φ_iφ_j M00 + R_iR_j + φ_i M[0][j+1] + φ_j M[0][i+1] + M[i+1][j+1]`.
     fn companion_transform(&mut self) {
         let r = self.r;
-        let m = &self.pn;
-        let m00 = m[0];
+        let s = r + 1;
+        let m00 = self.pn[0];
+        let (phi, rv) = (&self.phi[..r], &self.rvec[..r]);
+        let m0 = &self.pn[1..s]; // M[0][j+1], j = 0..r (last is the zero border)
         for i in 0..r {
-            let fi = self.phi[i];
-            for j in i..r {
-                let fj = self.phi[j];
-                let mut v = fi * fj * m00 + self.rvec[i] * self.rvec[j];
-                if j + 1 < r {
-                    v += fi * m[j + 1];
-                }
-                if i + 1 < r {
-                    v += fj * m[i + 1];
-                    if j + 1 < r {
-                        v += m[(i + 1) * r + j + 1];
-                    }
-                }
-                self.p[i * r + j] = v;
-                self.p[j * r + i] = v;
+            let fi = phi[i];
+            let ri = rv[i];
+            let mi = self.pn[i + 1]; // M[0][i+1] (zero for i = r−1)
+            let below = &self.pn[(i + 1) * s + 1..(i + 1) * s + 1 + r]; // M[i+1][j+1]
+            let row = &mut self.p[i * r..(i + 1) * r];
+            let a = fi * m00;
+            for ((((out, &pj), &rj), &m0j), &bj) in
+                row.iter_mut().zip(phi).zip(rv).zip(m0).zip(below)
+            {
+                *out = a * pj + ri * rj + fi * m0j + pj * mi + bj;
             }
         }
     }
@@ -512,6 +534,10 @@ enum Phase {
 }
 
 /// `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` for `t` in `start..end` (all lags in range).
+///
+/// Dense small shapes (non-zero lags exactly `1..=p` and `1..=q`, `p, q ≤ 3`) run a
+/// specialised kernel that keeps the MA history in registers so that only `θ₁v_{t−1}`
+/// is on the loop-carried path; everything else walks the sparse coefficient lists.
 #[inline]
 pub(crate) fn direct_recursion(
     w: &[f64],
@@ -521,7 +547,44 @@ pub(crate) fn direct_recursion(
     ar_nz: &[(usize, f64)],
     ma_nz: &[(usize, f64)],
 ) {
-    // Small fixed shapes get unrolled loops; the general case walks the sparse lists.
+    let dense = |nz: &[(usize, f64)]| nz.iter().enumerate().all(|(k, e)| e.0 == k + 1);
+    if start >= end {
+        return;
+    }
+    if dense(ar_nz) && dense(ma_nz) && ar_nz.len() <= 3 && ma_nz.len() <= 3 {
+        let mut phi = [0.0; 3];
+        let mut theta = [0.0; 3];
+        for (k, e) in ar_nz.iter().enumerate() {
+            phi[k] = e.1;
+        }
+        for (k, e) in ma_nz.iter().enumerate() {
+            theta[k] = e.1;
+        }
+        macro_rules! go {
+            ($p:literal, $q:literal) => {
+                dense_kernel::<$p, $q>(w, v, start, end, &phi, &theta)
+            };
+        }
+        match (ar_nz.len(), ma_nz.len()) {
+            (0, 0) => go!(0, 0),
+            (0, 1) => go!(0, 1),
+            (0, 2) => go!(0, 2),
+            (0, 3) => go!(0, 3),
+            (1, 0) => go!(1, 0),
+            (1, 1) => go!(1, 1),
+            (1, 2) => go!(1, 2),
+            (1, 3) => go!(1, 3),
+            (2, 0) => go!(2, 0),
+            (2, 1) => go!(2, 1),
+            (2, 2) => go!(2, 2),
+            (2, 3) => go!(2, 3),
+            (3, 0) => go!(3, 0),
+            (3, 1) => go!(3, 1),
+            (3, 2) => go!(3, 2),
+            _ => go!(3, 3),
+        }
+        return;
+    }
     for t in start..end {
         let mut pred = 0.0;
         for &(i, c) in ar_nz {
@@ -533,6 +596,164 @@ pub(crate) fn direct_recursion(
         }
         v[t] = (w[t] - pred) - ma;
     }
+}
+
+/// The dense kernel behind [`direct_recursion`]; requires `start ≥ max(P, Q)`.
+#[inline(always)]
+fn dense_kernel<const P: usize, const Q: usize>(
+    w: &[f64],
+    v: &mut [f64],
+    start: usize,
+    end: usize,
+    phi: &[f64; 3],
+    theta: &[f64; 3],
+) {
+    let mut hist = [0.0f64; 3];
+    for j in 0..Q {
+        hist[j] = v[start - 1 - j];
+    }
+    let w = &w[..end];
+    let v = &mut v[..end];
+    for t in start..end {
+        let mut x = w[t];
+        for i in 0..P {
+            x -= phi[i] * w[t - 1 - i];
+        }
+        for j in 1..Q {
+            x -= theta[j] * hist[j];
+        }
+        let e = if Q > 0 { x - theta[0] * hist[0] } else { x };
+        if Q > 0 {
+            for j in (1..Q).rev() {
+                hist[j] = hist[j - 1];
+            }
+            hist[0] = e;
+        }
+        v[t] = e;
+    }
+}
+
+/// Two columns through the dense kernel in one loop: the two recursions are
+/// independent, so their dependency chains overlap (a regression column rides along
+/// with the series at almost no extra latency). `w` and `v` hold both columns
+/// (`n` each, column-major). Returns `false` if the shape is not dense-small.
+pub(crate) fn direct_recursion_pair(
+    w: &[f64],
+    v: &mut [f64],
+    n: usize,
+    start: usize,
+    end: usize,
+    ar_nz: &[(usize, f64)],
+    ma_nz: &[(usize, f64)],
+) -> bool {
+    let dense = |nz: &[(usize, f64)]| nz.iter().enumerate().all(|(k, e)| e.0 == k + 1);
+    if !(dense(ar_nz) && dense(ma_nz) && ar_nz.len() <= 3 && ma_nz.len() <= 3) {
+        return false;
+    }
+    if start >= end {
+        return true;
+    }
+    let mut phi = [0.0; 3];
+    let mut theta = [0.0; 3];
+    for (k, e) in ar_nz.iter().enumerate() {
+        phi[k] = e.1;
+    }
+    for (k, e) in ma_nz.iter().enumerate() {
+        theta[k] = e.1;
+    }
+    let (w0, w1) = w.split_at(n);
+    let (v0, v1) = v.split_at_mut(n);
+    macro_rules! go {
+        ($p:literal, $q:literal) => {
+            pair_kernel::<$p, $q>([w0, &w1[..n]], [v0, &mut v1[..n]], start, end, &phi, &theta)
+        };
+    }
+    match (ar_nz.len(), ma_nz.len()) {
+        (0, 0) => go!(0, 0),
+        (0, 1) => go!(0, 1),
+        (0, 2) => go!(0, 2),
+        (0, 3) => go!(0, 3),
+        (1, 0) => go!(1, 0),
+        (1, 1) => go!(1, 1),
+        (1, 2) => go!(1, 2),
+        (1, 3) => go!(1, 3),
+        (2, 0) => go!(2, 0),
+        (2, 1) => go!(2, 1),
+        (2, 2) => go!(2, 2),
+        (2, 3) => go!(2, 3),
+        (3, 0) => go!(3, 0),
+        (3, 1) => go!(3, 1),
+        (3, 2) => go!(3, 2),
+        _ => go!(3, 3),
+    }
+    true
+}
+
+#[inline(always)]
+fn pair_kernel<const P: usize, const Q: usize>(
+    w: [&[f64]; 2],
+    v: [&mut [f64]; 2],
+    start: usize,
+    end: usize,
+    phi: &[f64; 3],
+    theta: &[f64; 3],
+) {
+    let [v0, v1] = v;
+    let mut h0 = [0.0f64; 3];
+    let mut h1 = [0.0f64; 3];
+    for j in 0..Q {
+        h0[j] = v0[start - 1 - j];
+        h1[j] = v1[start - 1 - j];
+    }
+    let (w0, w1) = (&w[0][..end], &w[1][..end]);
+    let (v0, v1) = (&mut v0[..end], &mut v1[..end]);
+    for t in start..end {
+        let mut x0 = w0[t];
+        let mut x1 = w1[t];
+        for i in 0..P {
+            x0 -= phi[i] * w0[t - 1 - i];
+            x1 -= phi[i] * w1[t - 1 - i];
+        }
+        for j in 1..Q {
+            x0 -= theta[j] * h0[j];
+            x1 -= theta[j] * h1[j];
+        }
+        let (e0, e1) = if Q > 0 {
+            (x0 - theta[0] * h0[0], x1 - theta[0] * h1[0])
+        } else {
+            (x0, x1)
+        };
+        if Q > 0 {
+            for j in (1..Q).rev() {
+                h0[j] = h0[j - 1];
+                h1[j] = h1[j - 1];
+            }
+            h0[0] = e0;
+            h1[0] = e1;
+        }
+        v0[t] = e0;
+        v1[t] = e1;
+    }
+}
+
+/// Σ a_t b_t over `start..end`, four lanes.
+#[inline]
+pub(crate) fn segment_dot(a: &[f64], b: &[f64]) -> f64 {
+    let mut acc = [0.0f64; 4];
+    let ca = a.chunks_exact(4);
+    let cb = b.chunks_exact(4);
+    let tail: f64 = ca
+        .remainder()
+        .iter()
+        .zip(cb.remainder())
+        .map(|(x, y)| x * y)
+        .sum();
+    for (x, y) in ca.zip(cb) {
+        for k in 0..4 {
+            acc[k] += x[k] * y[k];
+        }
+    }
+    (acc[0] + acc[2]) + (acc[1] + acc[3]) + tail
 }
 
 #[inline]
@@ -611,6 +832,41 @@ pub fn exact_log_likelihood(
         * (n * (2.0 * std::f64::consts::PI * innovation_variance).ln()
             + totals.log_det
             + cross[0] / innovation_variance))
+}
+
+/// Exact log-likelihood with the steady-state switch disabled (every step runs the
+/// full covariance update). For benchmarks and tests that compare the two phases; not
+/// part of the stable API.
+#[doc(hidden)]
+pub fn full_phase_log_likelihood(phi: &[f64], theta: &[f64], series: &[f64]) -> Result<f64> {
+    let mut ws = KalmanWorkspace::default();
+    ws.set_model(phi, theta)?;
+    let r = ws.r;
+    let mut a = vec![0.0; r];
+    let (mut ld, mut ss, mut m) = (0.0, 0.0, 0usize);
+    for &x in series {
+        let f = ws.p[0];
+        if x.is_nan() {
+            ws.predict_covariance_no_update();
+        } else {
+            let v = x - a[0];
+            ld += f.ln();
+            ss += v * v / f;
+            m += 1;
+            for i in 0..r {
+                a[i] += ws.p[i] / f * v;
+            }
+            let _ = ws.predict_covariance_after_update(f);
+        }
+        let a0 = a[0];
+        for i in 0..r - 1 {
+            a[i] = ws.phi[i] * a0 + a[i + 1];
+        }
+        a[r - 1] = ws.phi[r - 1] * a0;
+    }
+    let n = m as f64;
+    let s2 = ss / n;
+    Ok(-0.5 * (n * (2.0 * std::f64::consts::PI * s2).ln() + n + ld))
 }
 
 #[cfg(test)]

@@ -101,8 +101,8 @@ pub use criteria::{Criterion, InformationCriteria};
 pub use error::{Error, ErrorKind, Result};
 pub use estimate::{StageRecord, StopReason};
 pub use fitted::{
-    CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LogLikelihood,
-    ReadingCounts, ResidualCheck,
+    CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
+    LogLikelihood, ReadingCounts, ResidualCheck,
 };
 pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};

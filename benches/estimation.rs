@@ -1,0 +1,214 @@
+//! Likelihood evaluation and whole fits.
+//!
+//! Run: `cargo bench --bench estimation`. Each likelihood group reports ns per reading
+//! (criterion throughput) for the exact likelihood (steady-state switch on), the same
+//! filter with the switch disabled ("full"), the CSS objective, and a floor kernel: the
+//! bare innovations recursion with the same dependency chain, measured in the same run.
+
+use std::hint::black_box;
+
+use criterion::{BenchmarkId, Criterion, Throughput, criterion_group, criterion_main};
+use lagwise::{Blueprint, Estimator, FitWorkspace, Simulator};
+
+struct Case {
+    name: &'static str,
+    ar: Vec<f64>,
+    ma: Vec<f64>,
+    sma: Vec<f64>,
+    period: usize,
+    seasonal_d: usize,
+    n: usize,
+}
+
+fn cases() -> Vec<Case> {
+    vec![
+        Case {
+            name: "arma11",
+            ar: vec![0.6],
+            ma: vec![0.3],
+            sma: vec![],
+            period: 1,
+            seasonal_d: 0,
+            n: 1000,
+        },
+        Case {
+            name: "arma21",
+            ar: vec![0.5, 0.2],
+            ma: vec![0.4],
+            sma: vec![],
+            period: 1,
+            seasonal_d: 0,
+            n: 1000,
+        },
+        Case {
+            name: "arma32",
+            ar: vec![0.4, 0.2, -0.1],
+            ma: vec![0.3, 0.2],
+            sma: vec![],
+            period: 1,
+            seasonal_d: 0,
+            n: 1000,
+        },
+        Case {
+            name: "sarima101_011_96",
+            ar: vec![0.6],
+            ma: vec![0.2],
+            sma: vec![-0.5],
+            period: 96,
+            seasonal_d: 1,
+            n: 10_000,
+        },
+    ]
+}
+
+/// The floor: `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` over non-zero terms, with the
+/// MA(1) term kept in a register (only θ₁v_{t−1} on the loop-carried path).
+fn floor_kernel(w: &[f64], v: &mut [f64], ar: &[(usize, f64)], ma: &[(usize, f64)]) -> f64 {
+    let start = ar.iter().chain(ma).map(|e| e.0).max().unwrap_or(0);
+    let (first, rest) = ma
+        .split_first()
+        .map_or(((1, 0.0), &[][..]), |(f, r)| (*f, r));
+    let mut prev = 0.0;
+    let mut ss = 0.0;
+    for t in start..w.len() {
+        let mut x = w[t];
+        for &(i, c) in ar {
+            x -= c * w[t - i];
+        }
+        for &(j, c) in rest {
+            x -= c * v[t - j];
+        }
+        let e = x - first.1 * prev;
+        v[t] = e;
+        prev = e;
+        ss += e * e;
+    }
+    ss
+}
+
+fn likelihood(c: &mut Criterion) {
+    let mut group = c.benchmark_group("loglik");
+    group.sample_size(30);
+    for case in cases() {
+        let sim = Simulator::builder()
+            .autoregressive(&case.ar)
+            .moving_average(&case.ma)
+            .seasonal(&[], &case.sma, case.period)
+            .differencing(0, case.seasonal_d)
+            .build()
+            .expect("simulator");
+        let x = sim.generate(case.n, 5);
+        let bp = Blueprint::builder()
+            .nonseasonal(case.ar.len(), 0, case.ma.len())
+            .periodic(0, case.seasonal_d, case.sma.len(), case.period)
+            .mean_term(case.seasonal_d == 0)
+            .build()
+            .expect("blueprint");
+        let surface = bp.likelihood_surface(&x).expect("surface");
+        let mut coefs = case.ar.clone();
+        coefs.extend(&case.ma);
+        coefs.extend(&case.sma);
+        let mut ws = FitWorkspace::new();
+        let n_eff = surface.readings();
+        group.throughput(Throughput::Elements(n_eff as u64));
+        group.bench_function(BenchmarkId::new("exact", case.name), |b| {
+            b.iter(|| {
+                surface
+                    .exact_log_likelihood_with(black_box(&coefs), &mut ws)
+                    .expect("ok")
+            })
+        });
+        group.bench_function(BenchmarkId::new("css", case.name), |b| {
+            b.iter(|| {
+                surface
+                    .conditional_log_likelihood_with(black_box(&coefs), &mut ws)
+                    .expect("ok")
+            })
+        });
+        // Full filter (no steady-state switch) on the differenced, demeaned series.
+        let w = lagwise_difference(&x, case.seasonal_d, case.period);
+        let phi = lagwise::lag::expand_autoregressive(&case.ar, &[], case.period);
+        let theta = lagwise::lag::expand_moving_average(&case.ma, &case.sma, case.period);
+        group.bench_function(BenchmarkId::new("full", case.name), |b| {
+            b.iter(|| {
+                lagwise::kalman::full_phase_log_likelihood(black_box(&phi), &theta, &w).expect("ok")
+            })
+        });
+        let ar_nz: Vec<(usize, f64)> = phi
+            .iter()
+            .enumerate()
+            .filter(|e| *e.1 != 0.0)
+            .map(|(i, v)| (i + 1, *v))
+            .collect();
+        let ma_nz: Vec<(usize, f64)> = theta
+            .iter()
+            .enumerate()
+            .filter(|e| *e.1 != 0.0)
+            .map(|(i, v)| (i + 1, *v))
+            .collect();
+        let mut v = vec![0.0; w.len()];
+        group.bench_function(BenchmarkId::new("floor", case.name), |b| {
+            b.iter(|| floor_kernel(black_box(&w), &mut v, &ar_nz, &ma_nz))
+        });
+    }
+    group.finish();
+}
+
+fn lagwise_difference(x: &[f64], seasonal_d: usize, period: usize) -> Vec<f64> {
+    let mut w = x.to_vec();
+    for _ in 0..seasonal_d {
+        w = (period..w.len()).map(|t| w[t] - w[t - period]).collect();
+    }
+    let m = w.iter().sum::<f64>() / w.len() as f64;
+    w.iter().map(|v| v - m).collect()
+}
+
+fn fits(c: &mut Criterion) {
+    let mut group = c.benchmark_group("fit");
+    group.sample_size(20);
+    let x = Simulator::builder()
+        .autoregressive(&[0.5, 0.2])
+        .moving_average(&[0.4])
+        .level(60.0)
+        .build()
+        .expect("simulator")
+        .generate(1000, 9);
+    for est in [
+        Estimator::ConditionalSumOfSquares,
+        Estimator::ExactLikelihood,
+        Estimator::StagedLikelihood,
+    ] {
+        let bp = Blueprint::builder()
+            .nonseasonal(2, 0, 1)
+            .estimator(est)
+            .build()
+            .expect("blueprint");
+        let mut ws = FitWorkspace::new();
+        group.bench_function(
+            BenchmarkId::new("arma21_mean_n1000", format!("{est:?}")),
+            |b| b.iter(|| bp.fit_with(black_box(&x), &mut ws).expect("fit")),
+        );
+    }
+    group.sample_size(10);
+    let y = Simulator::builder()
+        .autoregressive(&[0.6])
+        .moving_average(&[0.2])
+        .seasonal(&[], &[-0.5], 96)
+        .differencing(0, 1)
+        .build()
+        .expect("simulator")
+        .generate(10_000, 11);
+    let bp = Blueprint::builder()
+        .nonseasonal(1, 0, 1)
+        .periodic(0, 1, 1, 96)
+        .build()
+        .expect("blueprint");
+    let mut ws = FitWorkspace::new();
+    group.bench_function("sarima101_011_96_n10000_staged", |b| {
+        b.iter(|| bp.fit_with(black_box(&y), &mut ws).expect("fit"))
+    });
+    group.finish();
+}
+
+criterion_group!(benches, likelihood, fits);
+criterion_main!(benches);
