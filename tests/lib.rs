@@ -5,6 +5,7 @@
 
 mod common;
 mod correlogram_reference;
+mod estimation_checks;
 mod fit_corpus;
 mod fuzz_replay;
 mod likelihood_reference;
