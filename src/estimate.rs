@@ -74,16 +74,64 @@ pub(crate) fn difference(x: &[f64], d: usize, seasonal_d: usize, period: usize) 
 }
 
 /// Regression column of a term on the original time axis.
-fn regression_column(term: Term, len: usize) -> Vec<f64> {
+pub(crate) fn regression_column(term: Term, len: usize, regressors: &[&[f64]]) -> Vec<f64> {
     match term {
         Term::Drift => (0..len).map(|t| t as f64).collect(),
+        Term::Exogenous(i) => regressors[i - 1][..len].to_vec(),
         _ => vec![1.0; len],
     }
 }
 
+/// The regression terms of a blueprint, in column order.
+pub(crate) fn regression_terms(bp: &Blueprint) -> Vec<Term> {
+    bp.terms().into_iter().filter(|t| !t.is_arma()).collect()
+}
+
+/// Check regressor columns against the blueprint and the series length.
+pub(crate) fn check_regressors(
+    bp: &Blueprint,
+    len: usize,
+    regressors: &[&[f64]],
+    what: &'static str,
+) -> Result<()> {
+    if regressors.len() != bp.exogenous {
+        return Err(Error::invalid(
+            what,
+            format!(
+                "{} regressor columns given, the blueprint declares {}",
+                regressors.len(),
+                bp.exogenous
+            ),
+        ));
+    }
+    for (j, col) in regressors.iter().enumerate() {
+        if col.len() != len {
+            return Err(Error::new(ErrorKind::LengthMismatch {
+                what,
+                left_name: "series",
+                left: len,
+                right_name: "a regressor column",
+                right: col.len(),
+            }));
+        }
+        if let Some(index) = col.iter().position(|v| !v.is_finite()) {
+            return Err(Error::invalid(
+                what,
+                format!(
+                    "regressor column {} has {} at index {index}; regressors must be finite",
+                    j + 1,
+                    col[index]
+                ),
+            ));
+        }
+    }
+    Ok(())
+}
+
 /// Screen the series against the blueprint and build the differenced columns.
-pub(crate) fn prepare(bp: &Blueprint, series: &[f64]) -> Result<Prepared> {
+pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> Result<Prepared> {
     const WHAT: &str = "fit";
+    check_regressors(bp, series.len(), regressors, WHAT)?;
     let (p_exp, q_exp) = bp.expanded_degrees();
     let loss = bp.differencing_loss();
     let estimated = bp
@@ -101,17 +149,10 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64]) -> Result<Prepared> {
     }
     let mut y = series.to_vec();
     let mut profiled = Vec::new();
-    for term in [Term::Mean, Term::Drift] {
-        let present = match term {
-            Term::Mean => bp.has_mean(),
-            _ => bp.has_drift(),
-        };
-        if !present {
-            continue;
-        }
+    for term in regression_terms(bp) {
         match bp.held_value(term) {
             Some(v) => {
-                let col = regression_column(term, y.len());
+                let col = regression_column(term, y.len(), regressors);
                 for (yi, c) in y.iter_mut().zip(col) {
                     *yi -= v * c;
                 }
@@ -160,7 +201,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64]) -> Result<Prepared> {
     let mut data = Vec::with_capacity(ncols * n);
     data.extend_from_slice(&w);
     for &term in &profiled {
-        let col = regression_column(term, series.len());
+        let col = regression_column(term, series.len(), regressors);
         let dcol = difference(&col, bp.d, bp.seasonal_d, bp.period);
         data.extend(dcol);
     }
@@ -1164,9 +1205,9 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     out
 }
 
-/// Numerical Hessian of `−log L` (total) over the free natural ARMA coefficients and
-/// the profiled regression coefficients, at `c`, `beta`. Central differences with steps
-/// `1e-4·max(|z|, scale)`, shrunk if a step leaves the admissible region.
+/// Numerical Hessian of the profile `−log L` (total; regression profiled by GLS, σ²
+/// concentrated) over the free natural ARMA coefficients at `c`. Central differences
+/// with steps `1e-4·max(|z|, 0.1)`, halved while a step leaves the admissible region.
 pub(crate) fn hessian(
     prep: &Prepared,
     bp: &Blueprint,
@@ -1174,38 +1215,30 @@ pub(crate) fn hessian(
     kind: ObjectiveKind,
     ws: &mut EvalWorkspace,
     c: &Coefs,
-    beta: &[f64],
 ) -> Option<Vec<f64>> {
-    let z_arma = layout.natural_free(c);
-    let na = z_arma.len();
-    let nb = beta.len();
-    let k = na + nb;
+    let z = layout.natural_free(c);
+    let k = z.len();
     if k == 0 {
         return Some(Vec::new());
     }
-    let mut z: Vec<f64> = z_arma.clone();
-    z.extend_from_slice(beta);
     let mut out = Evaluation::default();
+    let mut a = Vec::new();
+    let mut b = Vec::new();
     let mut f = |zz: &[f64], ws: &mut EvalWorkspace| -> Option<f64> {
-        let cc = layout.with_natural_free(c, &zz[..na]);
+        let cc = layout.with_natural_free(c, zz);
         for (fi, coefs) in cc.f.iter().enumerate() {
             let sign = if fi % 2 == 1 { -1.0 } else { 1.0 };
-            let mut a = Vec::new();
-            let mut b = Vec::new();
             if !admissible_with(coefs, sign, &mut a, &mut b) {
                 return None;
             }
         }
-        ws.evaluate(prep, bp, &cc, kind, Some(&zz[na..]), &mut out)
-            .ok()?;
+        ws.evaluate(prep, bp, &cc, kind, None, &mut out).ok()?;
         Some(out.neg_log_likelihood)
     };
     let f0 = f(&z, ws)?;
     let mut h = vec![0.0; k];
     for i in 0..k {
-        let scale = if i < na { 1.0 } else { prep.scale.max(1e-300) };
-        let mut hi = 1e-4 * z[i].abs().max(scale * if i < na { 0.1 } else { 1.0 });
-        // Shrink until both ±h steps are admissible.
+        let mut hi = 1e-4 * z[i].abs().max(0.1);
         for _ in 0..30 {
             let mut zp = z.clone();
             zp[i] += hi;

@@ -149,7 +149,7 @@ fn factor_label(t: Term) -> &'static str {
         Term::Ma(_) => "MA",
         Term::SeasonalAr(_) => "seasonal AR",
         Term::SeasonalMa(_) => "seasonal MA",
-        Term::Mean | Term::Drift => "regression",
+        Term::Mean | Term::Drift | Term::Exogenous(_) => "regression",
     }
 }
 
@@ -192,10 +192,41 @@ impl Blueprint {
     /// [`Blueprint::fit`] on a caller-held workspace (no allocation per likelihood
     /// evaluation once the workspace has grown).
     pub fn fit_with(&self, series: &[f64], workspace: &mut FitWorkspace) -> Result<FittedModel> {
-        let prep = estimate::prepare(self, series)?;
+        self.fit_regression_with(series, &[], workspace)
+    }
+
+    /// Fit a regression with ARMA errors: `regressors` holds one column per exogenous
+    /// term declared with [`BlueprintBuilder::exogenous`](crate::BlueprintBuilder::exogenous),
+    /// each as long as `series` and finite.
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, Simulator, Term};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// // Return temperature driven by outdoor temperature, with AR(1) errors.
+    /// let outdoor: Vec<f64> = (0..600).map(|t| 5.0 + 4.0 * (t as f64 / 40.0).sin()).collect();
+    /// let noise = Simulator::builder().autoregressive(&[0.6]).innovation_sd(0.3).build()?.generate(600, 4);
+    /// let ret: Vec<f64> = outdoor.iter().zip(&noise).map(|(o, e)| 50.0 - 0.8 * o + e).collect();
+    /// let fit = Blueprint::builder().nonseasonal(1, 0, 0).exogenous(1).build()?
+    ///     .fit_regression(&ret, &[&outdoor])?;
+    /// let b = fit.coefficient(Term::Exogenous(1)).unwrap();
+    /// assert!((b.value + 0.8).abs() < 4.0 * b.std_error.unwrap());
+    /// # Ok(()) }
+    /// ```
+    pub fn fit_regression(&self, series: &[f64], regressors: &[&[f64]]) -> Result<FittedModel> {
+        self.fit_regression_with(series, regressors, &mut FitWorkspace::new())
+    }
+
+    /// [`Blueprint::fit_regression`] on a caller-held workspace.
+    pub fn fit_regression_with(
+        &self,
+        series: &[f64],
+        regressors: &[&[f64]],
+        workspace: &mut FitWorkspace,
+    ) -> Result<FittedModel> {
+        let prep = estimate::prepare(self, series, regressors)?;
         let layout = Layout::new(self);
         let cell = RefCell::new(std::mem::take(&mut workspace.inner));
-        let result = fit_prepared(self, series, &prep, &layout, &cell);
+        let result = fit_prepared(self, series, regressors, &prep, &layout, &cell);
         workspace.inner = cell.into_inner();
         result
     }
@@ -204,6 +235,7 @@ impl Blueprint {
 fn fit_prepared(
     bp: &Blueprint,
     series: &[f64],
+    regressors: &[&[f64]],
     prep: &estimate::Prepared,
     layout: &Layout,
     cell: &RefCell<EvalWorkspace>,
@@ -247,9 +279,47 @@ fn fit_prepared(
     })?;
     let mut ev = Evaluation::default();
     ws.evaluate(prep, bp, &coefs, kind, None, &mut ev)?;
-    let beta = ev.beta.clone();
     let n = prep.n;
     let k = prep.ncols;
+    let cond = match kind {
+        ObjectiveKind::Conditional => bp.expanded_degrees().0.min(n),
+        ObjectiveKind::Exact => 0,
+    };
+    // Regression coefficients: the final GLS solve by Householder QR on the filtered
+    // columns (weighted by 1/√F), which stays accurate on ill-conditioned designs where
+    // the normal equations used inside the optimiser lose digits. Their covariance is
+    // σ²(X̃ᵀΩ⁻¹X̃)⁻¹; the ARMA block comes from the Hessian of the profile likelihood
+    // (the two blocks are asymptotically independent).
+    let mut beta = ev.beta.clone();
+    let mut beta_cov: Option<Vec<f64>> = None;
+    if k > 1 {
+        let (innov, fvar): (&[f64], Option<&[f64]>) = match kind {
+            ObjectiveKind::Exact => (&ws.kalman.innov, Some(&ws.kalman.fvar)),
+            ObjectiveKind::Conditional => (&ws.css_innov, None),
+        };
+        let rows: Vec<usize> = (cond..n).filter(|&t| !prep.data[t].is_nan()).collect();
+        let wgt = |t: usize| fvar.map_or(1.0, |f| 1.0 / f[t].sqrt());
+        let y: Vec<f64> = rows.iter().map(|&t| innov[t] * wgt(t)).collect();
+        let cols: Vec<Vec<f64>> = (1..k)
+            .map(|c| rows.iter().map(|&t| innov[c * n + t] * wgt(t)).collect())
+            .collect();
+        if let Some((delta, factor)) = linalg::least_squares(&cols, &y) {
+            let resid_ss: f64 = rows
+                .iter()
+                .enumerate()
+                .map(|(i, _)| {
+                    let fit: f64 = (0..k - 1).map(|c| delta[c] * cols[c][i]).sum();
+                    (y[i] - fit).powi(2)
+                })
+                .sum();
+            let s2 = resid_ss / rows.len().max(1) as f64;
+            for (b, (d, o)) in beta.iter_mut().zip(delta.iter().zip(&prep.beta_offset)) {
+                *b = o + d;
+            }
+            ev.innovation_variance = s2;
+            beta_cov = Some(factor.iter().map(|v| v * s2).collect());
+        }
+    }
     let loss = bp.differencing_loss();
     // Residuals on the original time axis.
     let mut residuals = vec![f64::NAN; prep.original_len];
@@ -258,10 +328,6 @@ fn fit_prepared(
     let (innov, fvar): (&[f64], Option<&[f64]>) = match kind {
         ObjectiveKind::Exact => (&ws.kalman.innov, Some(&ws.kalman.fvar)),
         ObjectiveKind::Conditional => (&ws.css_innov, None),
-    };
-    let cond = match kind {
-        ObjectiveKind::Conditional => bp.expanded_degrees().0.min(n),
-        ObjectiveKind::Exact => 0,
     };
     for t in cond..n {
         if prep.data[t].is_nan() {
@@ -277,12 +343,34 @@ fn fit_prepared(
     }
     // Covariance from the Hessian of −log L over free ARMA and profiled regression terms.
     let mut warnings = Vec::new();
-    let hess = estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs, &beta);
+    let hess = estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs);
     drop(ws);
-    let mut covariance_terms = layout.free_terms();
+    let arma_terms = layout.free_terms();
+    let na = arma_terms.len();
+    let arma_cov = if na == 0 {
+        Some(Vec::new())
+    } else {
+        hess.and_then(|h| linalg::invert_spd(&h, na))
+    };
+    let mut covariance_terms = arma_terms;
     covariance_terms.extend(prep.profiled.iter().copied());
     let kk = covariance_terms.len();
-    let covariance = hess.and_then(|h| linalg::invert_spd(&h, kk));
+    let nb = kk - na;
+    let covariance = match (arma_cov, nb) {
+        (Some(a), 0) => Some(a),
+        (Some(a), _) => beta_cov.map(|b| {
+            let mut full = vec![0.0; kk * kk];
+            for i in 0..na {
+                full[i * kk..i * kk + na].copy_from_slice(&a[i * na..(i + 1) * na]);
+            }
+            for i in 0..nb {
+                full[(na + i) * kk + na..(na + i) * kk + kk]
+                    .copy_from_slice(&b[i * nb..(i + 1) * nb]);
+            }
+            full
+        }),
+        (None, _) => None,
+    };
     if covariance.is_none() && kk > 0 {
         warnings.push(FitWarning::NoStandardErrors);
     }
@@ -299,7 +387,7 @@ fn fit_prepared(
             Term::Ma(i) => coefs.f[1][i - 1],
             Term::SeasonalAr(i) => coefs.f[2][i - 1],
             Term::SeasonalMa(i) => coefs.f[3][i - 1],
-            Term::Mean | Term::Drift => match held {
+            Term::Mean | Term::Drift | Term::Exogenous(_) => match held {
                 Some(v) => v,
                 None => prep
                     .profiled
@@ -699,7 +787,7 @@ impl Blueprint {
     pub fn likelihood_surface(&self, series: &[f64]) -> Result<LikelihoodSurface> {
         Ok(LikelihoodSurface {
             blueprint: self.clone(),
-            prep: estimate::prepare(self, series)?,
+            prep: estimate::prepare(self, series, &[])?,
             layout: Layout::new(self),
         })
     }

@@ -31,6 +31,19 @@ pub enum Term {
     Mean,
     /// Drift: mean change per reading of a once-differenced series.
     Drift,
+    /// Coefficient of the `i`-th exogenous regressor column (1-based), e.g. outdoor
+    /// temperature driving return temperature.
+    Exogenous(usize),
+}
+
+impl Term {
+    /// Whether this is an ARMA coefficient (φ, θ, Φ, Θ) rather than a regression one.
+    pub fn is_arma(&self) -> bool {
+        matches!(
+            self,
+            Term::Ar(_) | Term::Ma(_) | Term::SeasonalAr(_) | Term::SeasonalMa(_)
+        )
+    }
 }
 
 impl std::fmt::Display for Term {
@@ -42,6 +55,7 @@ impl std::fmt::Display for Term {
             Term::SeasonalMa(i) => write!(f, "seasonal_theta.{i}"),
             Term::Mean => f.write_str("mean"),
             Term::Drift => f.write_str("drift"),
+            Term::Exogenous(i) => write!(f, "regressor.{i}"),
         }
     }
 }
@@ -106,6 +120,7 @@ pub struct Blueprint {
     pub(crate) period: usize,
     pub(crate) mean: bool,
     pub(crate) drift: bool,
+    pub(crate) exogenous: usize,
     pub(crate) held: Vec<(Term, f64)>,
     pub(crate) estimator: Estimator,
     pub(crate) tolerance: f64,
@@ -119,6 +134,7 @@ pub struct BlueprintBuilder {
     seasonal: (usize, usize, usize, usize),
     mean: Option<bool>,
     drift: Option<bool>,
+    exogenous: usize,
     held: Vec<(Term, f64)>,
     estimator: Estimator,
     tolerance: Option<f64>,
@@ -144,6 +160,13 @@ impl BlueprintBuilder {
     /// Include an estimated drift (default: no; allowed only when `d + D = 1`).
     pub fn drift_term(&mut self, yes: bool) -> &mut Self {
         self.drift = Some(yes);
+        self
+    }
+    /// Number of exogenous regressor columns (default 0). Regression with ARMA errors:
+    /// the columns are passed to [`Blueprint::fit_regression`], differenced like the
+    /// series, and their coefficients estimated by GLS inside the likelihood.
+    pub fn exogenous(&mut self, columns: usize) -> &mut Self {
+        self.exogenous = columns;
         self
     }
     /// Hold a coefficient at a fixed value instead of estimating it. Holding the same
@@ -249,6 +272,7 @@ impl BlueprintBuilder {
                 Term::SeasonalMa(i) => (1..=sq).contains(&i),
                 Term::Mean => mean,
                 Term::Drift => drift,
+                Term::Exogenous(i) => (1..=self.exogenous).contains(&i),
             };
             if !exists {
                 return bad("hold", format!("{term} is not a coefficient of this model"));
@@ -262,6 +286,15 @@ impl BlueprintBuilder {
             return bad(
                 "tolerance",
                 format!("tolerance {tolerance} must be positive"),
+            );
+        }
+        if self.exogenous > 64 {
+            return bad(
+                "exogenous",
+                format!(
+                    "{} regressor columns; at most 64 are supported",
+                    self.exogenous
+                ),
             );
         }
         let max_iterations = self.max_iterations.unwrap_or(200);
@@ -281,6 +314,7 @@ impl BlueprintBuilder {
             period,
             mean,
             drift,
+            exogenous: self.exogenous,
             held,
             estimator: self.estimator,
             tolerance,
@@ -407,14 +441,19 @@ impl Blueprint {
         if self.drift {
             out.push(Term::Drift);
         }
+        out.extend((1..=self.exogenous).map(Term::Exogenous));
         out
+    }
+    /// Number of exogenous regressor columns.
+    pub fn exogenous_columns(&self) -> usize {
+        self.exogenous
     }
     /// Number of ARMA coefficients (φ, θ, Φ, Θ) that are estimated, not held: the
     /// reduction of portmanteau degrees of freedom.
     pub fn estimated_arma_coefficients(&self) -> usize {
         self.terms()
             .iter()
-            .filter(|t| !matches!(t, Term::Mean | Term::Drift) && self.held_value(**t).is_none())
+            .filter(|t| t.is_arma() && self.held_value(**t).is_none())
             .count()
     }
     /// A short name of the model shape, e.g. `SARIMA(1,0,1)(0,1,1)[96] + mean`.
@@ -440,6 +479,11 @@ impl Blueprint {
         }
         if self.drift {
             s.push_str(" + drift");
+        }
+        match self.exogenous {
+            0 => {}
+            1 => s.push_str(" + 1 regressor"),
+            k => s.push_str(&format!(" + {k} regressors")),
         }
         s
     }

@@ -10,4 +10,5 @@ mod fit_corpus;
 mod fuzz_replay;
 mod likelihood_reference;
 mod properties;
+mod regression_reference;
 mod simulation_facts;
