@@ -51,8 +51,6 @@ pub(crate) struct Prepared {
     /// filtered cross-products do not cancel catastrophically; the likelihood's GLS
     /// estimates are corrections to these.
     pub beta_offset: Vec<f64>,
-    /// Standard deviation of the differenced series (for step sizes).
-    pub scale: f64,
 }
 
 /// Apply `(1 − B)^d (1 − B^s)^D` to `x`, returning a series shorter by `d + D·s`.
@@ -233,7 +231,6 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         profiled,
         has_missing: present_w < n,
         missing_original: series.len() - s.present,
-        scale: var.sqrt(),
     })
 }
 
@@ -1291,7 +1288,6 @@ pub(crate) fn natural(layout: &Layout, x: &[f64], ws: &mut EvalWorkspace) -> Opt
 }
 
 /// Expanded (φ, θ) of natural coefficients.
-#[allow(dead_code)] // used by forecasting (next)
 pub(crate) fn expanded(c: &Coefs, period: usize) -> (Vec<f64>, Vec<f64>) {
     let mut phi = Vec::new();
     let mut theta = Vec::new();

@@ -9,6 +9,7 @@ use crate::correlogram::{BandRule, Correlogram, CorrelogramScratch};
 use crate::criteria::InformationCriteria;
 use crate::error::{Error, Result};
 use crate::estimate::{self, Coefs, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
+use crate::forecast::{FilterState, Forecast, ForecastModel, Monitor};
 use crate::lag::{self, Complex};
 use crate::linalg;
 use crate::spec::{Blueprint, Estimator, Term};
@@ -154,7 +155,11 @@ fn factor_label(t: Term) -> &'static str {
 }
 
 /// A fitted model: estimates, uncertainty, likelihood, residuals and diagnostics.
+///
+/// Serialisable with serde; deserialising validates the content (see
+/// [`crate::persist`] for the versioned file format).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(try_from = "FittedRecord")]
 pub struct FittedModel {
     pub(crate) blueprint: Blueprint,
     pub(crate) coefficients: Vec<CoefficientEstimate>,
@@ -164,11 +169,137 @@ pub struct FittedModel {
     pub(crate) log_likelihood: LogLikelihood,
     pub(crate) counts: ReadingCounts,
     pub(crate) stages: Vec<StageRecord>,
+    #[serde(with = "crate::persist::nan_as_null")]
     pub(crate) residuals: Vec<f64>,
+    #[serde(with = "crate::persist::nan_as_null")]
     pub(crate) standardized: Vec<f64>,
     pub(crate) roots: Vec<FactorRoots>,
     pub(crate) warnings: Vec<FitWarning>,
     pub(crate) data_fingerprint: u64,
+    pub(crate) forecaster: ForecastModel,
+    pub(crate) terminal: FilterState,
+}
+
+/// The stored form of a fitted model; restoring checks it (see `TryFrom`).
+#[derive(Deserialize)]
+struct FittedRecord {
+    blueprint: Blueprint,
+    coefficients: Vec<CoefficientEstimate>,
+    covariance_terms: Vec<Term>,
+    covariance: Option<Vec<f64>>,
+    innovation_variance: f64,
+    log_likelihood: LogLikelihood,
+    counts: ReadingCounts,
+    stages: Vec<StageRecord>,
+    #[serde(with = "crate::persist::nan_as_null")]
+    residuals: Vec<f64>,
+    #[serde(with = "crate::persist::nan_as_null")]
+    standardized: Vec<f64>,
+    roots: Vec<FactorRoots>,
+    warnings: Vec<FitWarning>,
+    data_fingerprint: u64,
+    forecaster: ForecastModel,
+    terminal: FilterState,
+}
+
+impl TryFrom<FittedRecord> for FittedModel {
+    type Error = String;
+    fn try_from(r: FittedRecord) -> std::result::Result<Self, String> {
+        let terms = r.blueprint.terms();
+        let got: Vec<Term> = r.coefficients.iter().map(|c| c.term).collect();
+        if got != terms {
+            return Err(format!(
+                "coefficients {:?} do not match the blueprint's terms {:?}",
+                got.iter().map(|t| t.to_string()).collect::<Vec<_>>(),
+                terms.iter().map(|t| t.to_string()).collect::<Vec<_>>()
+            ));
+        }
+        if let Some(c) = r.coefficients.iter().find(|c| !c.value.is_finite()) {
+            return Err(format!("coefficient {} is not finite", c.term));
+        }
+        if !(r.innovation_variance > 0.0 && r.innovation_variance.is_finite()) {
+            return Err(format!(
+                "innovation variance {} is not positive",
+                r.innovation_variance
+            ));
+        }
+        let k = r.covariance_terms.len();
+        if let Some(cov) = &r.covariance
+            && cov.len() != k * k
+        {
+            return Err(format!(
+                "covariance has {} entries, {} terms need {}",
+                cov.len(),
+                k,
+                k * k
+            ));
+        }
+        if r.residuals.len() != r.counts.total || r.standardized.len() != r.counts.total {
+            return Err(format!(
+                "residuals have {} and {} entries, the reading count is {}",
+                r.residuals.len(),
+                r.standardized.len(),
+                r.counts.total
+            ));
+        }
+        let model = FittedModel {
+            blueprint: r.blueprint,
+            coefficients: r.coefficients,
+            covariance_terms: r.covariance_terms,
+            covariance: r.covariance,
+            innovation_variance: r.innovation_variance,
+            log_likelihood: r.log_likelihood,
+            counts: r.counts,
+            stages: r.stages,
+            residuals: r.residuals,
+            standardized: r.standardized,
+            roots: r.roots,
+            warnings: r.warnings,
+            data_fingerprint: r.data_fingerprint,
+            forecaster: r.forecaster,
+            terminal: r.terminal,
+        };
+        // The coefficients must be admissible and the stored forecaster must be the one
+        // they imply (same expanded polynomials, σ² and regression).
+        let coefs = model.factor_coefficients();
+        for (fi, c) in coefs.f.iter().enumerate() {
+            let ok = if fi % 2 == 0 {
+                lag::is_stationary(c)
+            } else {
+                lag::is_invertible(c)
+            };
+            if !ok {
+                return Err(format!(
+                    "the {} coefficients are not {}",
+                    factor_label(estimate::FACTORS[fi]),
+                    if fi % 2 == 0 {
+                        "stationary"
+                    } else {
+                        "invertible"
+                    }
+                ));
+            }
+        }
+        let regression: Vec<(Term, f64)> = model
+            .coefficients
+            .iter()
+            .filter(|c| !c.term.is_arma())
+            .map(|c| (c.term, c.value))
+            .collect();
+        let expected = ForecastModel::new(
+            &model.blueprint,
+            &coefs,
+            model.innovation_variance,
+            regression,
+        );
+        if expected != model.forecaster {
+            return Err("the stored forecasting state does not match the coefficients".into());
+        }
+        let monitor = Monitor::new(model.forecaster.clone(), model.terminal.clone(), 0.5)
+            .map_err(|e| e.to_string())?;
+        monitor.validate()?;
+        Ok(model)
+    }
 }
 
 impl Blueprint {
@@ -434,6 +565,13 @@ fn fit_prepared(
             warnings.push(FitWarning::NotConverged { reason: st.reason });
         }
     }
+    let regression: Vec<(Term, f64)> = coefficients
+        .iter()
+        .filter(|c| !c.term.is_arma())
+        .map(|c| (c.term, c.value))
+        .collect();
+    let forecaster = ForecastModel::new(bp, &coefs, ev.innovation_variance, regression);
+    let terminal = crate::forecast::terminal_state(&forecaster, series, regressors)?;
     let log_likelihood = match kind {
         ObjectiveKind::Exact => LogLikelihood::Exact(-ev.neg_log_likelihood),
         ObjectiveKind::Conditional => LogLikelihood::Conditional(-ev.neg_log_likelihood),
@@ -458,6 +596,8 @@ fn fit_prepared(
         roots,
         warnings,
         data_fingerprint: fingerprint(series),
+        forecaster,
+        terminal,
     })
 }
 
@@ -612,6 +752,59 @@ impl FittedModel {
         })
     }
 
+    /// Forecast `horizon` readings past the end of the fitted series with prediction
+    /// intervals at `levels` (e.g. `&[0.8, 0.95]`). Means and variances are exact given
+    /// the readings (filter-based), integrated back through the differencing, and
+    /// account for missing readings at the end of the series. Models with exogenous
+    /// regressors need [`FittedModel::forecast_with`].
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, Simulator};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let x = Simulator::builder().autoregressive(&[0.8]).level(60.0).build()?.generate(500, 5);
+    /// let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x)?;
+    /// let fc = fit.forecast(96, &[0.8, 0.95])?;
+    /// let (s1, s96) = (&fc.steps[0], &fc.steps[95]);
+    /// assert!(s96.sd > s1.sd);                       // wider further out
+    /// assert!(s1.bounds[0].1 - s1.bounds[0].0 < s1.bounds[1].1 - s1.bounds[1].0); // 80% inside 95%
+    /// # Ok(()) }
+    /// ```
+    pub fn forecast(&self, horizon: usize, levels: &[f64]) -> Result<Forecast> {
+        crate::forecast::forecast_from(&self.forecaster, &self.terminal, horizon, levels, &[])
+    }
+
+    /// [`FittedModel::forecast`] with future values of the exogenous regressors (one
+    /// column per regressor, at least `horizon` values each).
+    pub fn forecast_with(
+        &self,
+        horizon: usize,
+        levels: &[f64],
+        future: &[&[f64]],
+    ) -> Result<Forecast> {
+        crate::forecast::forecast_from(&self.forecaster, &self.terminal, horizon, levels, future)
+    }
+
+    /// A monitor that continues from the end of the fitted series, flagging readings
+    /// outside the two-sided interval at `alarm_level` (e.g. 0.99).
+    pub fn monitor(&self, alarm_level: f64) -> Result<Monitor> {
+        Monitor::new(self.forecaster.clone(), self.terminal.clone(), alarm_level)
+    }
+
+    /// A monitor positioned after `history` (any series on the same time axis, starting
+    /// at index 0), using this model's coefficients without refitting — e.g. after a
+    /// restart with recent readings from the historian.
+    pub fn monitor_from_history(
+        &self,
+        history: &[f64],
+        regressors: &[&[f64]],
+        alarm_level: f64,
+    ) -> Result<Monitor> {
+        crate::series::screen(history, "monitor", 1, crate::series::ConstantPolicy::Allow)?;
+        estimate::check_regressors(&self.blueprint, history.len(), regressors, "monitor")?;
+        let st = crate::forecast::terminal_state(&self.forecaster, history, regressors)?;
+        Monitor::new(self.forecaster.clone(), st, alarm_level)
+    }
+
     /// Fingerprint of the data the model was fitted to (used to refuse comparisons of
     /// models fitted to different data).
     pub fn data_fingerprint(&self) -> u64 {
@@ -619,7 +812,6 @@ impl FittedModel {
     }
 
     /// Natural coefficients by factor (crate-internal).
-    #[allow(dead_code)] // used by forecasting (next)
     pub(crate) fn factor_coefficients(&self) -> Coefs {
         let mut c = Coefs::default();
         for e in &self.coefficients {

@@ -415,6 +415,11 @@ impl KalmanWorkspace {
         totals
     }
 
+    /// The stationary covariance `P₀` (r×r, σ² = 1) right after `set_model`.
+    pub(crate) fn stationary_matrix(&self) -> &[f64] {
+        &self.p
+    }
+
     /// Predicted state (for time `n`) of column `c` after the last pass.
     #[allow(dead_code)] // used by forecasting (next)
     pub(crate) fn final_state(&self, c: usize) -> &[f64] {

@@ -84,9 +84,11 @@ pub mod criteria;
 mod error;
 mod estimate;
 pub mod fitted;
+pub mod forecast;
 pub mod kalman;
 pub mod lag;
 mod linalg;
+pub mod persist;
 mod series;
 pub mod spec;
 pub mod synth;
@@ -104,6 +106,7 @@ pub use fitted::{
     CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
     LogLikelihood, ReadingCounts, ResidualCheck,
 };
+pub use forecast::{Forecast, ForecastStep, Monitor, ReadingCheck};
 pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use whiteness::{PortmanteauRow, PortmanteauScan};

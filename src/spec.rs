@@ -110,6 +110,7 @@ impl std::fmt::Display for Estimator {
 /// # Ok(()) }
 /// ```
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(try_from = "BlueprintRecord")]
 pub struct Blueprint {
     pub(crate) p: usize,
     pub(crate) d: usize,
@@ -125,6 +126,44 @@ pub struct Blueprint {
     pub(crate) estimator: Estimator,
     pub(crate) tolerance: f64,
     pub(crate) max_iterations: usize,
+}
+
+/// The stored form of a blueprint; restoring re-runs the builder's validation.
+#[derive(Deserialize)]
+struct BlueprintRecord {
+    p: usize,
+    d: usize,
+    q: usize,
+    seasonal_p: usize,
+    seasonal_d: usize,
+    seasonal_q: usize,
+    period: usize,
+    mean: bool,
+    drift: bool,
+    exogenous: usize,
+    held: Vec<(Term, f64)>,
+    estimator: Estimator,
+    tolerance: f64,
+    max_iterations: usize,
+}
+
+impl TryFrom<BlueprintRecord> for Blueprint {
+    type Error = String;
+    fn try_from(r: BlueprintRecord) -> std::result::Result<Self, String> {
+        let mut b = Blueprint::builder();
+        b.nonseasonal(r.p, r.d, r.q)
+            .periodic(r.seasonal_p, r.seasonal_d, r.seasonal_q, r.period)
+            .mean_term(r.mean)
+            .drift_term(r.drift)
+            .exogenous(r.exogenous)
+            .estimator(r.estimator)
+            .tolerance(r.tolerance)
+            .max_iterations(r.max_iterations);
+        for (t, v) in r.held {
+            b.hold(t, v);
+        }
+        b.build().map_err(|e| e.to_string())
+    }
 }
 
 /// Builder for [`Blueprint`]; setters chain on `&mut self`, `build()` validates.
