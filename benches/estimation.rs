@@ -210,5 +210,55 @@ fn fits(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, likelihood, fits);
+fn monitoring(c: &mut Criterion) {
+    let mut group = c.benchmark_group("monitor");
+    let small = Simulator::builder()
+        .autoregressive(&[0.5, 0.2])
+        .moving_average(&[0.4])
+        .level(60.0)
+        .build()
+        .expect("simulator")
+        .generate(3000, 13);
+    let fit_small = Blueprint::builder()
+        .nonseasonal(2, 0, 1)
+        .build()
+        .expect("bp")
+        .fit(&small[..1000])
+        .expect("fit");
+    let seasonal = Simulator::builder()
+        .autoregressive(&[0.6])
+        .moving_average(&[0.2])
+        .seasonal(&[], &[-0.5], 96)
+        .differencing(0, 1)
+        .build()
+        .expect("simulator")
+        .generate(6000, 14);
+    let fit_seasonal = Blueprint::builder()
+        .nonseasonal(1, 0, 1)
+        .periodic(0, 1, 1, 96)
+        .build()
+        .expect("bp")
+        .fit(&seasonal[..4000])
+        .expect("fit");
+    for (name, fit, data) in [
+        ("arma21", &fit_small, &small[1000..]),
+        ("sarima101_011_96", &fit_seasonal, &seasonal[4000..]),
+    ] {
+        let mut m = fit.monitor(0.999).expect("monitor");
+        let mut i = 0;
+        group.throughput(Throughput::Elements(1));
+        group.bench_function(BenchmarkId::new("observe", name), |b| {
+            b.iter(|| {
+                i = (i + 1) % data.len();
+                m.observe(black_box(data[i])).expect("ok")
+            })
+        });
+        group.bench_function(BenchmarkId::new("forecast96", name), |b| {
+            b.iter(|| m.forecast(96, black_box(&[0.8, 0.95])).expect("ok"))
+        });
+    }
+    group.finish();
+}
+
+criterion_group!(benches, likelihood, fits, monitoring);
 criterion_main!(benches);

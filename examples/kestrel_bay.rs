@@ -14,6 +14,8 @@ use lagwise::{
 const PER_DAY: usize = 96;
 /// Days of history per tag.
 const DAYS: usize = 7;
+/// Readings that arrived overnight (8 hours), after the models were fitted.
+const NIGHT: usize = 32;
 
 /// One simulated tag of one substation.
 struct Tag {
@@ -29,7 +31,7 @@ fn daily_profile(t: usize, amplitude: f64) -> f64 {
 }
 
 fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
-    let n = PER_DAY * DAYS;
+    let n = PER_DAY * DAYS + NIGHT;
     // Supply temperature: slow AR wander around the set point, small daily cycle.
     let ts_noise = Simulator::builder()
         .autoregressive(&[0.96])
@@ -64,11 +66,15 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
         .dropouts(Dropouts::new(0.004, 12.0))
         .build()?
         .generate(n, seed + 2);
-    let flow: Vec<f64> = fl_noise
+    let mut flow: Vec<f64> = fl_noise
         .iter()
         .enumerate()
         .map(|(t, e)| 18.0 + daily_profile(t, 6.0) + e)
         .collect();
+    if id == 418 {
+        // A spike overnight: a single reading 25 m³/h too high.
+        flow[PER_DAY * DAYS + 10] += 25.0;
+    }
     // Differential pressure: near-white, with a level shift after valve work on day 4.
     let dp_noise = Simulator::builder()
         .innovation_sd(0.02)
@@ -153,37 +159,88 @@ fn blueprint_for(tag: &str) -> Result<Blueprint, lagwise::Error> {
     b.build()
 }
 
-fn fit_and_check() -> Result<(), lagwise::Error> {
-    println!("\nModels for substation 0417 (exact likelihood started from CSS), residual check:");
-    println!(
-        "{:<14} {:<34} {:>9} {:>12}  residuals",
-        "tag", "model", "σ", "smallest p"
-    );
+fn clock(index: u64) -> String {
+    let minutes = (index as usize % PER_DAY) * 15;
+    format!("{:02}:{:02}", minutes / 60, minutes % 60)
+}
+
+/// The morning report: model and residual verdict per tag, overnight readings that
+/// broke their 99.9% intervals, and a day-ahead forecast for flow and return temperature.
+fn morning_report() -> Result<(), lagwise::Error> {
+    let history_len = PER_DAY * DAYS;
     let mut ws = FitWorkspace::new();
-    let mut report = None;
-    for tag in substation(417, 4170)? {
-        let fit = blueprint_for(&tag.name)?.fit_with(&tag.readings, &mut ws)?;
-        let check = fit.residual_check(fit.default_check_lags(), 0.05)?;
-        let p = check.portmanteau.smallest_ljung_box_p_value();
+    for (id, seed) in [(417u32, 4170u64), (418, 4180)] {
+        println!("\n=== Substation {id:04} — morning report ===");
         println!(
-            "{:<14} {:<34} {:>9.4} {:>12} {}",
-            tag.name,
-            fit.blueprint().shape_label(),
-            fit.innovation_variance().sqrt(),
-            p.map_or("—".to_string(), |(lag, p)| format!("{p:.3}@{lag}")),
-            if check.white {
-                "white: model adequate"
-            } else {
-                "NOT white: do not trust its significance"
-            },
+            "{:<14} {:<30} {:>8} {:>13}  {:<9} overnight alarms (99.9%)",
+            "tag", "model", "σ", "smallest p", "residuals"
         );
-        if tag.name.ends_with("-TR") {
-            report = Some(fit);
+        let mut day_ahead = Vec::new();
+        for tag in substation(id, seed)? {
+            let (history, night) = tag.readings.split_at(history_len);
+            let fit = blueprint_for(&tag.name)?.fit_with(history, &mut ws)?;
+            let check = fit.residual_check(fit.default_check_lags(), 0.05)?;
+            let p = check.portmanteau.smallest_ljung_box_p_value();
+            let mut monitor = fit.monitor(0.999)?;
+            let alarms: Vec<String> = monitor
+                .observe_batch(night)?
+                .into_iter()
+                .filter(|c| c.outside)
+                .map(|c| {
+                    format!(
+                        "{} read {:.2} expected {:.2} (z = {:+.1})",
+                        clock(c.index),
+                        c.reading,
+                        c.predicted,
+                        c.standardized.unwrap_or(f64::NAN)
+                    )
+                })
+                .collect();
+            println!(
+                "{:<14} {:<30} {:>8.4} {:>13}  {:<9} {}",
+                tag.name,
+                fit.blueprint().shape_label(),
+                fit.innovation_variance().sqrt(),
+                p.map_or("—".to_string(), |(lag, p)| format!("{p:.3} @ {lag}")),
+                if check.white { "white" } else { "NOT white" },
+                if alarms.is_empty() {
+                    "none".to_string()
+                } else {
+                    alarms.join("; ")
+                },
+            );
+            if tag.name.ends_with("-FL") || tag.name.ends_with("-TR") {
+                day_ahead.push((
+                    tag.name.clone(),
+                    tag.unit,
+                    monitor.forecast(PER_DAY, &[0.8, 0.95])?,
+                ));
+            }
+        }
+        if id == 417 {
+            for (name, unit, fc) in &day_ahead {
+                println!(
+                    "\nDay-ahead forecast {name} [{unit}], hourly: mean (80% interval) [95% interval]"
+                );
+                for st in fc.steps.iter().step_by(4) {
+                    println!(
+                        "  {}  {:>7.2}  ({:>6.2} – {:>6.2})  [{:>6.2} – {:>6.2}]",
+                        clock(st.index),
+                        st.mean,
+                        st.bounds[0].0,
+                        st.bounds[0].1,
+                        st.bounds[1].0,
+                        st.bounds[1].1
+                    );
+                }
+            }
         }
     }
-    if let Some(fit) = report {
-        println!("\nFull report for KB-SS0417-TR:\n{fit}");
-    }
+    println!(
+        "\n'NOT white' means the model no longer describes the series (here: the stuck return \
+         sensor on day 6, the level shift after valve work): its intervals and significance \
+         should not be trusted until the cause is found or the model refitted."
+    );
     Ok(())
 }
 
@@ -200,7 +257,8 @@ fn main() -> Result<(), lagwise::Error> {
     let mut worst: Option<(String, Correlogram)> = None;
     for (id, seed) in [(417u32, 4170u64), (418, 4180), (1203, 12030)] {
         for tag in substation(id, seed)? {
-            let cg = Correlogram::compute(&tag.readings, PER_DAY)?;
+            let history = &tag.readings[..PER_DAY * DAYS];
+            let cg = Correlogram::compute(history, PER_DAY)?;
             let band = cg.bands(0.95, BandRule::WhiteNoise)?;
             // Degrees of freedom are not reduced: these are raw readings, no model yet.
             let scan = PortmanteauScan::from_correlogram(&cg, 24, 0)?;
@@ -249,7 +307,7 @@ fn main() -> Result<(), lagwise::Error> {
              whether a fitted model's residuals are white."
         );
     }
-    fit_and_check()?;
+    morning_report()?;
     println!(
         "\nlagwise informs operators; it does not replace protection systems, statutory alarms or site procedures."
     );
