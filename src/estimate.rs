@@ -616,8 +616,10 @@ impl EvalWorkspace {
         let n = prep.n;
         let k = prep.ncols;
         let cond = self.phi.len().min(n);
-        self.css_innov.clear();
-        self.css_innov.resize(k * n, 0.0);
+        // Every entry is written below (zeros before `cond`, residuals after).
+        if self.css_innov.len() != k * n {
+            self.css_innov.resize(k * n, 0.0);
+        }
         let src: &[f64] = if prep.has_missing {
             self.fill.clear();
             self.fill.extend_from_slice(&prep.data);
@@ -1099,7 +1101,9 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     }
     // Long AR by Durbin–Levinson on the sample autocorrelations.
     let (p_exp, q_exp) = bp.expanded_degrees();
-    let nlog = (10.0 * (n as f64).log10()).ceil() as usize;
+    // Long-AR order: enough to whiten a typical invertible MA part (common practice:
+    // a few times ln n beyond the model orders).
+    let nlog = (2.0 * (n as f64).ln()).ceil() as usize;
     let m = if ma_lags.is_empty() {
         0
     } else {

@@ -591,6 +591,13 @@ impl Monitor {
         })
     }
 
+    /// The same monitor with another alarm level.
+    pub fn with_alarm_level(mut self, level: f64) -> Result<Self> {
+        self.alarm_z = crate::correlogram::two_sided_quantile(level, "monitor")?;
+        self.alarm_level = level;
+        Ok(self)
+    }
+
     /// Alarm level of the interval (e.g. 0.99).
     pub fn alarm_level(&self) -> f64 {
         self.alarm_level

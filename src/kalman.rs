@@ -287,8 +287,9 @@ impl KalmanWorkspace {
     ) -> PassTotals {
         let r = self.r;
         resize(&mut self.state, ncols * r);
-        resize(&mut self.innov, ncols * n);
-        resize(&mut self.fvar, n);
+        // Every entry of these two is written by the pass: size them, don't clear them.
+        ensure_len(&mut self.innov, ncols * n);
+        ensure_len(&mut self.fvar, n);
         for v in cross.iter_mut() {
             *v = 0.0;
         }
@@ -773,6 +774,12 @@ fn accumulate_cross(innov: &[f64], n: usize, t: usize, ncols: usize, f: f64, cro
         for j in i..ncols {
             cross[i * ncols + j] += vi * innov[j * n + t];
         }
+    }
+}
+
+fn ensure_len(v: &mut Vec<f64>, len: usize) {
+    if v.len() != len {
+        v.resize(len, 0.0);
     }
 }
 

@@ -84,6 +84,7 @@ pub mod criteria;
 mod error;
 mod estimate;
 pub mod fitted;
+pub mod fleet;
 pub mod forecast;
 pub mod kalman;
 pub mod lag;
@@ -106,6 +107,7 @@ pub use fitted::{
     CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
     LogLikelihood, ReadingCounts, ResidualCheck,
 };
+pub use fleet::{FitSummary, Fleet, FleetBuilder, FleetReport, Progress};
 pub use forecast::{Forecast, ForecastStep, Monitor, ReadingCheck};
 pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};

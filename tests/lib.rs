@@ -7,6 +7,7 @@ mod common;
 mod correlogram_reference;
 mod estimation_checks;
 mod fit_corpus;
+mod fleet_checks;
 mod forecast_checks;
 mod forecast_reference;
 mod fuzz_replay;

@@ -1,0 +1,154 @@
+//! The fleet benchmark: simulate N Kestrel Bay supply-temperature series and fit
+//! ARMA(1,1) + mean to each (CSS-started exact ML, standard errors, residual check, a
+//! monitor per series), then print throughput, cost per reading per evaluation next to a
+//! floor kernel measured in the same run, parallel efficiency and peak memory.
+//!
+//! Run: `cargo run --release --example fleet -- [series] [readings]`
+//! (defaults: 20000 series × 1000 readings; the target size is 100000 × 1000).
+
+use std::hint::black_box;
+use std::time::Instant;
+
+use lagwise::{Blueprint, Fleet, Simulator};
+
+fn peak_memory_mib() -> Option<f64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kib / 1024.0)
+}
+
+/// The bare ARMA(1,1) recursion over one series, the floor for one objective evaluation.
+fn floor_kernel(w: &[f64], phi: f64, theta: f64) -> f64 {
+    let mut prev = 0.0;
+    let mut ss = 0.0;
+    for t in 1..w.len() {
+        let e = (w[t] - phi * w[t - 1]) - theta * prev;
+        prev = e;
+        ss += e * e;
+    }
+    ss
+}
+
+fn main() -> Result<(), Box<dyn std::error::Error>> {
+    let args: Vec<usize> = std::env::args()
+        .skip(1)
+        .filter_map(|a| a.parse().ok())
+        .collect();
+    let count = args.first().copied().unwrap_or(20_000);
+    let len = args.get(1).copied().unwrap_or(1000);
+    println!(
+        "lagwise fleet benchmark: {count} series × {len} readings, ARMA(1,1) + mean, CSS-started exact ML"
+    );
+
+    let t = Instant::now();
+    let sim = Simulator::builder()
+        .autoregressive(&[0.9])
+        .moving_average(&[0.3])
+        .level(88.0)
+        .innovation_sd(0.2)
+        .build()?;
+    let mut flat = vec![0.0; count * len];
+    for (i, chunk) in flat.chunks_mut(len).enumerate() {
+        sim.generate_into(chunk, 417_000 + i as u64);
+    }
+    let series: Vec<&[f64]> = flat.chunks(len).collect();
+    let input_mib = (count * len * 8) as f64 / (1024.0 * 1024.0);
+    println!(
+        "simulated in {:.1} s; input {:.0} MiB",
+        t.elapsed().as_secs_f64(),
+        input_mib
+    );
+
+    let bp = Blueprint::builder().nonseasonal(1, 0, 1).build()?;
+
+    // Floor kernel, same run.
+    let w: Vec<f64> = series[0].iter().map(|v| v - 88.0).collect();
+    let reps = 20_000_000 / len.max(1);
+    let t = Instant::now();
+    let mut acc = 0.0;
+    for _ in 0..reps.max(1) {
+        acc += floor_kernel(black_box(&w), 0.9, 0.3);
+    }
+    let floor_ns = t.elapsed().as_nanos() as f64 / (reps.max(1) * len) as f64;
+    black_box(acc);
+
+    // Parallel efficiency on a subset: 1 vs 2 threads.
+    let subset = &series[..count.min(4000)];
+    let one = Fleet::builder().threads(1).build()?.fit_slices(&bp, subset);
+    let two = Fleet::builder().threads(2).build()?.fit_slices(&bp, subset);
+    let efficiency = one.elapsed.as_secs_f64() / (2.0 * two.elapsed.as_secs_f64());
+
+    // The whole fleet on 2 threads.
+    let report = Fleet::builder()
+        .threads(2)
+        .build()?
+        .fit_slices(&bp, &series);
+    let secs = report.elapsed.as_secs_f64();
+    let fitted: Vec<_> = report
+        .outcomes
+        .iter()
+        .filter_map(|o| o.1.as_ref().ok())
+        .collect();
+    let evals =
+        fitted.iter().map(|s| s.evaluations() as f64).sum::<f64>() / fitted.len().max(1) as f64;
+    let converged = fitted.iter().filter(|s| s.converged()).count();
+    let white = fitted.iter().filter(|s| s.residuals_white).count();
+    let per_eval_ns = secs * 2.0 * 1e9 / (count as f64 * len as f64 * evals);
+    println!(
+        "fitted {} of {count} in {secs:.2} s on 2 threads: {:.0} series/s",
+        report.fitted(),
+        count as f64 / secs
+    );
+    println!(
+        "evaluations per fit (CSS + exact stages): {evals:.1}; converged {converged}; residuals white {white}"
+    );
+    println!(
+        "cost per reading per evaluation (all work incl. Hessian and checks, per core): {per_eval_ns:.2} ns; floor kernel {floor_ns:.2} ns (ratio {:.1})",
+        per_eval_ns / floor_ns
+    );
+    println!(
+        "parallel efficiency (1 vs 2 threads, {} series): {:.0}%",
+        subset.len(),
+        100.0 * efficiency
+    );
+    if let Some(peak) = peak_memory_mib() {
+        println!(
+            "peak memory {peak:.0} MiB = input {input_mib:.0} MiB + {:.0} MiB",
+            peak - input_mib
+        );
+    }
+    println!(
+        "projected 100000 × {len} on 2 threads: {:.1} s",
+        secs * 100_000.0 / count as f64
+    );
+
+    // Cost against series length (one series per length, best of three).
+    let mut points = Vec::new();
+    for &n in &[1_000usize, 10_000, 100_000, 1_000_000] {
+        let x = sim.generate(n, 99);
+        let mut best = f64::INFINITY;
+        let mut evals = 0;
+        for _ in 0..3 {
+            let t = Instant::now();
+            let fit = bp.fit(&x)?;
+            best = best.min(t.elapsed().as_secs_f64());
+            evals = fit.stages().iter().map(|s| s.evaluations).sum();
+        }
+        println!(
+            "n = {n:>8}: fit {:.4} s, {evals} evaluations, {:.2} ns per reading per evaluation",
+            best,
+            best * 1e9 / (n * evals) as f64
+        );
+        points.push(((n as f64).ln(), (best / evals as f64).ln()));
+    }
+    let m = points.len() as f64;
+    let (sx, sy) = points
+        .iter()
+        .fold((0.0, 0.0), |a, p| (a.0 + p.0, a.1 + p.1));
+    let (mx, my) = (sx / m, sy / m);
+    let slope = points.iter().map(|p| (p.0 - mx) * (p.1 - my)).sum::<f64>()
+        / points.iter().map(|p| (p.0 - mx).powi(2)).sum::<f64>();
+    println!("cost per evaluation ∝ n^{slope:.3} over n = 10^3..10^6");
+    Ok(())
+}

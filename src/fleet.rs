@@ -1,0 +1,371 @@
+//! Fitting one blueprint over many series in parallel.
+//!
+//! A [`Fleet`] holds the batch settings (threads, residual-check lags, alarm level,
+//! progress callback, cancellation flag); `fit_*` methods take the series as slices, as
+//! the rows of a 2-D ndarray, or as a ragged collection with the caller's ids. Each
+//! series gets its own result — a compact [`FitSummary`] or a typed error — so one bad
+//! series never aborts the batch.
+//!
+//! # Determinism
+//! Every series is fitted independently on a per-worker workspace whose history does
+//! not influence results, and results are returned in input order, so each series'
+//! result is **bit-identical whatever the thread count** (tested).
+//!
+//! # Memory
+//! Summaries keep estimates, standard errors, likelihood, criteria, convergence, the
+//! residual check's p-values and a ready-to-use [`Monitor`] — not the residuals — so a
+//! fleet's results stay small next to its input. Fit one series with
+//! [`Blueprint::fit`](crate::Blueprint::fit) when the full [`FittedModel`] is needed.
+
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::time::{Duration, Instant};
+
+use rayon::prelude::*;
+
+use crate::criteria::InformationCriteria;
+use crate::error::{Error, ErrorKind, Result};
+use crate::estimate::StageRecord;
+use crate::fitted::{
+    CoefficientEstimate, FitWarning, FitWorkspace, FittedModel, LogLikelihood, ReadingCounts,
+};
+use crate::forecast::Monitor;
+use crate::spec::{Blueprint, Term};
+
+/// Progress of a running batch, passed to the progress callback.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[non_exhaustive]
+pub struct Progress {
+    /// Series finished so far (fitted or failed).
+    pub done: usize,
+    /// Of those, series that failed.
+    pub failed: usize,
+    /// Series in the batch.
+    pub total: usize,
+}
+
+type ProgressFn = dyn Fn(Progress) + Send + Sync;
+
+/// Batch settings. Build with [`Fleet::builder`].
+#[derive(Clone)]
+pub struct Fleet {
+    threads: Option<usize>,
+    check_lags: Option<usize>,
+    alpha: f64,
+    alarm_level: f64,
+    progress: Option<Arc<ProgressFn>>,
+    cancel: Option<Arc<AtomicBool>>,
+}
+
+impl std::fmt::Debug for Fleet {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Fleet")
+            .field("threads", &self.threads)
+            .field("check_lags", &self.check_lags)
+            .field("alpha", &self.alpha)
+            .field("alarm_level", &self.alarm_level)
+            .field("progress", &self.progress.is_some())
+            .field("cancel", &self.cancel.is_some())
+            .finish()
+    }
+}
+
+/// Builder for [`Fleet`].
+#[derive(Clone, Default)]
+pub struct FleetBuilder {
+    threads: Option<usize>,
+    check_lags: Option<usize>,
+    alpha: Option<f64>,
+    alarm_level: Option<f64>,
+    progress: Option<Arc<ProgressFn>>,
+    cancel: Option<Arc<AtomicBool>>,
+}
+
+impl std::fmt::Debug for FleetBuilder {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("FleetBuilder")
+            .field("threads", &self.threads)
+            .finish_non_exhaustive()
+    }
+}
+
+impl FleetBuilder {
+    /// Worker threads (default: rayon's global pool, i.e. one per core).
+    pub fn threads(&mut self, threads: usize) -> &mut Self {
+        self.threads = Some(threads);
+        self
+    }
+    /// Lags of the residual check (default: [`FittedModel::default_check_lags`]).
+    pub fn check_lags(&mut self, lags: usize) -> &mut Self {
+        self.check_lags = Some(lags);
+        self
+    }
+    /// Significance level of the residual check (default 0.05).
+    pub fn check_alpha(&mut self, alpha: f64) -> &mut Self {
+        self.alpha = Some(alpha);
+        self
+    }
+    /// Alarm level of each series' monitor (default 0.999).
+    pub fn alarm_level(&mut self, level: f64) -> &mut Self {
+        self.alarm_level = Some(level);
+        self
+    }
+    /// Called after every finished series with the running counts. Keep it cheap; it
+    /// runs on the worker threads.
+    pub fn progress(&mut self, callback: impl Fn(Progress) + Send + Sync + 'static) -> &mut Self {
+        self.progress = Some(Arc::new(callback));
+        self
+    }
+    /// A flag that, once set, makes workers skip every series not yet started; those
+    /// get [`ErrorKind::Cancelled`]. Series already being fitted finish.
+    pub fn cancel_flag(&mut self, flag: Arc<AtomicBool>) -> &mut Self {
+        self.cancel = Some(flag);
+        self
+    }
+    /// Validate and build.
+    pub fn build(&self) -> Result<Fleet> {
+        const WHAT: &str = "fleet";
+        if self.threads == Some(0) {
+            return Err(Error::invalid(WHAT, "thread count must be at least 1"));
+        }
+        let alpha = self.alpha.unwrap_or(0.05);
+        if !(alpha > 0.0 && alpha < 1.0) {
+            return Err(Error::invalid(
+                WHAT,
+                format!("check alpha {alpha} must be in (0, 1)"),
+            ));
+        }
+        let alarm_level = self.alarm_level.unwrap_or(0.999);
+        if !(alarm_level > 0.0 && alarm_level < 1.0) {
+            return Err(Error::invalid(
+                WHAT,
+                format!("alarm level {alarm_level} must be in (0, 1)"),
+            ));
+        }
+        if self.check_lags == Some(0) {
+            return Err(Error::invalid(WHAT, "check lags must be at least 1"));
+        }
+        Ok(Fleet {
+            threads: self.threads,
+            check_lags: self.check_lags,
+            alpha,
+            alarm_level,
+            progress: self.progress.clone(),
+            cancel: self.cancel.clone(),
+        })
+    }
+}
+
+/// What a fleet keeps of one fitted series.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct FitSummary {
+    /// Estimated and held coefficients with standard errors.
+    pub coefficients: Vec<CoefficientEstimate>,
+    /// Innovation variance σ².
+    pub innovation_variance: f64,
+    /// Log-likelihood, typed.
+    pub log_likelihood: LogLikelihood,
+    /// Criteria (exact fits only).
+    pub criteria: Option<InformationCriteria>,
+    /// Reading counts.
+    pub counts: ReadingCounts,
+    /// Optimisation stages.
+    pub stages: Vec<StageRecord>,
+    /// Warnings.
+    pub warnings: Vec<FitWarning>,
+    /// Ljung–Box p-values of the residual check, lags `1..=H` (`None` where no degrees
+    /// of freedom are left).
+    pub ljung_box_p_values: Vec<Option<f64>>,
+    /// Whether the residuals passed the check (no p-value below alpha).
+    pub residuals_white: bool,
+    /// A monitor positioned after the series, ready for new readings.
+    pub monitor: Monitor,
+}
+
+impl FitSummary {
+    /// One coefficient by term.
+    pub fn coefficient(&self, term: Term) -> Option<&CoefficientEstimate> {
+        self.coefficients.iter().find(|c| c.term == term)
+    }
+    /// Whether every optimisation stage converged.
+    pub fn converged(&self) -> bool {
+        self.stages.iter().all(|s| s.converged())
+    }
+    /// Total objective evaluations over the stages.
+    pub fn evaluations(&self) -> usize {
+        self.stages.iter().map(|s| s.evaluations).sum()
+    }
+
+    fn from_model(m: &FittedModel, lags: Option<usize>, alpha: f64, alarm: f64) -> Result<Self> {
+        let lags = lags.unwrap_or_else(|| m.default_check_lags());
+        let check = m.residual_check(lags, alpha)?;
+        Ok(FitSummary {
+            coefficients: m.coefficients().to_vec(),
+            innovation_variance: m.innovation_variance(),
+            log_likelihood: m.log_likelihood(),
+            criteria: m.criteria().ok(),
+            counts: m.reading_counts(),
+            stages: m.stages().to_vec(),
+            warnings: m.warnings().to_vec(),
+            ljung_box_p_values: check
+                .portmanteau
+                .rows()
+                .iter()
+                .map(|r| r.ljung_box_p_value)
+                .collect(),
+            residuals_white: check.white,
+            monitor: m.monitor(alarm)?,
+        })
+    }
+}
+
+/// Results of a batch, in input order.
+#[derive(Debug, Clone)]
+#[non_exhaustive]
+pub struct FleetReport<I> {
+    /// One entry per input series: its id and its summary or error.
+    pub outcomes: Vec<(I, Result<FitSummary>)>,
+    /// Whether the cancellation flag stopped the batch early.
+    pub cancelled: bool,
+    /// Wall-clock time of the batch.
+    pub elapsed: Duration,
+}
+
+impl<I> FleetReport<I> {
+    /// Number of series fitted successfully.
+    pub fn fitted(&self) -> usize {
+        self.outcomes.iter().filter(|o| o.1.is_ok()).count()
+    }
+    /// Ids and errors of the series that failed (cancelled ones included).
+    pub fn failures(&self) -> impl Iterator<Item = (&I, &Error)> {
+        self.outcomes
+            .iter()
+            .filter_map(|(id, r)| r.as_ref().err().map(|e| (id, e)))
+    }
+}
+
+impl Fleet {
+    /// Start configuring a batch.
+    pub fn builder() -> FleetBuilder {
+        FleetBuilder::default()
+    }
+
+    /// Fit `blueprint` to every slice; ids are the positions.
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, Fleet, Simulator};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let sim = Simulator::builder().autoregressive(&[0.6]).level(80.0).build()?;
+    /// let series: Vec<Vec<f64>> = (0..8).map(|seed| sim.generate(300, seed)).collect();
+    /// let mut bad = vec![f64::NAN; 300];
+    /// bad[0] = 1.0;
+    /// let mut all: Vec<&[f64]> = series.iter().map(|s| s.as_slice()).collect();
+    /// all.push(&bad); // one poisoned series does not stop the batch
+    /// let report = Fleet::builder().threads(2).build()?
+    ///     .fit_slices(&Blueprint::builder().nonseasonal(1, 0, 0).build()?, &all);
+    /// assert_eq!(report.fitted(), 8);
+    /// assert_eq!(report.failures().next().map(|(id, _)| *id), Some(8));
+    /// # Ok(()) }
+    /// ```
+    pub fn fit_slices(&self, blueprint: &Blueprint, series: &[&[f64]]) -> FleetReport<usize> {
+        let items: Vec<(usize, &[f64])> = series.iter().copied().enumerate().collect();
+        self.run(blueprint, &items)
+    }
+
+    /// Fit `blueprint` to every row of a 2-D array (rows = series); ids are row numbers.
+    pub fn fit_rows(
+        &self,
+        blueprint: &Blueprint,
+        rows: ndarray::ArrayView2<'_, f64>,
+    ) -> FleetReport<usize> {
+        let owned: Vec<Vec<f64>>;
+        let items: Vec<(usize, &[f64])> = if rows.is_standard_layout() {
+            rows.outer_iter()
+                .enumerate()
+                .map(|(i, r)| (i, r.to_slice().unwrap_or(&[])))
+                .collect()
+        } else {
+            owned = rows.outer_iter().map(|r| r.to_vec()).collect();
+            owned
+                .iter()
+                .enumerate()
+                .map(|(i, r)| (i, r.as_slice()))
+                .collect()
+        };
+        self.run(blueprint, &items)
+    }
+
+    /// Fit `blueprint` to a ragged collection with the caller's ids.
+    pub fn fit_ragged<I: Clone + Send + Sync>(
+        &self,
+        blueprint: &Blueprint,
+        series: &[(I, &[f64])],
+    ) -> FleetReport<I> {
+        self.run(blueprint, series)
+    }
+
+    fn run<I: Clone + Send + Sync>(
+        &self,
+        blueprint: &Blueprint,
+        items: &[(I, &[f64])],
+    ) -> FleetReport<I> {
+        let start = Instant::now();
+        let total = items.len();
+        let done = AtomicUsize::new(0);
+        let failed = AtomicUsize::new(0);
+        let work = || -> Vec<(I, Result<FitSummary>)> {
+            items
+                .par_iter()
+                .map_init(FitWorkspace::new, |ws, (id, series)| {
+                    let result = if self
+                        .cancel
+                        .as_ref()
+                        .is_some_and(|c| c.load(Ordering::Relaxed))
+                    {
+                        Err(Error::new(ErrorKind::Cancelled { what: "fleet" }))
+                    } else {
+                        blueprint.fit_with(series, ws).and_then(|m| {
+                            FitSummary::from_model(
+                                &m,
+                                self.check_lags,
+                                self.alpha,
+                                self.alarm_level,
+                            )
+                        })
+                    };
+                    let f = if result.is_err() {
+                        failed.fetch_add(1, Ordering::Relaxed) + 1
+                    } else {
+                        failed.load(Ordering::Relaxed)
+                    };
+                    let d = done.fetch_add(1, Ordering::Relaxed) + 1;
+                    if let Some(cb) = &self.progress {
+                        cb(Progress {
+                            done: d,
+                            failed: f,
+                            total,
+                        });
+                    }
+                    (id.clone(), result)
+                })
+                .collect()
+        };
+        let outcomes = match self.threads {
+            Some(t) => match rayon::ThreadPoolBuilder::new().num_threads(t).build() {
+                Ok(pool) => pool.install(work),
+                Err(_) => work(),
+            },
+            None => work(),
+        };
+        let cancelled = self
+            .cancel
+            .as_ref()
+            .is_some_and(|c| c.load(Ordering::Relaxed));
+        FleetReport {
+            outcomes,
+            cancelled,
+            elapsed: start.elapsed(),
+        }
+    }
+}
