@@ -793,6 +793,7 @@ struct Objective<'a> {
     kind: ObjectiveKind,
     ws: &'a RefCell<EvalWorkspace>,
     evals: &'a Cell<usize>,
+    budget: usize,
     best: &'a RefCell<(f64, Vec<f64>)>,
     eval_out: &'a RefCell<Evaluation>,
 }
@@ -893,6 +894,12 @@ impl CostFunction for Objective<'_> {
     type Param = Vec<f64>;
     type Output = f64;
     fn cost(&self, x: &Self::Param) -> std::result::Result<f64, argmin::core::Error> {
+        // A hard evaluation budget per stage: a line search that cannot make progress
+        // (e.g. against the penalty of an inadmissible region) is stopped here, and the
+        // best point found so far is reported with the stop reason.
+        if self.evals.get() >= self.budget {
+            return Err(argmin::core::Error::msg("evaluation budget exhausted"));
+        }
         Ok(self.value(x))
     }
 }
@@ -928,6 +935,7 @@ pub(crate) fn minimise(
         kind,
         ws,
         evals: &evals,
+        budget: bp.max_iterations * (2 * x0.len() * x0.len() + 4 * x0.len() + 30),
         best: &best,
         eval_out: &eval_out,
     };

@@ -121,7 +121,11 @@ pub(crate) fn coefficients_from_partials(kappa: &[f64], out: &mut [f64], tmp: &m
     }
 }
 
-/// Map unconstrained reals to the coefficients of an admissible AR factor (`κ = tanh u`).
+/// Largest partial autocorrelation the optimiser's reparameterisation can produce.
+pub(crate) const KAPPA_LIMIT: f64 = 1.0 - 1e-7;
+
+/// Map unconstrained reals to the coefficients of an admissible AR factor
+/// (`κ = (1 − 1e-7)·tanh u`).
 /// `kappa` and `tmp` are scratch of the same length as `u`. Allocation-free.
 pub(crate) fn admissible_from_unconstrained(
     u: &[f64],
@@ -129,16 +133,22 @@ pub(crate) fn admissible_from_unconstrained(
     kappa: &mut [f64],
     tmp: &mut [f64],
 ) {
-    // tanh keeps |κ| < 1 strictly for moderate u; the clamp guards large |u|.
+    // |κ| ≤ 1 − 1e-7: the optimiser can approach a unit root to within 1e-7 in partial
+    // autocorrelation but never reach the boundary, where products of seasonal factors
+    // lose admissibility to rounding.
     for (k, &v) in kappa.iter_mut().zip(u) {
-        *k = v.tanh().clamp(-0.999_999_999_999, 0.999_999_999_999);
+        *k = KAPPA_LIMIT * v.tanh();
     }
     coefficients_from_partials(kappa, out, tmp);
 }
 
 /// Inverse of [`admissible_from_unconstrained`]: `u = atanh κ`. `None` if not admissible.
 pub(crate) fn unconstrained_from_admissible(phi: &[f64]) -> Option<Vec<f64>> {
-    step_down(phi).map(|k| k.iter().map(|v| v.atanh()).collect())
+    step_down(phi).map(|k| {
+        k.iter()
+            .map(|v| (v / KAPPA_LIMIT).clamp(-0.999_999, 0.999_999).atanh())
+            .collect()
+    })
 }
 
 /// Move an AR coefficient set strictly inside the admissible region: if it is not

@@ -90,6 +90,7 @@ pub mod kalman;
 pub mod lag;
 mod linalg;
 pub mod persist;
+pub mod search;
 mod series;
 pub mod spec;
 pub mod synth;
@@ -109,6 +110,7 @@ pub use fitted::{
 };
 pub use fleet::{FitSummary, Fleet, FleetBuilder, FleetReport, Progress};
 pub use forecast::{Forecast, ForecastStep, Monitor, ReadingCheck};
+pub use search::{SearchOutcome, SearchSettings, search_orders};
 pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use whiteness::{PortmanteauRow, PortmanteauScan};

@@ -15,4 +15,5 @@ mod likelihood_reference;
 mod persistence;
 mod properties;
 mod regression_reference;
+mod search_checks;
 mod simulation_facts;
