@@ -623,7 +623,7 @@ pub(crate) fn fingerprint(series: &[f64]) -> u64 {
 #[derive(Debug, Clone, PartialEq)]
 #[non_exhaustive]
 pub struct ResidualCheck {
-    /// Correlogram (ACF and PACF) of the residuals.
+    /// Correlogram (ACF and PACF) of the standardized residuals.
     pub correlogram: Correlogram,
     /// 95% white-noise band half-width per lag (index 0 = lag 1).
     pub band: Vec<f64>,
@@ -738,7 +738,10 @@ impl FittedModel {
             ));
         }
         let mut scratch = CorrelogramScratch::new();
-        let cg = Correlogram::compute_with(&self.residuals, max_lag, &mut scratch)?;
+        // Standardized innovations: each divided by its own filter standard deviation, so
+        // early innovations (large variance before the filter settles) do not swamp the
+        // autocorrelations.
+        let cg = Correlogram::compute_with(&self.standardized, max_lag, &mut scratch)?;
         let band = cg.bands(1.0 - alpha, BandRule::WhiteNoise)?;
         let portmanteau = PortmanteauScan::from_correlogram(
             &cg,

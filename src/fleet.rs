@@ -30,6 +30,7 @@ use crate::fitted::{
     CoefficientEstimate, FitWarning, FitWorkspace, FittedModel, LogLikelihood, ReadingCounts,
 };
 use crate::forecast::Monitor;
+use crate::search::SearchSettings;
 use crate::spec::{Blueprint, Term};
 
 /// Progress of a running batch, passed to the progress callback.
@@ -177,8 +178,12 @@ pub struct FitSummary {
     /// Ljung–Box p-values of the residual check, lags `1..=H` (`None` where no degrees
     /// of freedom are left).
     pub ljung_box_p_values: Vec<Option<f64>>,
-    /// Whether the residuals passed the check (no p-value below alpha).
+    /// Whether the residuals passed the check (the Ljung–Box test at the last lag).
     pub residuals_white: bool,
+    /// The fitted shape, e.g. `ARMA(1,1) + mean` (useful after an order search).
+    pub shape: String,
+    /// For order searches: the search's explanation of its choice.
+    pub search_note: Option<String>,
     /// A monitor positioned after the series, ready for new readings.
     pub monitor: Monitor,
 }
@@ -215,6 +220,8 @@ impl FitSummary {
                 .map(|r| r.ljung_box_p_value)
                 .collect(),
             residuals_white: check.white,
+            shape: m.blueprint().shape_label(),
+            search_note: None,
             monitor: m.monitor(alarm)?,
         })
     }
@@ -305,10 +312,39 @@ impl Fleet {
         self.run(blueprint, series)
     }
 
+    /// Search orders for every series (see [`crate::search`]); each summary describes
+    /// the chosen model and carries the search's explanation. Ids are the positions.
+    pub fn search_slices(
+        &self,
+        settings: &SearchSettings,
+        series: &[&[f64]],
+    ) -> FleetReport<usize> {
+        let items: Vec<(usize, &[f64])> = series.iter().copied().enumerate().collect();
+        self.run_with(&items, |x, ws| {
+            let out = crate::search::search_orders_with(x, settings, ws)?;
+            let mut s =
+                FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm_level)?;
+            s.search_note = Some(out.explanation);
+            Ok(s)
+        })
+    }
+
     fn run<I: Clone + Send + Sync>(
         &self,
         blueprint: &Blueprint,
         items: &[(I, &[f64])],
+    ) -> FleetReport<I> {
+        self.run_with(items, |x, ws| {
+            blueprint.fit_with(x, ws).and_then(|m| {
+                FitSummary::from_model(&m, self.check_lags, self.alpha, self.alarm_level)
+            })
+        })
+    }
+
+    fn run_with<I: Clone + Send + Sync>(
+        &self,
+        items: &[(I, &[f64])],
+        job: impl Fn(&[f64], &mut FitWorkspace) -> Result<FitSummary> + Send + Sync,
     ) -> FleetReport<I> {
         let start = Instant::now();
         let total = items.len();
@@ -325,14 +361,7 @@ impl Fleet {
                     {
                         Err(Error::new(ErrorKind::Cancelled { what: "fleet" }))
                     } else {
-                        blueprint.fit_with(series, ws).and_then(|m| {
-                            FitSummary::from_model(
-                                &m,
-                                self.check_lags,
-                                self.alpha,
-                                self.alarm_level,
-                            )
-                        })
+                        job(series, ws)
                     };
                     let f = if result.is_err() {
                         failed.fetch_add(1, Ordering::Relaxed) + 1

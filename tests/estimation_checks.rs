@@ -291,3 +291,31 @@ proptest! {
         prop_assert!((fwd - pad).abs() < 1e-8 * fwd.abs().max(1.0), "{fwd} vs {pad}");
     }
 }
+
+/// Regression test (found in the Kestrel Bay demo): a model without a mean fitted to
+/// readings near 88 °C has one huge first innovation (its filter variance is huge too).
+/// The residual check must use standardized innovations, or that one value swamps the
+/// autocorrelations and a plainly non-white residual series passes as white.
+#[test]
+fn residual_check_is_not_fooled_by_a_large_first_innovation() {
+    let noise = Simulator::builder()
+        .autoregressive(&[0.3])
+        .innovation_sd(0.1)
+        .build()
+        .unwrap()
+        .generate(600, 3);
+    let x: Vec<f64> = noise
+        .iter()
+        .enumerate()
+        .map(|(t, e)| 88.0 + 0.3 * (t as f64 * std::f64::consts::TAU / 8.0).sin() + e)
+        .collect();
+    let fit = Blueprint::builder()
+        .nonseasonal(1, 0, 0)
+        .mean_term(false)
+        .build()
+        .unwrap()
+        .fit(&x)
+        .unwrap();
+    let check = fit.residual_check(16, 0.05).unwrap();
+    assert!(!check.white, "{fit}");
+}

@@ -165,3 +165,21 @@ fn rows_of_an_ndarray() {
     }
     assert!(Fleet::builder().threads(0).build().is_err());
 }
+
+#[test]
+fn order_search_per_series() {
+    let sim = Simulator::builder().autoregressive(&[0.7]).build().unwrap();
+    let data: Vec<Vec<f64>> = (0..6).map(|i| sim.generate(300, 40 + i)).collect();
+    let refs: Vec<&[f64]> = data.iter().map(|s| s.as_slice()).collect();
+    let report = Fleet::builder()
+        .threads(2)
+        .build()
+        .unwrap()
+        .search_slices(&lagwise::SearchSettings::new(1), &refs);
+    assert_eq!(report.fitted(), 6);
+    for (_, r) in &report.outcomes {
+        let s = r.as_ref().unwrap();
+        assert!(s.search_note.as_ref().unwrap().contains("chose"));
+        assert!(s.shape.starts_with("AR"));
+    }
+}
