@@ -51,6 +51,8 @@ pub(crate) struct Prepared {
     /// filtered cross-products do not cancel catastrophically; the likelihood's GLS
     /// estimates are corrections to these.
     pub beta_offset: Vec<f64>,
+    /// Power-of-two factor the data were divided by (results are multiplied back).
+    pub data_scale: f64,
 }
 
 /// Apply `(1 − B)^d (1 − B^s)^D` to `x`, returning a series shorter by `d + D·s`.
@@ -137,7 +139,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         .iter()
         .filter(|t| bp.held_value(**t).is_none())
         .count();
-    let s = crate::series::screen(series, WHAT, 1, crate::series::ConstantPolicy::Refuse)?;
+    let s = crate::series::screen(series, WHAT, 2, crate::series::ConstantPolicy::Refuse)?;
     if series.len() <= loss {
         return Err(Error::new(ErrorKind::TooShort {
             what: WHAT,
@@ -145,14 +147,18 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
             needed: loss + estimated + 2,
         }));
     }
-    let mut y = series.to_vec();
+    // Work in exactly rescaled units (a power of two) so that readings near 1e±300 neither
+    // overflow nor underflow in sums of squares; results are scaled back in `fit`.
+    let data_scale = s.scale;
+    let inv = 1.0 / data_scale;
+    let mut y: Vec<f64> = series.iter().map(|v| v * inv).collect();
     let mut profiled = Vec::new();
     for term in regression_terms(bp) {
         match bp.held_value(term) {
             Some(v) => {
                 let col = regression_column(term, y.len(), regressors);
                 for (yi, c) in y.iter_mut().zip(col) {
-                    *yi -= v * c;
+                    *yi -= v * inv * c;
                 }
             }
             None => profiled.push(term),
@@ -224,6 +230,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
     }
     Ok(Prepared {
         beta_offset,
+        data_scale,
         original_len: series.len(),
         n,
         data,

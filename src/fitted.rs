@@ -451,6 +451,28 @@ fn fit_prepared(
             beta_cov = Some(factor.iter().map(|v| v * s2).collect());
         }
     }
+    // Back to the caller's units: regression coefficients and their covariance, σ², and
+    // the log-likelihood (x = scale·x̃ shifts log L by −m·ln scale).
+    let scale = prep.data_scale;
+    for b in beta.iter_mut() {
+        *b *= scale;
+    }
+    if let Some(cov) = beta_cov.as_mut() {
+        cov.iter_mut().for_each(|v| *v *= scale * scale);
+    }
+    ev.innovation_variance *= scale * scale;
+    ev.neg_log_likelihood += ev.used as f64 * scale.ln();
+    let representable = ev.innovation_variance > 0.0
+        && ev.innovation_variance.is_finite()
+        && ev.neg_log_likelihood.is_finite();
+    if !representable {
+        return Err(Error::numerical(
+            "fit",
+            format!(
+                "the innovation variance is not representable in f64 at this scale (readings of order {scale:e}); rescale the readings"
+            ),
+        ));
+    }
     let loss = bp.differencing_loss();
     // Residuals on the original time axis.
     let mut residuals = vec![f64::NAN; prep.original_len];
@@ -466,11 +488,11 @@ fn fit_prepared(
         }
         let mut v = innov[t];
         for c in 1..k {
-            v -= (beta[c - 1] - prep.beta_offset[c - 1]) * innov[c * n + t];
+            v -= (beta[c - 1] / scale - prep.beta_offset[c - 1]) * innov[c * n + t];
         }
         let f = fvar.map_or(1.0, |fv| fv[t]);
-        residuals[t + loss] = v;
-        standardized[t + loss] = v / (sd * f.sqrt());
+        residuals[t + loss] = v * scale;
+        standardized[t + loss] = v * scale / (sd * f.sqrt());
     }
     // Covariance from the Hessian of −log L over free ARMA and profiled regression terms.
     let mut warnings = Vec::new();
@@ -1026,7 +1048,7 @@ impl LikelihoodSurface {
         let result = if ok {
             let mut ev = std::mem::take(&mut inner.scratch_eval);
             let r = inner.evaluate(&self.prep, &self.blueprint, &coefs, kind, None, &mut ev);
-            let ll = -ev.neg_log_likelihood;
+            let ll = -ev.neg_log_likelihood - ev.used as f64 * self.prep.data_scale.ln();
             inner.scratch_eval = ev;
             r.map(|()| ll)
         } else {

@@ -84,7 +84,7 @@ pub(crate) fn screen(
             needed: min_present,
         }));
     }
-    if constant == ConstantPolicy::Refuse && lo == hi {
+    if constant == ConstantPolicy::Refuse && lo == hi && present >= 2 {
         return Err(Error::new(ErrorKind::ConstantSeries { what, value: lo }));
     }
     // Pass 1 on exactly-scaled values (no overflow even near f64::MAX), eight lanes.

@@ -319,3 +319,40 @@ fn residual_check_is_not_fooled_by_a_large_first_innovation() {
     let check = fit.residual_check(16, 0.05).unwrap();
     assert!(!check.white, "{fit}");
 }
+
+/// Regression test: residuals are on the caller's scale and centred. For a white-noise
+/// model with a mean they are exactly the readings minus the estimated mean (this caught
+/// regression coefficients mixed between internal and caller units).
+#[test]
+fn residuals_are_readings_minus_fit() {
+    for level in [0.0, 88.0, -3.0e5] {
+        let x = Simulator::builder()
+            .level(level)
+            .innovation_sd(0.2)
+            .build()
+            .unwrap()
+            .generate(300, 9);
+        let fit = Blueprint::builder()
+            .nonseasonal(0, 0, 0)
+            .build()
+            .unwrap()
+            .fit(&x)
+            .unwrap();
+        let mean = fit.coefficient(Term::Mean).unwrap().value;
+        for (r, v) in fit.residuals().iter().zip(&x) {
+            assert!(
+                (r - (v - mean)).abs() < 1e-9 * level.abs().max(1.0),
+                "level {level}: {r} vs {}",
+                v - mean
+            );
+        }
+        let arma = Blueprint::builder()
+            .nonseasonal(1, 0, 1)
+            .build()
+            .unwrap()
+            .fit(&x)
+            .unwrap();
+        let m = arma.residuals().iter().sum::<f64>() / 300.0;
+        assert!(m.abs() < 0.05, "level {level}: residual mean {m}");
+    }
+}

@@ -26,3 +26,18 @@ fn replay(target: &str, run: fn(&[u8])) -> usize {
 fn correlogram_corpus() {
     assert!(replay("correlogram", harness::correlogram) >= 8);
 }
+
+#[test]
+fn fit_corpus() {
+    assert!(replay("fit", harness::fit) >= 10);
+}
+
+#[test]
+fn monitor_corpus() {
+    assert!(replay("monitor", harness::monitor) >= 5);
+}
+
+#[test]
+fn restore_corpus() {
+    assert!(replay("restore", harness::restore) >= 8);
+}

@@ -3,6 +3,7 @@
 
 #![allow(clippy::needless_range_loop)]
 
+mod bad_input_matrix;
 mod common;
 mod correlogram_reference;
 mod estimation_checks;

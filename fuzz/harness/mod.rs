@@ -42,3 +42,145 @@ pub fn correlogram(data: &[u8]) {
     let half = values.len() / 2;
     let _ = lagwise::cross_correlogram(&values[..half], &values[half..2 * half], max_lag);
 }
+
+/// A small byte reader: every decode is total (missing bytes read as zero).
+struct Bytes<'a> {
+    data: &'a [u8],
+    pos: usize,
+}
+
+impl<'a> Bytes<'a> {
+    fn new(data: &'a [u8]) -> Self {
+        Bytes { data, pos: 0 }
+    }
+    fn byte(&mut self) -> u8 {
+        let b = self.data.get(self.pos).copied().unwrap_or(0);
+        self.pos += 1;
+        b
+    }
+    fn f64(&mut self) -> f64 {
+        let mut b = [0u8; 8];
+        for x in &mut b {
+            *x = self.byte();
+        }
+        f64::from_le_bytes(b)
+    }
+    /// Remaining bytes as readings; a few bytes per reading so short inputs still make
+    /// series: two-byte readings scaled, with 0xFFFF = NaN and 0xFFFE = +inf.
+    fn readings(&mut self, raw: bool) -> Vec<f64> {
+        let rest = &self.data[self.pos.min(self.data.len())..];
+        if raw {
+            return rest
+                .chunks_exact(8)
+                .map(|c| f64::from_le_bytes([c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]]))
+                .collect();
+        }
+        rest.chunks_exact(2)
+            .map(|c| match u16::from_le_bytes([c[0], c[1]]) {
+                0xFFFF => f64::NAN,
+                0xFFFE => f64::INFINITY,
+                v => (v as f64 - 32768.0) / 256.0,
+            })
+            .collect()
+    }
+}
+
+/// Decode a blueprint from bytes: orders, differencing, period, mean/drift, estimator,
+/// an optional held coefficient, a small iteration cap. Build errors are fine.
+fn blueprint(b: &mut Bytes<'_>) -> Option<lagwise::Blueprint> {
+    let p = (b.byte() % 4) as usize;
+    let d = (b.byte() % 3) as usize;
+    let q = (b.byte() % 4) as usize;
+    let sp = (b.byte() % 2) as usize;
+    let sd = (b.byte() % 2) as usize;
+    let sq = (b.byte() % 2) as usize;
+    let period = (b.byte() % 14) as usize;
+    let flags = b.byte();
+    let mut builder = lagwise::Blueprint::builder();
+    builder
+        .nonseasonal(p, d, q)
+        .periodic(sp, sd, sq, period)
+        .estimator(match flags % 3 {
+            0 => lagwise::Estimator::ConditionalSumOfSquares,
+            1 => lagwise::Estimator::ExactLikelihood,
+            _ => lagwise::Estimator::StagedLikelihood,
+        })
+        .max_iterations(20);
+    if flags & 4 != 0 {
+        builder.mean_term(flags & 8 != 0);
+    }
+    if flags & 16 != 0 {
+        builder.drift_term(true);
+    }
+    if flags & 32 != 0 {
+        let v = b.f64();
+        builder.hold(lagwise::Term::Ar(1), v);
+    }
+    builder.build().ok()
+}
+
+/// Fitting: bytes → specification + series; then the residual check, criteria and a
+/// forecast, whatever the outcome of the fit. Checks invariants of successful fits.
+pub fn fit(data: &[u8]) {
+    let mut b = Bytes::new(data);
+    let raw = b.byte() & 1 == 1;
+    let Some(bp) = blueprint(&mut b) else { return };
+    let x = b.readings(raw);
+    if x.len() > 400 {
+        return;
+    }
+    let Ok(fit) = bp.fit(&x) else { return };
+    assert!(fit.innovation_variance() > 0.0 && fit.innovation_variance().is_finite());
+    for c in fit.coefficients() {
+        assert!(c.value.is_finite(), "{c:?}");
+    }
+    assert!(fit.stages().iter().all(|s| s.iterations <= 20 * 4));
+    let _ = fit.residual_check(fit.default_check_lags(), 0.05);
+    let _ = fit.criteria();
+    let _ = format!("{fit}");
+    if let Ok(fc) = fit.forecast(5, &[0.8, 0.95]) {
+        for s in &fc.steps {
+            assert!(s.sd >= 0.0 || s.sd.is_nan());
+        }
+    }
+}
+
+/// Forecasting and online updating: fit a fixed small model to the first half, then feed
+/// the second half (any values) to the monitor and forecast from it.
+pub fn monitor(data: &[u8]) {
+    let mut b = Bytes::new(data);
+    let alarm = (b.byte() as f64 + 1.0) / 257.0;
+    let horizon = b.byte() as usize;
+    let x = b.readings(false);
+    let half = x.len() / 2;
+    let Ok(bp) = lagwise::Blueprint::builder()
+        .nonseasonal(1, 0, 1)
+        .max_iterations(20)
+        .build()
+    else {
+        return;
+    };
+    let Ok(fit) = bp.fit(&x[..half]) else { return };
+    let Ok(mut m) = fit.monitor(alarm) else {
+        return;
+    };
+    for &r in &x[half..] {
+        let _ = m.observe(r);
+    }
+    let _ = m.forecast(horizon, &[alarm]);
+    let _ = fit.forecast(horizon, &[0.5, alarm]);
+}
+
+/// Deserialising stored models and monitors: arbitrary text must be refused cleanly.
+pub fn restore(data: &[u8]) {
+    let text = String::from_utf8_lossy(data);
+    if let Ok(m) = lagwise::persist::model_from_json(&text) {
+        let _ = m.forecast(3, &[0.9]);
+        let _ = m.monitor(0.99).map(|mut mon| mon.observe(1.0));
+    }
+    if let Ok(mut mon) = lagwise::persist::monitor_from_json(&text) {
+        let _ = mon.observe(1.0);
+        let _ = mon.forecast(3, &[0.9]);
+    }
+    let _ = lagwise::persist::blueprint_from_json(&text);
+}

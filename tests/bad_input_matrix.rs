@@ -1,0 +1,449 @@
+//! The bad-input matrix: each class of bad input against each entry point, with the exact
+//! typed error (variant) expected, or "ok" where the input is handled by design (NaN =
+//! missing reading; extreme but finite values; stuck-sensor steps). Nothing here may
+//! panic; every row runs.
+
+use lagwise::search::{TrendTerms, augmented_dickey_fuller, kpss, search_orders};
+use lagwise::{
+    Blueprint, Correlogram, InformationCriteria, PortmanteauScan, SearchSettings, Simulator,
+    cross_correlogram, kalman::exact_log_likelihood, persist,
+};
+
+fn variant<T>(r: lagwise::Result<T>) -> String {
+    match r {
+        Ok(_) => "ok".into(),
+        Err(e) => {
+            let s = format!("{:?}", e.kind());
+            s.split([' ', '{', '(']).next().unwrap_or("").to_string()
+        }
+    }
+}
+
+fn ar1() -> Blueprint {
+    Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap()
+}
+
+#[test]
+fn matrix() {
+    let good: Vec<f64> = Simulator::builder()
+        .autoregressive(&[0.5])
+        .build()
+        .unwrap()
+        .generate(200, 1);
+    let mut with_nan = good.clone();
+    with_nan[10] = f64::NAN;
+    with_nan[11] = f64::NAN;
+    let mut with_inf = good.clone();
+    with_inf[5] = f64::NEG_INFINITY;
+    let huge: Vec<f64> = good.iter().map(|v| v * 1e300).collect();
+    let tiny: Vec<f64> = good.iter().map(|v| v * 1e-300).collect();
+    let stuck: Vec<f64> = (0..200).map(|t| (t / 25) as f64).collect(); // integer-like steps
+    let constant = vec![4.2; 200];
+    let all_nan = vec![f64::NAN; 50];
+    let fit = ar1().fit(&good).unwrap();
+
+    type Row = (&'static str, &'static str, String, &'static str);
+    let rows: Vec<Row> = vec![
+        // NaN: handled everywhere.
+        (
+            "nan",
+            "correlogram",
+            variant(Correlogram::compute(&with_nan, 10)),
+            "ok",
+        ),
+        (
+            "nan",
+            "portmanteau",
+            variant(PortmanteauScan::compute(&with_nan, 10, 1)),
+            "ok",
+        ),
+        ("nan", "fit", variant(ar1().fit(&with_nan)), "ok"),
+        (
+            "nan",
+            "exact likelihood",
+            variant(exact_log_likelihood(&[0.5], &[], 1.0, &with_nan)),
+            "ok",
+        ),
+        (
+            "nan",
+            "kpss",
+            variant(kpss(&with_nan, TrendTerms::Level)),
+            "ok",
+        ),
+        (
+            "nan",
+            "monitor",
+            variant(fit.monitor(0.99).unwrap().observe(f64::NAN)),
+            "ok",
+        ),
+        // ±inf
+        (
+            "inf",
+            "correlogram",
+            variant(Correlogram::compute(&with_inf, 10)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "cross-correlogram",
+            variant(cross_correlogram(&good, &with_inf, 5)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "portmanteau",
+            variant(PortmanteauScan::compute(&with_inf, 10, 0)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "fit",
+            variant(ar1().fit(&with_inf)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "exact likelihood",
+            variant(exact_log_likelihood(&[0.5], &[], 1.0, &with_inf)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "kpss",
+            variant(kpss(&with_inf, TrendTerms::Level)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "adf",
+            variant(augmented_dickey_fuller(&with_inf, TrendTerms::Level)),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "search",
+            variant(search_orders(&with_inf, &SearchSettings::new(1))),
+            "NonFiniteReading",
+        ),
+        (
+            "inf",
+            "monitor",
+            variant(fit.monitor(0.99).unwrap().observe(f64::INFINITY)),
+            "NonFiniteReading",
+        ),
+        // empty
+        (
+            "empty",
+            "correlogram",
+            variant(Correlogram::compute(&[], 0)),
+            "EmptySeries",
+        ),
+        (
+            "empty",
+            "portmanteau",
+            variant(PortmanteauScan::compute(&[], 1, 0)),
+            "EmptySeries",
+        ),
+        ("empty", "fit", variant(ar1().fit(&[])), "EmptySeries"),
+        (
+            "empty",
+            "exact likelihood",
+            variant(exact_log_likelihood(&[], &[], 1.0, &[])),
+            "EmptySeries",
+        ),
+        (
+            "empty",
+            "kpss",
+            variant(kpss(&[], TrendTerms::Level)),
+            "EmptySeries",
+        ),
+        (
+            "empty",
+            "search",
+            variant(search_orders(&[], &SearchSettings::new(1))),
+            "EmptySeries",
+        ),
+        // one reading
+        (
+            "one reading",
+            "correlogram",
+            variant(Correlogram::compute(&[1.0], 0)),
+            "TooShort",
+        ),
+        ("one reading", "fit", variant(ar1().fit(&[1.0])), "TooShort"),
+        (
+            "one reading",
+            "kpss",
+            variant(kpss(&[1.0], TrendTerms::Level)),
+            "TooShort",
+        ),
+        // shorter than the model needs
+        (
+            "too short",
+            "fit",
+            variant(
+                Blueprint::builder()
+                    .nonseasonal(3, 1, 3)
+                    .build()
+                    .unwrap()
+                    .fit(&good[..6]),
+            ),
+            "TooShort",
+        ),
+        (
+            "too short",
+            "seasonal fit",
+            variant(
+                Blueprint::builder()
+                    .periodic(0, 1, 1, 12)
+                    .build()
+                    .unwrap()
+                    .fit(&good[..12]),
+            ),
+            "TooShort",
+        ),
+        (
+            "too short",
+            "adf",
+            variant(augmented_dickey_fuller(&good[..10], TrendTerms::Level)),
+            "TooShort",
+        ),
+        // constant
+        (
+            "constant",
+            "correlogram",
+            variant(Correlogram::compute(&constant, 5)),
+            "ConstantSeries",
+        ),
+        (
+            "constant",
+            "fit",
+            variant(ar1().fit(&constant)),
+            "ConstantSeries",
+        ),
+        (
+            "constant",
+            "kpss",
+            variant(kpss(&constant, TrendTerms::Level)),
+            "ConstantSeries",
+        ),
+        (
+            "constant",
+            "search",
+            variant(search_orders(&constant, &SearchSettings::new(1))),
+            "ConstantSeries",
+        ),
+        // all missing
+        (
+            "all missing",
+            "correlogram",
+            variant(Correlogram::compute(&all_nan, 5)),
+            "AllMissing",
+        ),
+        (
+            "all missing",
+            "fit",
+            variant(ar1().fit(&all_nan)),
+            "AllMissing",
+        ),
+        (
+            "all missing",
+            "exact likelihood",
+            variant(exact_log_likelihood(&[0.5], &[], 1.0, &all_nan)),
+            "AllMissing",
+        ),
+        // extreme but finite values: handled
+        (
+            "1e300",
+            "correlogram",
+            variant(Correlogram::compute(&huge, 10)),
+            "ok",
+        ),
+        (
+            "1e-300",
+            "correlogram",
+            variant(Correlogram::compute(&tiny, 10)),
+            "ok",
+        ),
+        (
+            "1e300",
+            "fit",
+            variant(ar1().fit(&huge)),
+            "NumericalFailure",
+        ),
+        // σ² of readings of order 1e±300 is of order 1e±600: not representable in f64,
+        // so the fit says so; the correlogram works on rescaled values and is fine.
+        (
+            "1e-300",
+            "fit",
+            variant(ar1().fit(&tiny)),
+            "NumericalFailure",
+        ),
+        (
+            "1e150",
+            "fit",
+            variant(ar1().fit(&good.iter().map(|v| v * 1e150).collect::<Vec<_>>())),
+            "ok",
+        ),
+        (
+            "1e-150",
+            "fit",
+            variant(ar1().fit(&good.iter().map(|v| v * 1e-150).collect::<Vec<_>>())),
+            "ok",
+        ),
+        // stuck sensor: integer-like steps are a valid (if poorly modelled) series
+        (
+            "stuck steps",
+            "correlogram",
+            variant(Correlogram::compute(&stuck, 10)),
+            "ok",
+        ),
+        ("stuck steps", "fit", variant(ar1().fit(&stuck)), "ok"),
+        // absurd orders and periods: refused when the blueprint is built
+        (
+            "absurd orders",
+            "blueprint",
+            variant(Blueprint::builder().nonseasonal(500, 0, 0).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "absurd orders",
+            "blueprint",
+            variant(Blueprint::builder().periodic(1, 0, 0, 1_000_000).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "period 0",
+            "blueprint",
+            variant(Blueprint::builder().periodic(1, 0, 0, 0).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "period 1",
+            "blueprint",
+            variant(Blueprint::builder().periodic(0, 1, 1, 1).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "period 1",
+            "seasonal strength",
+            variant(lagwise::search::seasonal_strength(&good, 1)),
+            "InvalidArgument",
+        ),
+        (
+            "lag too large",
+            "correlogram",
+            variant(Correlogram::compute(&good, 200)),
+            "InvalidArgument",
+        ),
+        // regressor shapes
+        (
+            "regressor count",
+            "fit",
+            variant(
+                Blueprint::builder()
+                    .exogenous(1)
+                    .build()
+                    .unwrap()
+                    .fit(&good),
+            ),
+            "InvalidArgument",
+        ),
+        (
+            "regressor length",
+            "fit",
+            variant(
+                Blueprint::builder()
+                    .exogenous(1)
+                    .build()
+                    .unwrap()
+                    .fit_regression(&good, &[&good[..50]]),
+            ),
+            "LengthMismatch",
+        ),
+        (
+            "regressor length",
+            "cross-correlogram",
+            variant(cross_correlogram(&good, &good[..50], 5)),
+            "LengthMismatch",
+        ),
+        (
+            "future regressors",
+            "forecast",
+            variant(
+                Blueprint::builder()
+                    .exogenous(1)
+                    .build()
+                    .unwrap()
+                    .fit_regression(&good, &[&stuck])
+                    .unwrap()
+                    .forecast(3, &[0.9]),
+            ),
+            "InvalidArgument",
+        ),
+        // corrupted JSON
+        (
+            "corrupt json",
+            "model",
+            variant(persist::model_from_json("{\"schema\":")),
+            "CorruptStore",
+        ),
+        (
+            "corrupt json",
+            "monitor",
+            variant(persist::monitor_from_json("[1,2,3]")),
+            "CorruptStore",
+        ),
+        (
+            "corrupt json",
+            "blueprint",
+            variant(persist::blueprint_from_json(
+                "{\"schema\":\"lagwise.blueprint\",\"version\":1,\"body\":{}}",
+            )),
+            "CorruptStore",
+        ),
+        // invalid levels and counts
+        (
+            "level 1.0",
+            "bands",
+            variant(
+                Correlogram::compute(&good, 5)
+                    .unwrap()
+                    .bands(1.0, lagwise::BandRule::WhiteNoise),
+            ),
+            "InvalidArgument",
+        ),
+        (
+            "level NaN",
+            "forecast",
+            variant(fit.forecast(3, &[f64::NAN])),
+            "InvalidArgument",
+        ),
+        (
+            "alarm 0",
+            "monitor",
+            variant(fit.monitor(0.0)),
+            "InvalidArgument",
+        ),
+        (
+            "nan log L",
+            "criteria",
+            variant(InformationCriteria::from_log_likelihood(f64::NAN, 2, 10)),
+            "InvalidArgument",
+        ),
+    ];
+    let mut wrong = Vec::new();
+    for (class, entry, got, want) in &rows {
+        if got != want {
+            wrong.push(format!("{class} → {entry}: got {got}, expected {want}"));
+        }
+    }
+    assert!(
+        wrong.is_empty(),
+        "{} of {} rows wrong:\n{}",
+        wrong.len(),
+        rows.len(),
+        wrong.join("\n")
+    );
+    assert!(rows.len() >= 50);
+}
