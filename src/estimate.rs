@@ -520,22 +520,8 @@ impl EvalWorkspace {
     fn expand(&mut self, c: &Coefs, period: usize) {
         expand_into(&c.f[0], &c.f[2], period, false, &mut self.phi);
         expand_into(&c.f[1], &c.f[3], period, true, &mut self.theta);
-        self.ar_nz.clear();
-        self.ar_nz.extend(
-            self.phi
-                .iter()
-                .enumerate()
-                .filter(|(_, v)| **v != 0.0)
-                .map(|(i, v)| (i + 1, *v)),
-        );
-        self.ma_nz.clear();
-        self.ma_nz.extend(
-            self.theta
-                .iter()
-                .enumerate()
-                .filter(|(_, v)| **v != 0.0)
-                .map(|(i, v)| (i + 1, *v)),
-        );
+        crate::kalman::nonzero_lags(&self.phi, &mut self.ar_nz);
+        crate::kalman::nonzero_lags(&self.theta, &mut self.ma_nz);
     }
 
     /// Evaluate the objective at natural coefficients `c`. With `beta` given, the

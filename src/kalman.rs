@@ -93,21 +93,8 @@ impl KalmanWorkspace {
         self.phi[..p].copy_from_slice(phi);
         self.rvec[0] = 1.0;
         self.rvec[1..=q].copy_from_slice(theta);
-        self.ar_nz.clear();
-        self.ar_nz.extend(
-            phi.iter()
-                .enumerate()
-                .filter(|(_, v)| **v != 0.0)
-                .map(|(i, v)| (i + 1, *v)),
-        );
-        self.ma_nz.clear();
-        self.ma_nz.extend(
-            theta
-                .iter()
-                .enumerate()
-                .filter(|(_, v)| **v != 0.0)
-                .map(|(i, v)| (i + 1, *v)),
-        );
+        nonzero_lags(phi, &mut self.ar_nz);
+        nonzero_lags(theta, &mut self.ma_nz);
         resize(&mut self.p, r * r);
         resize(&mut self.pn, (r + 1) * (r + 1));
         resize(&mut self.kcol, r);
@@ -539,6 +526,64 @@ enum Phase {
     Direct,
 }
 
+/// The non-zero coefficients of a lag polynomial as `(lag, coefficient)` pairs (1-based
+/// lags), written into `out` without allocating once it has grown.
+pub(crate) fn nonzero_lags(coefs: &[f64], out: &mut Vec<(usize, f64)>) {
+    out.clear();
+    out.extend(
+        coefs
+            .iter()
+            .enumerate()
+            .filter(|(_, v)| **v != 0.0)
+            .map(|(i, v)| (i + 1, *v)),
+    );
+}
+
+/// Dense small shapes (non-zero lags exactly `1..=p` and `1..=q`, `p, q ≤ 3`) as arrays,
+/// for the specialised kernels; `None` for any other shape.
+fn dense_small(
+    ar_nz: &[(usize, f64)],
+    ma_nz: &[(usize, f64)],
+) -> Option<(usize, usize, [f64; 3], [f64; 3])> {
+    let dense = |nz: &[(usize, f64)]| nz.iter().enumerate().all(|(k, e)| e.0 == k + 1);
+    if !(dense(ar_nz) && dense(ma_nz) && ar_nz.len() <= 3 && ma_nz.len() <= 3) {
+        return None;
+    }
+    let mut phi = [0.0; 3];
+    let mut theta = [0.0; 3];
+    for (k, e) in ar_nz.iter().enumerate() {
+        phi[k] = e.1;
+    }
+    for (k, e) in ma_nz.iter().enumerate() {
+        theta[k] = e.1;
+    }
+    Some((ar_nz.len(), ma_nz.len(), phi, theta))
+}
+
+/// Call `$kernel::<P, Q>($args…)` for the runtime shape `($p, $q)`, `P, Q ≤ 3`.
+macro_rules! dispatch_small {
+    ($p:expr, $q:expr, $kernel:ident, $($arg:expr),*) => {
+        match ($p, $q) {
+            (0, 0) => $kernel::<0, 0>($($arg),*),
+            (0, 1) => $kernel::<0, 1>($($arg),*),
+            (0, 2) => $kernel::<0, 2>($($arg),*),
+            (0, 3) => $kernel::<0, 3>($($arg),*),
+            (1, 0) => $kernel::<1, 0>($($arg),*),
+            (1, 1) => $kernel::<1, 1>($($arg),*),
+            (1, 2) => $kernel::<1, 2>($($arg),*),
+            (1, 3) => $kernel::<1, 3>($($arg),*),
+            (2, 0) => $kernel::<2, 0>($($arg),*),
+            (2, 1) => $kernel::<2, 1>($($arg),*),
+            (2, 2) => $kernel::<2, 2>($($arg),*),
+            (2, 3) => $kernel::<2, 3>($($arg),*),
+            (3, 0) => $kernel::<3, 0>($($arg),*),
+            (3, 1) => $kernel::<3, 1>($($arg),*),
+            (3, 2) => $kernel::<3, 2>($($arg),*),
+            _ => $kernel::<3, 3>($($arg),*),
+        }
+    };
+}
+
 /// `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` for `t` in `start..end` (all lags in range).
 ///
 /// Dense small shapes (non-zero lags exactly `1..=p` and `1..=q`, `p, q ≤ 3`) run a
@@ -553,42 +598,11 @@ pub(crate) fn direct_recursion(
     ar_nz: &[(usize, f64)],
     ma_nz: &[(usize, f64)],
 ) {
-    let dense = |nz: &[(usize, f64)]| nz.iter().enumerate().all(|(k, e)| e.0 == k + 1);
     if start >= end {
         return;
     }
-    if dense(ar_nz) && dense(ma_nz) && ar_nz.len() <= 3 && ma_nz.len() <= 3 {
-        let mut phi = [0.0; 3];
-        let mut theta = [0.0; 3];
-        for (k, e) in ar_nz.iter().enumerate() {
-            phi[k] = e.1;
-        }
-        for (k, e) in ma_nz.iter().enumerate() {
-            theta[k] = e.1;
-        }
-        macro_rules! go {
-            ($p:literal, $q:literal) => {
-                dense_kernel::<$p, $q>(w, v, start, end, &phi, &theta)
-            };
-        }
-        match (ar_nz.len(), ma_nz.len()) {
-            (0, 0) => go!(0, 0),
-            (0, 1) => go!(0, 1),
-            (0, 2) => go!(0, 2),
-            (0, 3) => go!(0, 3),
-            (1, 0) => go!(1, 0),
-            (1, 1) => go!(1, 1),
-            (1, 2) => go!(1, 2),
-            (1, 3) => go!(1, 3),
-            (2, 0) => go!(2, 0),
-            (2, 1) => go!(2, 1),
-            (2, 2) => go!(2, 2),
-            (2, 3) => go!(2, 3),
-            (3, 0) => go!(3, 0),
-            (3, 1) => go!(3, 1),
-            (3, 2) => go!(3, 2),
-            _ => go!(3, 3),
-        }
+    if let Some((p, q, phi, theta)) = dense_small(ar_nz, ma_nz) {
+        dispatch_small!(p, q, dense_kernel, w, v, start, end, &phi, &theta);
         return;
     }
     for t in start..end {
@@ -652,46 +666,25 @@ pub(crate) fn direct_recursion_pair(
     ar_nz: &[(usize, f64)],
     ma_nz: &[(usize, f64)],
 ) -> bool {
-    let dense = |nz: &[(usize, f64)]| nz.iter().enumerate().all(|(k, e)| e.0 == k + 1);
-    if !(dense(ar_nz) && dense(ma_nz) && ar_nz.len() <= 3 && ma_nz.len() <= 3) {
+    let Some((p, q, phi, theta)) = dense_small(ar_nz, ma_nz) else {
         return false;
-    }
+    };
     if start >= end {
         return true;
     }
-    let mut phi = [0.0; 3];
-    let mut theta = [0.0; 3];
-    for (k, e) in ar_nz.iter().enumerate() {
-        phi[k] = e.1;
-    }
-    for (k, e) in ma_nz.iter().enumerate() {
-        theta[k] = e.1;
-    }
     let (w0, w1) = w.split_at(n);
     let (v0, v1) = v.split_at_mut(n);
-    macro_rules! go {
-        ($p:literal, $q:literal) => {
-            pair_kernel::<$p, $q>([w0, &w1[..n]], [v0, &mut v1[..n]], start, end, &phi, &theta)
-        };
-    }
-    match (ar_nz.len(), ma_nz.len()) {
-        (0, 0) => go!(0, 0),
-        (0, 1) => go!(0, 1),
-        (0, 2) => go!(0, 2),
-        (0, 3) => go!(0, 3),
-        (1, 0) => go!(1, 0),
-        (1, 1) => go!(1, 1),
-        (1, 2) => go!(1, 2),
-        (1, 3) => go!(1, 3),
-        (2, 0) => go!(2, 0),
-        (2, 1) => go!(2, 1),
-        (2, 2) => go!(2, 2),
-        (2, 3) => go!(2, 3),
-        (3, 0) => go!(3, 0),
-        (3, 1) => go!(3, 1),
-        (3, 2) => go!(3, 2),
-        _ => go!(3, 3),
-    }
+    dispatch_small!(
+        p,
+        q,
+        pair_kernel,
+        [w0, &w1[..n]],
+        [v0, &mut v1[..n]],
+        start,
+        end,
+        &phi,
+        &theta
+    );
     true
 }
 
