@@ -79,7 +79,7 @@ pub struct RankedModel<'a> {
 /// let x = Simulator::builder().autoregressive(&[0.7]).build()?.generate(500, 3);
 /// let a = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x)?;
 /// let b = Blueprint::builder().nonseasonal(2, 0, 1).build()?.fit(&x)?;
-/// let ranked = rank_by_criterion(&[&a, &b], Criterion::Bic)?;
+/// let ranked = rank_by_criterion(&[&a, &b], Criterion::Schwarz)?;
 /// assert_eq!(ranked[0].delta, 0.0);
 /// # Ok(()) }
 /// ```

@@ -7,10 +7,10 @@
 //! that enter the likelihood (after differencing, excluding missing readings).
 //!
 //! ```text
-//! AIC  = −2 log L + 2k                          (Akaike 1974)
-//! AICc = AIC + 2k(k+1)/(n−k−1)                  (Hurvich & Tsai 1989; needs n > k+1)
-//! BIC  = −2 log L + k ln n                      (Schwarz 1978)
-//! HQIC = −2 log L + 2k ln ln n                  (Hannan & Quinn 1979; needs n ≥ 3)
+//! Akaike (1974), AIC:                 2k − 2 log L
+//! Hurvich & Tsai (1989), AICc:        AIC + 2k(k+1)/(n−k−1)      (needs n > k+1)
+//! Schwarz (1978), BIC:                k ln n − 2 log L
+//! Hannan & Quinn (1979), HQIC:        2k ln ln n − 2 log L       (needs n ≥ 3)
 //! ```
 //!
 //! Criteria are only meaningful for full (exact) likelihoods of models fitted to the same
@@ -23,22 +23,22 @@ use crate::error::{Error, Result};
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize, serde::Deserialize)]
 pub enum Criterion {
     /// Akaike's criterion.
-    Aic,
+    Akaike,
     /// Akaike's criterion with the small-sample correction of Hurvich & Tsai.
-    Aicc,
+    AkaikeCorrected,
     /// Schwarz's Bayesian criterion.
-    Bic,
+    Schwarz,
     /// Hannan–Quinn criterion.
-    Hqic,
+    HannanQuinn,
 }
 
 impl std::fmt::Display for Criterion {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str(match self {
-            Criterion::Aic => "AIC",
-            Criterion::Aicc => "AICc",
-            Criterion::Bic => "BIC",
-            Criterion::Hqic => "HQIC",
+            Criterion::Akaike => "AIC",
+            Criterion::AkaikeCorrected => "AICc",
+            Criterion::Schwarz => "BIC",
+            Criterion::HannanQuinn => "HQIC",
         })
     }
 }
@@ -50,9 +50,9 @@ impl std::fmt::Display for Criterion {
 /// # fn main() -> Result<(), lagwise::Error> {
 /// // log L = −100, three estimated parameters (φ, θ and σ²), 50 observations.
 /// let ic = InformationCriteria::from_log_likelihood(-100.0, 3, 50)?;
-/// assert_eq!(ic.aic, 206.0);
-/// assert!((ic.aicc.unwrap() - (206.0 + 24.0 / 46.0)).abs() < 1e-12);
-/// assert_eq!(ic.value(Criterion::Bic), Some(200.0 + 3.0 * 50f64.ln()));
+/// assert_eq!(ic.akaike, 206.0);
+/// assert!((ic.akaike_corrected.unwrap() - (206.0 + 24.0 / 46.0)).abs() < 1e-12);
+/// assert_eq!(ic.value(Criterion::Schwarz), Some(200.0 + 3.0 * 50f64.ln()));
 /// # Ok(()) }
 /// ```
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
@@ -65,13 +65,13 @@ pub struct InformationCriteria {
     /// `n`: observations in the likelihood.
     pub observations: usize,
     /// Akaike's criterion.
-    pub aic: f64,
+    pub akaike: f64,
     /// Corrected AIC; `None` when `n ≤ k + 1`.
-    pub aicc: Option<f64>,
+    pub akaike_corrected: Option<f64>,
     /// Schwarz's criterion.
-    pub bic: f64,
+    pub schwarz: f64,
     /// Hannan–Quinn criterion.
-    pub hqic: f64,
+    pub hannan_quinn: f64,
 }
 
 impl InformationCriteria {
@@ -104,26 +104,27 @@ impl InformationCriteria {
         let k = parameters as f64;
         let n = observations as f64;
         let deviance = -2.0 * log_likelihood;
-        let aic = deviance + 2.0 * k;
-        let aicc = (n - k - 1.0 > 0.0).then(|| aic + 2.0 * k * (k + 1.0) / (n - k - 1.0));
+        let akaike = deviance + 2.0 * k;
+        let akaike_corrected =
+            (n - k - 1.0 > 0.0).then(|| akaike + 2.0 * k * (k + 1.0) / (n - k - 1.0));
         Ok(InformationCriteria {
             log_likelihood,
             parameters,
             observations,
-            aic,
-            aicc,
-            bic: deviance + k * n.ln(),
-            hqic: deviance + 2.0 * k * n.ln().ln(),
+            akaike,
+            akaike_corrected,
+            schwarz: deviance + k * n.ln(),
+            hannan_quinn: deviance + 2.0 * k * n.ln().ln(),
         })
     }
 
     /// The value of one criterion (`None` only for AICc when undefined).
     pub fn value(&self, criterion: Criterion) -> Option<f64> {
         match criterion {
-            Criterion::Aic => Some(self.aic),
-            Criterion::Aicc => self.aicc,
-            Criterion::Bic => Some(self.bic),
-            Criterion::Hqic => Some(self.hqic),
+            Criterion::Akaike => Some(self.akaike),
+            Criterion::AkaikeCorrected => self.akaike_corrected,
+            Criterion::Schwarz => Some(self.schwarz),
+            Criterion::HannanQuinn => Some(self.hannan_quinn),
         }
     }
 }
@@ -138,6 +139,6 @@ mod tests {
         assert!(InformationCriteria::from_log_likelihood(1.0, 0, 10).is_err());
         assert!(InformationCriteria::from_log_likelihood(1.0, 2, 2).is_err());
         let ic = InformationCriteria::from_log_likelihood(1.0, 4, 5).unwrap();
-        assert!(ic.aicc.is_none() && ic.value(Criterion::Aicc).is_none());
+        assert!(ic.akaike_corrected.is_none() && ic.value(Criterion::AkaikeCorrected).is_none());
     }
 }

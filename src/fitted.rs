@@ -872,7 +872,7 @@ impl fmt::Display for FittedModel {
         writeln!(
             f,
             "   {:<20} {:>12} {:>11} {:>9}",
-            "term", "value", "± s.e.", "ratio"
+            "term", "value", "± 1 sd", "value/sd"
         )?;
         for e in &self.coefficients {
             match (e.held, e.std_error) {
@@ -915,9 +915,9 @@ impl fmt::Display for FittedModel {
                     write!(
                         f,
                         " · k = {} · AIC {:.3} · BIC {:.3}",
-                        ic.parameters, ic.aic, ic.bic
+                        ic.parameters, ic.akaike, ic.schwarz
                     )?;
-                    if let Some(a) = ic.aicc {
+                    if let Some(a) = ic.akaike_corrected {
                         write!(f, " · AICc {a:.3}")?;
                     }
                 }

@@ -234,9 +234,9 @@ pub fn augmented_dickey_fuller(series: &[f64], terms: TrendTerms) -> Result<Root
                 (target[i] - fit).powi(2)
             })
             .sum();
-        let aic = m * (ssr / m).ln() + 2.0 * cols.len() as f64;
-        if aic < best.0 {
-            best = (aic, k);
+        let info = m * (ssr / m).ln() + 2.0 * cols.len() as f64;
+        if info < best.0 {
+            best = (info, k);
         }
     }
     let k = best.1;
@@ -365,7 +365,7 @@ impl SearchSettings {
             period: period.max(1),
             max_orders: (5, 5, 2, 2),
             differencing: None,
-            criterion: Criterion::Aicc,
+            criterion: Criterion::AkaikeCorrected,
             exhaustive: false,
             alpha: 0.05,
             estimator: Estimator::StagedLikelihood,

@@ -13,8 +13,8 @@ fn fit_ar1(x: &[f64], ws: &mut FitWorkspace) -> lagwise::FittedModel {
 }
 
 /// Brockwell & Davis, Introduction to Time Series and Forecasting, §5.2 (large-sample
-/// distribution of ML estimators): s.e.(φ̂) ≈ √((1−φ²)/n) for an AR(1) and
-/// s.e.(θ̂) ≈ √((1−θ²)/n) for an MA(1). Checked within 8% at n = 5000.
+/// distribution of ML estimators): the standard error of φ̂ is ≈ √((1−φ²)/n) for an AR(1) and
+/// that of θ̂ ≈ √((1−θ²)/n) for an MA(1). Checked within 8% at n = 5000.
 #[test]
 fn asymptotic_standard_errors() {
     let n = 5000;
@@ -43,7 +43,7 @@ fn asymptotic_standard_errors() {
     assert!((se / want - 1.0).abs() < 0.08, "MA(1) se {se} vs {want}");
 }
 
-/// Monte Carlo: nominal 95% intervals φ̂ ± 1.96·s.e. cover the true φ in 93–97% of 600
+/// Monte Carlo: nominal 95% intervals φ̂ ± 1.96 standard errors cover the true φ in 93–97% of 600
 /// simulated AR(1) series (φ = 0.6, n = 300). Binomial sd at 600 draws ≈ 0.9 points.
 #[test]
 fn coverage_of_95_percent_intervals() {

@@ -9,7 +9,7 @@ Writes tests/reference/unitroot.json. Definitions (written from the papers, not 
 crate): KPSS (Kwiatkowski et al. 1992) eta = n^-2 sum S_t^2 / s^2(l), residuals from OLS on
 a constant (level) or constant + trend, Bartlett window l = floor(4 (n/100)^(1/4)).
 ADF: OLS of dy_t on [1, (t), y_{t-1}, dy_{t-1..t-k}], t-ratio of the y_{t-1} coefficient;
-k chosen by AIC = m ln(SSR/m) + 2 (regressors) over k = 0..floor(12 (n/100)^(1/4)) on the
+k chosen by the information measure m ln(SSR/m) + 2 (regressors) over k = 0..floor(12 (n/100)^(1/4)) on the
 common sample starting at kmax, then the chosen k refitted on its own full sample.
 """
 import json
@@ -59,9 +59,9 @@ def adf(y, trend):
         b, *_ = np.linalg.lstsq(X, t, rcond=None)
         r = t - X @ b
         m = len(t)
-        aic = m * np.log(r @ r / m) + 2 * X.shape[1]
-        if best is None or aic < best[0]:
-            best = (aic, k)
+        info = m * np.log(r @ r / m) + 2 * X.shape[1]
+        if best is None or info < best[0]:
+            best = (info, k)
     k = best[1]
     X, t = design(k, k)
     b, *_ = np.linalg.lstsq(X, t, rcond=None)
