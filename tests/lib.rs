@@ -5,6 +5,7 @@
 
 mod bad_input_matrix;
 mod common;
+mod concurrency;
 mod correlogram_reference;
 mod estimation_checks;
 mod fit_corpus;
