@@ -12,6 +12,8 @@ echo "== tests (unit, integration, examples)"
 cargo test --locked --lib --tests --examples
 echo "== doc tests"
 cargo test --locked --doc
+echo "== docs (warnings are errors)"
+RUSTDOCFLAGS="-D warnings" cargo doc --locked --no-deps
 echo "== benches build"
 cargo bench --locked --no-run
 echo "== all checks passed"

@@ -1,7 +1,7 @@
 //! Comparing fitted models: ranking by an information criterion (nested or not) and the
 //! likelihood-ratio test for nested models.
 //!
-//! Both refuse, with [`ErrorKind::NotComparable`](crate::ErrorKind::NotComparable) and a
+//! Both refuse, with [`ErrorKind::NotComparable`] and a
 //! reason, what would be meaningless: conditional (CSS) likelihoods, models fitted to
 //! different readings, or models with different differencing (their likelihoods describe
 //! different data).

@@ -30,6 +30,20 @@
 //! # Ok(()) }
 //! ```
 //!
+//! Fit, check, forecast and watch:
+//! ```
+//! use lagwise::{Blueprint, Simulator};
+//! # fn main() -> Result<(), lagwise::Error> {
+//! let x = Simulator::builder().autoregressive(&[0.7]).level(52.0).build()?.generate(800, 3);
+//! let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x[..700])?;
+//! assert!(fit.residual_check(fit.default_check_lags(), 0.05)?.white);
+//! let day = fit.forecast(96, &[0.8, 0.95])?;
+//! let mut watch = fit.monitor(0.999)?;
+//! let flagged = watch.observe_batch(&x[700..])?.iter().filter(|c| c.outside).count();
+//! assert!(flagged <= 2 && day.steps.len() == 96);
+//! # Ok(()) }
+//! ```
+//!
 //! ## Concepts
 //! **Missing readings are NaN.** Every entry point accepts NaN as "no reading at this
 //! time" and handles it (pairwise-complete sums in correlograms; skipped updates in the
@@ -52,6 +66,14 @@
 //! | [`criteria`] | AIC, AICc, BIC, HQIC |
 //! | [`lag`] | lag polynomials, roots, admissibility |
 //! | [`synth`] | seeded SARIMA simulation |
+//! | [`spec`] | [`Blueprint`]: the model specification and its builder |
+//! | [`kalman`] | state-space form and exact likelihood |
+//! | [`fitted`] | [`Blueprint::fit`], [`FittedModel`], residual checks, [`LikelihoodSurface`] |
+//! | [`compare`] | ranking by criteria, nested likelihood-ratio test |
+//! | [`forecast`] | [`Forecast`] with intervals, online [`Monitor`] |
+//! | [`persist`] | versioned JSON storage |
+//! | [`fleet`] | [`Fleet`]: many series in parallel |
+//! | [`search`] | unit-root tests, automatic order search |
 //!
 //! ## Performance
 //! Correlograms cost `O(n·H)` multiply-adds over cache-sized blocks and allocate only a
@@ -68,8 +90,10 @@
 //!
 //! ## Determinism
 //! Simulation ([`Simulator`]) is bit-stable for a seed across platforms and versions.
-//! Correlograms and portmanteau statistics are deterministic functions of their input
-//! (fixed summation order).
+//! Correlograms, portmanteau statistics and filter recursions are deterministic functions
+//! of their input (fixed summation order). Fits go through an optimiser: they are
+//! reproducible bit for bit on the same build and input, and across builds only to the
+//! optimiser's tolerance. Fleet results are bit-identical whatever the thread count.
 #![forbid(unsafe_code)]
 #![deny(missing_docs)]
 #![warn(missing_debug_implementations, unreachable_pub)]

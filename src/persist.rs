@@ -4,7 +4,7 @@
 //! checks the schema name and version first, then the body's fields (serde reports a
 //! missing or mistyped field by name), then the content itself (lengths, admissible
 //! coefficients, a forecasting state consistent with the coefficients). Every refusal is
-//! [`ErrorKind::CorruptStore`](crate::ErrorKind::CorruptStore) with a message that says
+//! [`ErrorKind::CorruptStore`] with a message that says
 //! which check failed. Workspaces are never stored.
 //!
 //! ```
