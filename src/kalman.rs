@@ -392,8 +392,6 @@ impl KalmanWorkspace {
                         self.rebuild_states(data, n, ncols, t);
                         self.reset_covariance_to_steady();
                         phase = Phase::Full;
-                    } else {
-                        self.rebuild_states(data, n, ncols, n);
                     }
                     continue;
                 }
@@ -405,18 +403,6 @@ impl KalmanWorkspace {
 
     /// The stationary covariance `P₀` (r×r, σ² = 1) right after `set_model`.
     pub(crate) fn stationary_matrix(&self) -> &[f64] {
-        &self.p
-    }
-
-    /// Predicted state (for time `n`) of column `c` after the last pass.
-    #[allow(dead_code)] // used by forecasting (next)
-    pub(crate) fn final_state(&self, c: usize) -> &[f64] {
-        &self.state[c * self.r..(c + 1) * self.r]
-    }
-
-    /// Predicted covariance after the last pass (r×r, σ² = 1 units).
-    #[allow(dead_code)] // used by forecasting (next)
-    pub(crate) fn final_covariance(&self) -> &[f64] {
         &self.p
     }
 
