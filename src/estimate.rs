@@ -25,7 +25,6 @@ use argmin::solver::linesearch::BacktrackingLineSearch;
 use argmin::solver::linesearch::condition::ArmijoCondition;
 use argmin::solver::quasinewton::BFGS;
 
-use crate::correlogram::partial_from_autocorrelations;
 use crate::error::{Error, ErrorKind, Result};
 use crate::kalman::{KalmanWorkspace, direct_recursion};
 use crate::lag;
@@ -613,14 +612,11 @@ impl EvalWorkspace {
         if self.css_innov.len() != k * n {
             self.css_innov.resize(k * n, 0.0);
         }
-        let src: &[f64] = if prep.has_missing {
+        if prep.has_missing {
+            // Missing readings are replaced by predictions: work on a copy.
             self.fill.clear();
             self.fill.extend_from_slice(&prep.data);
-            &self.fill
-        } else {
-            &prep.data
-        };
-        let _ = src;
+        }
         let max_ma = self.ma_nz.last().map_or(0, |e| e.0);
         for c in 0..k {
             let v = &mut self.css_innov[c * n..(c + 1) * n];
@@ -635,15 +631,7 @@ impl EvalWorkspace {
                         }
                         continue;
                     }
-                    let mut pred = 0.0;
-                    for &(i, a) in &self.ar_nz {
-                        pred += a * w[t - i];
-                    }
-                    for &(j, b) in &self.ma_nz {
-                        if t >= j {
-                            pred += b * v[t - j];
-                        }
-                    }
+                    let pred = guarded_prediction(w, v, t, &self.ar_nz, &self.ma_nz);
                     if miss {
                         v[t] = 0.0;
                         w[t] = pred;
@@ -658,15 +646,7 @@ impl EvalWorkspace {
                 }
                 let guarded_end = (cond.max(max_ma)).min(n);
                 for t in cond..guarded_end {
-                    let mut pred = 0.0;
-                    for &(i, a) in &self.ar_nz {
-                        pred += a * w[t - i];
-                    }
-                    for &(j, b) in &self.ma_nz {
-                        if t >= j {
-                            pred += b * v[t - j];
-                        }
-                    }
+                    let pred = guarded_prediction(w, v, t, &self.ar_nz, &self.ma_nz);
                     v[t] = w[t] - pred;
                 }
                 if k != 2 {
@@ -720,6 +700,28 @@ impl EvalWorkspace {
         }
         used
     }
+}
+
+/// One-step CSS prediction at `t ≥ p` with pre-sample residuals taken as zero:
+/// `Σφ_i w_{t−i} + Σ_{j ≤ t} θ_j v_{t−j}`.
+#[inline]
+fn guarded_prediction(
+    w: &[f64],
+    v: &[f64],
+    t: usize,
+    ar_nz: &[(usize, f64)],
+    ma_nz: &[(usize, f64)],
+) -> f64 {
+    let mut pred = 0.0;
+    for &(i, a) in ar_nz {
+        pred += a * w[t - i];
+    }
+    for &(j, b) in ma_nz {
+        if t >= j {
+            pred += b * v[t - j];
+        }
+    }
+    pred
 }
 
 /// Why an optimisation stage stopped.
@@ -1071,12 +1073,6 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
                 w[t] -= fit;
             }
         }
-    } else {
-        let present: Vec<f64> = w.iter().copied().filter(|v| !v.is_nan()).collect();
-        let mean = present.iter().sum::<f64>() / present.len().max(1) as f64;
-        // A model without a mean is fitted around zero: keep the data as is, but start
-        // the AR regression from the centred series for stability.
-        let _ = mean;
     }
     for v in w.iter_mut() {
         if v.is_nan() {
@@ -1114,29 +1110,16 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     if m > 0
         && let Ok(cg) = crate::correlogram::Correlogram::compute(&w, m)
     {
-        let r = cg.autocorrelations();
-        // AR(m) coefficients by Durbin–Levinson.
+        // AR(m) coefficients from the correlogram's partial autocorrelations (kept
+        // inside ±0.999) by the Durbin–Levinson map.
+        let kappa: Vec<f64> = cg
+            .partial_autocorrelations()
+            .iter()
+            .map(|k| k.clamp(-0.999, 0.999))
+            .collect();
         let mut a = vec![0.0; m];
-        let mut prev = vec![0.0; m];
-        let mut vv = 1.0;
-        if partial_from_autocorrelations(r).is_ok() {
-            for kk in 1..=m {
-                let mut num = r[kk];
-                for j in 1..kk {
-                    num -= prev[j - 1] * r[kk - j];
-                }
-                if !(vv > 1e-12) {
-                    break;
-                }
-                let kap = (num / vv).clamp(-0.999, 0.999);
-                for j in 1..kk {
-                    a[j - 1] = prev[j - 1] - kap * prev[kk - j - 1];
-                }
-                a[kk - 1] = kap;
-                vv *= 1.0 - kap * kap;
-                prev[..kk].copy_from_slice(&a[..kk]);
-            }
-        }
+        let mut tmp = vec![0.0; m];
+        lag::coefficients_from_partials(&kappa, &mut a[..kappa.len()], &mut tmp);
         for t in m..n {
             let mut pred = 0.0;
             for j in 1..=m {

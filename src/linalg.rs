@@ -8,23 +8,28 @@ pub(crate) fn cholesky_solve(a: &mut [f64], b: &mut [f64], k: usize) -> bool {
     if !cholesky_factor(a, k) {
         return false;
     }
+    cholesky_substitute(a, b, k);
+    true
+}
+
+/// Solve `L Lᵀ x = b` in place given the lower factor `l` (row-major `k×k`).
+fn cholesky_substitute(l: &[f64], b: &mut [f64], k: usize) {
     // Forward: L y = b
     for i in 0..k {
         let mut s = b[i];
         for j in 0..i {
-            s -= a[i * k + j] * b[j];
+            s -= l[i * k + j] * b[j];
         }
-        b[i] = s / a[i * k + i];
+        b[i] = s / l[i * k + i];
     }
     // Backward: Lᵀ x = y
     for i in (0..k).rev() {
         let mut s = b[i];
         for j in i + 1..k {
-            s -= a[j * k + i] * b[j];
+            s -= l[j * k + i] * b[j];
         }
-        b[i] = s / a[i * k + i];
+        b[i] = s / l[i * k + i];
     }
-    true
 }
 
 /// Lower Cholesky factor in place (upper triangle left untouched). `false` if not SPD.
@@ -65,20 +70,7 @@ pub(crate) fn invert_spd(a: &[f64], k: usize) -> Option<Vec<f64>> {
     for c in 0..k {
         col.iter_mut().for_each(|v| *v = 0.0);
         col[c] = 1.0;
-        for i in 0..k {
-            let mut s = col[i];
-            for j in 0..i {
-                s -= f[i * k + j] * col[j];
-            }
-            col[i] = s / f[i * k + i];
-        }
-        for i in (0..k).rev() {
-            let mut s = col[i];
-            for j in i + 1..k {
-                s -= f[j * k + i] * col[j];
-            }
-            col[i] = s / f[i * k + i];
-        }
+        cholesky_substitute(&f, &mut col, k);
         for i in 0..k {
             inv[i * k + c] = col[i];
         }
