@@ -1061,6 +1061,95 @@ impl LikelihoodSurface {
         result
     }
 
+    fn eval_many(
+        &self,
+        points: &[f64],
+        ws: &mut FitWorkspace,
+        out: &mut Vec<f64>,
+        kind: ObjectiveKind,
+    ) -> Result<()> {
+        let k = self.layout.free_len;
+        if k == 0 || !points.len().is_multiple_of(k) {
+            return Err(Error::invalid(
+                "likelihood surface",
+                format!(
+                    "{} values given; points need {k} free coefficients each (with none \
+                     free, evaluate the single point instead)",
+                    points.len()
+                ),
+            ));
+        }
+        let count = points.len() / k;
+        let inner = &mut ws.inner;
+        let mut coefs = std::mem::take(&mut inner.batch_coefs);
+        let mut slots = std::mem::take(&mut inner.batch_slots);
+        let mut vals = std::mem::take(&mut inner.batch_values);
+        if coefs.len() < count {
+            coefs.resize(count, estimate::Coefs::default());
+        }
+        slots.clear();
+        let mut m = 0;
+        for z in points.chunks_exact(k) {
+            if self.layout.natural_raw(z, &mut coefs[m], inner) {
+                slots.push(Some(m));
+                m += 1;
+            } else {
+                slots.push(None);
+            }
+        }
+        inner.evaluate_batch(&self.prep, &self.blueprint, &coefs[..m], kind, &mut vals);
+        out.clear();
+        let shift = self.prep.data_scale.ln();
+        out.extend(slots.iter().map(|slot| {
+            slot.and_then(|j| vals[j])
+                .map_or(f64::NAN, |(nll, used)| -nll - used as f64 * shift)
+        }));
+        inner.batch_coefs = coefs;
+        inner.batch_slots = slots;
+        inner.batch_values = vals;
+        Ok(())
+    }
+
+    /// Exact log-likelihoods at many points at once: `points` holds
+    /// [`Self::free_coefficients`] values per point, back to back; `out` receives one
+    /// value per point, NaN where the point is not stationary/invertible or the
+    /// evaluation fails. For small shapes (AR and MA lengths ≤ 3 after expansion, at most
+    /// a mean or drift column, no missing readings) up to eight points share one pass over
+    /// the data at about the cost of one; every value is bitwise the one
+    /// [`Self::exact_log_likelihood_with`] returns. Allocation-free once `ws` and `out`
+    /// have grown. Errors if `points.len()` is not a multiple of the point size.
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, FitWorkspace, Simulator};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let x = Simulator::builder().autoregressive(&[0.5]).build()?.generate(400, 3);
+    /// let surface = Blueprint::builder().nonseasonal(1, 0, 0).build()?.likelihood_surface(&x)?;
+    /// let grid: Vec<f64> = (0..9).map(|i| -0.8 + 0.2 * i as f64).collect();
+    /// let mut ws = FitWorkspace::new();
+    /// let mut ll = Vec::new();
+    /// surface.exact_log_likelihoods_with(&grid, &mut ws, &mut ll)?;
+    /// assert_eq!(ll[6], surface.exact_log_likelihood_with(&[0.4], &mut ws)?);
+    /// # Ok(()) }
+    /// ```
+    pub fn exact_log_likelihoods_with(
+        &self,
+        points: &[f64],
+        ws: &mut FitWorkspace,
+        out: &mut Vec<f64>,
+    ) -> Result<()> {
+        self.eval_many(points, ws, out, ObjectiveKind::Exact)
+    }
+
+    /// The conditional (CSS) counterpart of [`Self::exact_log_likelihoods_with`].
+    pub fn conditional_log_likelihoods_with(
+        &self,
+        points: &[f64],
+        ws: &mut FitWorkspace,
+        out: &mut Vec<f64>,
+    ) -> Result<()> {
+        self.eval_many(points, ws, out, ObjectiveKind::Conditional)
+    }
+
     /// Exact log-likelihood (σ² concentrated, regression profiled) at the free ARMA
     /// coefficients `arma`.
     pub fn exact_log_likelihood_with(&self, arma: &[f64], ws: &mut FitWorkspace) -> Result<f64> {

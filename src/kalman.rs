@@ -46,6 +46,9 @@ pub(crate) const STEADY_TOLERANCE: f64 = 1e-14;
 #[derive(Debug, Default, Clone)]
 pub(crate) struct KalmanWorkspace {
     pub(crate) r: usize,
+    /// Nominal AR and MA lengths of the model last set.
+    p_len: usize,
+    q_len: usize,
     phi: Vec<f64>,
     rvec: Vec<f64>,
     ar_nz: Vec<(usize, f64)>,
@@ -88,6 +91,8 @@ impl KalmanWorkspace {
         let q = theta.len();
         let r = p.max(q + 1);
         self.r = r;
+        self.p_len = p;
+        self.q_len = q;
         resize(&mut self.phi, r);
         resize(&mut self.rvec, r);
         self.phi[..p].copy_from_slice(phi);
@@ -272,6 +277,20 @@ impl KalmanWorkspace {
         ncols: usize,
         cross: &mut [f64],
     ) -> PassTotals {
+        self.pass_until(data, n, ncols, cross, false).0
+    }
+
+    /// [`Self::pass`], optionally stopping where the direct phase would begin; then the
+    /// second value is that time `t` (readings before `t` are done, `cross` holds their
+    /// part) and [`Self::lane_at`] gives the state to continue from.
+    pub(crate) fn pass_until(
+        &mut self,
+        data: &[f64],
+        n: usize,
+        ncols: usize,
+        cross: &mut [f64],
+        stop_at_direct: bool,
+    ) -> (PassTotals, Option<usize>) {
         let r = self.r;
         resize(&mut self.state, ncols * r);
         // Every entry of these two is written by the pass: size them, don't clear them.
@@ -351,11 +370,40 @@ impl KalmanWorkspace {
                     };
                 }
                 Phase::Direct => {
+                    if stop_at_direct {
+                        return (totals, Some(t));
+                    }
                     // Tight loop until the next missing reading or the end.
                     let start = t;
                     let mut end = t;
                     while end < n && !data[end].is_nan() {
                         end += 1;
+                    }
+                    if crate::lanes::fits(self.p_len, self.q_len, ncols) {
+                        let mut lane = [self.lane_at(n, ncols, start)];
+                        crate::lanes::run(
+                            data,
+                            n,
+                            ncols,
+                            self.p_len,
+                            self.q_len,
+                            start,
+                            end,
+                            &mut lane,
+                            Some(&mut self.innov[..ncols * n]),
+                        );
+                        add_lane_sums(&lane[0], ncols, cross);
+                        for f in &mut self.fvar[start..end] {
+                            *f = 1.0;
+                        }
+                        totals.used += end - start;
+                        t = end;
+                        if t < n {
+                            self.rebuild_states(data, n, ncols, t);
+                            self.reset_covariance_to_steady();
+                            phase = Phase::Full;
+                        }
+                        continue;
                     }
                     let paired = ncols == 2
                         && direct_recursion_pair(
@@ -398,7 +446,21 @@ impl KalmanWorkspace {
             }
             t += 1;
         }
-        totals
+        (totals, None)
+    }
+
+    /// The lane that continues this filter's direct phase at time `t`: the model's
+    /// coefficients and the innovations before `t` (stored with column stride `n`).
+    pub(crate) fn lane_at(&self, n: usize, ncols: usize, t: usize) -> crate::lanes::Lane {
+        let mut lane = crate::lanes::Lane::default();
+        lane.phi[..self.p_len].copy_from_slice(&self.phi[..self.p_len]);
+        lane.theta[..self.q_len].copy_from_slice(&self.rvec[1..=self.q_len]);
+        for c in 0..ncols {
+            for j in 0..self.q_len {
+                lane.hist[c][j] = self.innov[c * n + t - 1 - j];
+            }
+        }
+        lane
     }
 
     /// The stationary covariance `P₀` (r×r, σ² = 1) right after `set_model`.
@@ -718,6 +780,15 @@ fn pair_kernel<const P: usize, const Q: usize>(
         }
         v0[t] = e0;
         v1[t] = e1;
+    }
+}
+
+/// Add a lane's sums to the upper triangle of `cross` (`ncols ≤ 2`).
+pub(crate) fn add_lane_sums(lane: &crate::lanes::Lane, ncols: usize, cross: &mut [f64]) {
+    cross[0] += lane.acc[0];
+    if ncols == 2 {
+        cross[1] += lane.acc[1];
+        cross[3] += lane.acc[2];
     }
 }
 

@@ -112,6 +112,7 @@ pub mod fleet;
 pub mod forecast;
 pub mod kalman;
 pub mod lag;
+mod lanes;
 mod linalg;
 pub mod persist;
 pub mod search;

@@ -108,5 +108,41 @@ fn likelihood_evaluations_do_not_allocate() {
         // Only the 50 coefficient vectors built by this test itself allocated.
         assert_eq!(ALLOCATIONS.load(Ordering::SeqCst) - before, 50);
         assert!(total.is_finite());
+
+        // Batches of points (lanes where the shape allows): warm up, then none allocate,
+        // and each value is bitwise the single-point value.
+        let grid: Vec<f64> = (0..11)
+            .flat_map(|k| coefs.iter().map(move |v| v * (1.0 - 0.01 * k as f64)))
+            .collect();
+        let (mut exact, mut css) = (Vec::new(), Vec::new());
+        surface
+            .exact_log_likelihoods_with(&grid, &mut ws, &mut exact)
+            .unwrap();
+        surface
+            .conditional_log_likelihoods_with(&grid, &mut ws, &mut css)
+            .unwrap();
+        let before = ALLOCATIONS.load(Ordering::SeqCst);
+        for _ in 0..20 {
+            surface
+                .exact_log_likelihoods_with(&grid, &mut ws, &mut exact)
+                .unwrap();
+            surface
+                .conditional_log_likelihoods_with(&grid, &mut ws, &mut css)
+                .unwrap();
+        }
+        assert_eq!(
+            ALLOCATIONS.load(Ordering::SeqCst),
+            before,
+            "{}: batch evaluations allocated",
+            bp.shape_label()
+        );
+        for (i, point) in grid.chunks(coefs.len()).enumerate() {
+            let one = surface.exact_log_likelihood_with(point, &mut ws).unwrap();
+            assert_eq!(one.to_bits(), exact[i].to_bits(), "exact point {i}");
+            let one = surface
+                .conditional_log_likelihood_with(point, &mut ws)
+                .unwrap();
+            assert_eq!(one.to_bits(), css[i].to_bits(), "conditional point {i}");
+        }
     }
 }

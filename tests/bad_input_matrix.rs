@@ -426,6 +426,50 @@ fn matrix() {
             "InvalidArgument",
         ),
         (
+            "ragged points",
+            "likelihood batch",
+            variant(ar1().likelihood_surface(&good).and_then(|s| {
+                s.exact_log_likelihoods_with(
+                    &[0.1, 0.2, 0.3],
+                    &mut lagwise::FitWorkspace::new(),
+                    &mut Vec::new(),
+                )
+                .and_then(|()| {
+                    Blueprint::builder()
+                        .nonseasonal(2, 0, 0)
+                        .build()?
+                        .likelihood_surface(&good)?
+                        .exact_log_likelihoods_with(
+                            &[0.1, 0.2, 0.3],
+                            &mut lagwise::FitWorkspace::new(),
+                            &mut Vec::new(),
+                        )
+                })
+            })),
+            "InvalidArgument",
+        ),
+        (
+            "nan in batch",
+            "likelihood batch",
+            variant(ar1().likelihood_surface(&with_nan).and_then(|s| {
+                let mut out = Vec::new();
+                s.exact_log_likelihoods_with(
+                    &[0.1, 1.5, f64::NAN, 0.3],
+                    &mut lagwise::FitWorkspace::new(),
+                    &mut out,
+                )?;
+                // Inadmissible and NaN points give NaN values, the rest are finite.
+                if out.len() == 4 && out[1].is_nan() && out[2].is_nan() && out[0].is_finite() {
+                    Ok(())
+                } else {
+                    Err(lagwise::Error::from(lagwise::ErrorKind::Cancelled {
+                        what: "wrong values",
+                    }))
+                }
+            })),
+            "ok",
+        ),
+        (
             "nan log L",
             "criteria",
             variant(InformationCriteria::from_log_likelihood(f64::NAN, 2, 10)),
