@@ -28,10 +28,11 @@ use crate::error::{Error, ErrorKind, Result};
 use crate::estimate::StageRecord;
 use crate::fitted::{
     CoefficientEstimate, FitWarning, FitWorkspace, FittedModel, LogLikelihood, ReadingCounts,
+    ResidualCheck,
 };
 use crate::forecast::Monitor;
 use crate::search::SearchSettings;
-use crate::spec::{Blueprint, Term};
+use crate::spec::{Blueprint, ModelShape, Term};
 
 /// Progress of a running batch, passed to the progress callback.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -54,6 +55,7 @@ pub struct Fleet {
     check_lags: Option<usize>,
     alpha: f64,
     alarm_level: f64,
+    monitors: bool,
     progress: Option<Arc<ProgressFn>>,
     cancel: Option<Arc<AtomicBool>>,
 }
@@ -65,6 +67,7 @@ impl std::fmt::Debug for Fleet {
             .field("check_lags", &self.check_lags)
             .field("alpha", &self.alpha)
             .field("alarm_level", &self.alarm_level)
+            .field("monitors", &self.monitors)
             .field("progress", &self.progress.is_some())
             .field("cancel", &self.cancel.is_some())
             .finish()
@@ -78,6 +81,7 @@ pub struct FleetBuilder {
     check_lags: Option<usize>,
     alpha: Option<f64>,
     alarm_level: Option<f64>,
+    monitors: Option<bool>,
     progress: Option<Arc<ProgressFn>>,
     cancel: Option<Arc<AtomicBool>>,
 }
@@ -109,6 +113,13 @@ impl FleetBuilder {
     /// Alarm level of each series' monitor (default 0.999).
     pub fn alarm_level(&mut self, level: f64) -> &mut Self {
         self.alarm_level = Some(level);
+        self
+    }
+    /// Whether each summary carries a ready [`Monitor`] (default `true`). A monitor is
+    /// about 300 bytes per series; batch analytics that only need the fitted
+    /// coefficients and checks can leave it out.
+    pub fn ready_monitors(&mut self, keep: bool) -> &mut Self {
+        self.monitors = Some(keep);
         self
     }
     /// Called after every finished series with the running counts. Keep it cheap; it
@@ -151,6 +162,7 @@ impl FleetBuilder {
             check_lags: self.check_lags,
             alpha,
             alarm_level,
+            monitors: self.monitors.unwrap_or(true),
             progress: self.progress.clone(),
             cancel: self.cancel.clone(),
         })
@@ -171,21 +183,86 @@ pub struct FitSummary {
     pub criteria: Option<InformationCriteria>,
     /// Reading counts.
     pub counts: ReadingCounts,
-    /// Optimisation stages.
-    pub stages: Vec<StageRecord>,
+    /// The optimisation in brief (every stage is in the single fit's
+    /// [`FittedModel::stages`]).
+    pub optimisation: OptimisationDigest,
     /// Warnings.
     pub warnings: Vec<FitWarning>,
-    /// Ljung–Box p-values of the residual check, lags `1..=H` (`None` where no degrees
-    /// of freedom are left).
-    pub ljung_box_p_values: Vec<Option<f64>>,
-    /// Whether the residuals passed the check (the Ljung–Box test at the last lag).
-    pub residuals_white: bool,
-    /// The fitted shape, e.g. `ARMA(1,1) + mean` (useful after an order search).
-    pub shape: String,
+    /// The residual check, digested (the full per-lag scan is one
+    /// [`FittedModel::residual_check`] away on a single refit).
+    pub whiteness: WhitenessDigest,
+    /// The fitted shape (`Display`: e.g. `ARMA(1,1) + mean`; useful after an order
+    /// search).
+    pub shape: ModelShape,
     /// For order searches: the search's explanation of its choice.
     pub search_note: Option<String>,
-    /// A monitor positioned after the series, ready for new readings.
-    pub monitor: Monitor,
+    /// A monitor positioned after the series, ready for new readings (absent when the
+    /// fleet was built with [`FleetBuilder::ready_monitors`]`(false)`).
+    pub monitor: Option<Box<Monitor>>,
+}
+
+/// The optimisation of one fleet series in brief.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct OptimisationDigest {
+    /// Stages run (1, or 2 for CSS-started likelihood).
+    pub stages: u8,
+    /// Whether every stage met its convergence criterion.
+    pub converged: bool,
+    /// Objective evaluations over all stages.
+    pub evaluations: u32,
+    /// Quasi-Newton iterations over all stages.
+    pub iterations: u32,
+    /// The last stage's record (its objective, gradient norm and stop reason).
+    pub last: StageRecord,
+}
+
+impl OptimisationDigest {
+    fn from_stages(stages: &[StageRecord]) -> Option<Self> {
+        let sat = |v: usize| u32::try_from(v).unwrap_or(u32::MAX);
+        Some(OptimisationDigest {
+            stages: u8::try_from(stages.len()).unwrap_or(u8::MAX),
+            converged: stages.iter().all(|s| s.converged()),
+            evaluations: sat(stages.iter().map(|s| s.evaluations).sum()),
+            iterations: sat(stages.iter().map(|s| s.iterations).sum()),
+            last: *stages.last()?,
+        })
+    }
+}
+
+/// The residual check of one fleet series in a few numbers: the Ljung–Box verdict at the
+/// last checked lag and the weakest lag of the scan.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct WhitenessDigest {
+    /// Lags scanned, `1..=H`; the verdict is the Ljung–Box test at `H`.
+    pub lags_checked: usize,
+    /// Ljung–Box p-value at `H` (`None` when no degrees of freedom are left there).
+    pub p_value_at_last_lag: Option<f64>,
+    /// The lag with the smallest Ljung–Box p-value over the scan, and that p-value
+    /// (`None` when no lag has degrees of freedom).
+    pub weakest_lag: Option<(usize, f64)>,
+    /// Whether the residuals passed the check.
+    pub white: bool,
+}
+
+impl WhitenessDigest {
+    fn from_check(check: &ResidualCheck) -> Self {
+        let rows = check.portmanteau.rows();
+        let weakest_lag = rows
+            .iter()
+            .filter_map(|r| r.ljung_box_p_value.map(|p| (r.lag, p)))
+            .fold(None, |best: Option<(usize, f64)>, (lag, p)| match best {
+                Some((_, bp)) if bp <= p => best,
+                _ => Some((lag, p)),
+            });
+        WhitenessDigest {
+            lags_checked: rows.len(),
+            p_value_at_last_lag: rows.last().and_then(|r| r.ljung_box_p_value),
+            weakest_lag,
+            white: check.white,
+        }
+    }
 }
 
 impl FitSummary {
@@ -195,14 +272,19 @@ impl FitSummary {
     }
     /// Whether every optimisation stage converged.
     pub fn converged(&self) -> bool {
-        self.stages.iter().all(|s| s.converged())
+        self.optimisation.converged
     }
     /// Total objective evaluations over the stages.
     pub fn evaluations(&self) -> usize {
-        self.stages.iter().map(|s| s.evaluations).sum()
+        self.optimisation.evaluations as usize
     }
 
-    fn from_model(m: &FittedModel, lags: Option<usize>, alpha: f64, alarm: f64) -> Result<Self> {
+    fn from_model(
+        m: &FittedModel,
+        lags: Option<usize>,
+        alpha: f64,
+        alarm: Option<f64>,
+    ) -> Result<Self> {
         let lags = lags.unwrap_or_else(|| m.default_check_lags());
         let check = m.residual_check(lags, alpha)?;
         Ok(FitSummary {
@@ -211,18 +293,17 @@ impl FitSummary {
             log_likelihood: m.log_likelihood(),
             criteria: m.criteria().ok(),
             counts: m.reading_counts(),
-            stages: m.stages().to_vec(),
+            optimisation: OptimisationDigest::from_stages(m.stages()).ok_or_else(|| {
+                Error::numerical("fleet", "the fit recorded no optimisation stage")
+            })?,
             warnings: m.warnings().to_vec(),
-            ljung_box_p_values: check
-                .portmanteau
-                .rows()
-                .iter()
-                .map(|r| r.ljung_box_p_value)
-                .collect(),
-            residuals_white: check.white,
-            shape: m.blueprint().shape_label(),
+            whiteness: WhitenessDigest::from_check(&check),
+            shape: m.blueprint().shape(),
             search_note: None,
-            monitor: m.monitor(alarm)?,
+            monitor: match alarm {
+                Some(level) => Some(Box::new(m.monitor(level)?)),
+                None => None,
+            },
         })
     }
 }
@@ -323,10 +404,15 @@ impl Fleet {
         self.run_with(&items, |x, ws| {
             let out = crate::search::search_orders_with(x, settings, ws)?;
             let mut s =
-                FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm_level)?;
+                FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm())?;
             s.search_note = Some(out.explanation);
             Ok(s)
         })
+    }
+
+    /// The alarm level for the summaries' monitors, if they are kept.
+    fn alarm(&self) -> Option<f64> {
+        self.monitors.then_some(self.alarm_level)
     }
 
     fn run<I: Clone + Send + Sync>(
@@ -335,9 +421,9 @@ impl Fleet {
         items: &[(I, &[f64])],
     ) -> FleetReport<I> {
         self.run_with(items, |x, ws| {
-            blueprint.fit_with(x, ws).and_then(|m| {
-                FitSummary::from_model(&m, self.check_lags, self.alpha, self.alarm_level)
-            })
+            blueprint
+                .fit_with(x, ws)
+                .and_then(|m| FitSummary::from_model(&m, self.check_lags, self.alpha, self.alarm()))
         })
     }
 

@@ -133,10 +133,12 @@ pub use fitted::{
     CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
     LogLikelihood, ReadingCounts, ResidualCheck,
 };
-pub use fleet::{FitSummary, Fleet, FleetBuilder, FleetReport, Progress};
+pub use fleet::{
+    FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, WhitenessDigest,
+};
 pub use forecast::{Forecast, ForecastStep, Monitor, ReadingCheck};
 pub use search::{SearchOutcome, SearchSettings, search_orders};
-pub use spec::{Blueprint, BlueprintBuilder, Estimator, Term};
+pub use spec::{Blueprint, BlueprintBuilder, Estimator, ModelShape, Term};
 pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use whiteness::{PortmanteauRow, PortmanteauScan};
 

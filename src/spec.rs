@@ -497,8 +497,62 @@ impl Blueprint {
     }
     /// A short name of the model shape, e.g. `SARIMA(1,0,1)(0,1,1)[96] + mean`.
     pub fn shape_label(&self) -> String {
-        let mut s = if self.period > 1 {
-            format!(
+        self.shape().to_string()
+    }
+    /// The model shape as a small copyable value (its `Display` is [`Self::shape_label`]).
+    pub fn shape(&self) -> ModelShape {
+        let small = |v: usize| u8::try_from(v).unwrap_or(u8::MAX);
+        ModelShape {
+            p: small(self.p),
+            d: small(self.d),
+            q: small(self.q),
+            seasonal_p: small(self.seasonal_p),
+            seasonal_d: small(self.seasonal_d),
+            seasonal_q: small(self.seasonal_q),
+            period: u16::try_from(self.period).unwrap_or(u16::MAX),
+            mean: self.mean,
+            drift: self.drift,
+            exogenous: u32::try_from(self.exogenous).unwrap_or(u32::MAX),
+        }
+    }
+    pub(crate) fn factor_fully_held(&self, factor: Term, len: usize) -> bool {
+        (1..=len).all(|i| self.held_value(same_kind(factor, i)).is_some())
+    }
+}
+
+/// A model's orders and regression terms in 16 bytes (orders are at most
+/// [`MAX_ORDER`], periods at most 14,400). `Display` gives the label, e.g.
+/// `SARIMA(1,0,1)(0,1,1)[96] + mean`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct ModelShape {
+    /// Non-seasonal AR order.
+    pub p: u8,
+    /// Non-seasonal differencing.
+    pub d: u8,
+    /// Non-seasonal MA order.
+    pub q: u8,
+    /// Seasonal AR order.
+    pub seasonal_p: u8,
+    /// Seasonal differencing.
+    pub seasonal_d: u8,
+    /// Seasonal MA order.
+    pub seasonal_q: u8,
+    /// Season length (1 = none).
+    pub period: u16,
+    /// Whether a mean is estimated.
+    pub mean: bool,
+    /// Whether a drift is estimated.
+    pub drift: bool,
+    /// Number of external regressors.
+    pub exogenous: u32,
+}
+
+impl std::fmt::Display for ModelShape {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        if self.period > 1 {
+            write!(
+                f,
                 "SARIMA({},{},{})({},{},{})[{}]",
                 self.p,
                 self.d,
@@ -507,27 +561,23 @@ impl Blueprint {
                 self.seasonal_d,
                 self.seasonal_q,
                 self.period
-            )
+            )?;
         } else if self.d > 0 {
-            format!("ARIMA({},{},{})", self.p, self.d, self.q)
+            write!(f, "ARIMA({},{},{})", self.p, self.d, self.q)?;
         } else {
-            format!("ARMA({},{})", self.p, self.q)
-        };
+            write!(f, "ARMA({},{})", self.p, self.q)?;
+        }
         if self.mean {
-            s.push_str(" + mean");
+            f.write_str(" + mean")?;
         }
         if self.drift {
-            s.push_str(" + drift");
+            f.write_str(" + drift")?;
         }
         match self.exogenous {
-            0 => {}
-            1 => s.push_str(" + 1 regressor"),
-            k => s.push_str(&format!(" + {k} regressors")),
+            0 => Ok(()),
+            1 => f.write_str(" + 1 regressor"),
+            k => write!(f, " + {k} regressors"),
         }
-        s
-    }
-    pub(crate) fn factor_fully_held(&self, factor: Term, len: usize) -> bool {
-        (1..=len).all(|i| self.held_value(same_kind(factor, i)).is_some())
     }
 }
 

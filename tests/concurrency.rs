@@ -16,6 +16,9 @@ fn public_types_are_send_and_sync() {
     shareable::<lagwise::Simulator>();
     shareable::<lagwise::Fleet>();
     shareable::<lagwise::FitSummary>();
+    shareable::<lagwise::WhitenessDigest>();
+    shareable::<lagwise::OptimisationDigest>();
+    shareable::<lagwise::ModelShape>();
     shareable::<lagwise::FleetReport<String>>();
     shareable::<lagwise::LikelihoodSurface>();
     shareable::<lagwise::FitWorkspace>();

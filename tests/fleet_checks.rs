@@ -25,11 +25,8 @@ fn bits(s: &FitSummary) -> Vec<u64> {
         .collect();
     v.push(s.innovation_variance.to_bits());
     v.push(s.log_likelihood.value().to_bits());
-    v.extend(
-        s.ljung_box_p_values
-            .iter()
-            .map(|p| p.unwrap_or(-1.0).to_bits()),
-    );
+    v.push(s.whiteness.p_value_at_last_lag.unwrap_or(-1.0).to_bits());
+    v.push(s.whiteness.weakest_lag.map_or(-1.0, |w| w.1).to_bits());
     v
 }
 
@@ -180,6 +177,51 @@ fn order_search_per_series() {
     for (_, r) in &report.outcomes {
         let s = r.as_ref().unwrap();
         assert!(s.search_note.as_ref().unwrap().contains("chose"));
-        assert!(s.shape.starts_with("AR"));
+        assert!(s.shape.to_string().starts_with("AR"));
+    }
+}
+
+/// The digest agrees with the full residual check of the single fit, and monitors are
+/// there by default (positioned like the single fit's) and absent on request.
+#[test]
+fn whiteness_digest_and_monitors_match_single_fits() {
+    let data = fleet_data(12);
+    let refs: Vec<&[f64]> = data.iter().map(|s| s.as_slice()).collect();
+    let bp = Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap();
+    let with = Fleet::builder().build().unwrap().fit_slices(&bp, &refs);
+    let without = Fleet::builder()
+        .ready_monitors(false)
+        .build()
+        .unwrap()
+        .fit_slices(&bp, &refs);
+    for (i, x) in refs.iter().enumerate() {
+        let single = bp.fit(x).unwrap();
+        let check = single
+            .residual_check(single.default_check_lags(), 0.05)
+            .unwrap();
+        let s = with.outcomes[i].1.as_ref().unwrap();
+        let rows = check.portmanteau.rows();
+        assert_eq!(s.whiteness.lags_checked, rows.len());
+        assert_eq!(s.whiteness.white, check.white);
+        assert_eq!(
+            s.whiteness.p_value_at_last_lag,
+            rows.last().unwrap().ljung_box_p_value
+        );
+        let (lag, p) = s.whiteness.weakest_lag.unwrap();
+        assert!(
+            rows.iter()
+                .all(|r| r.ljung_box_p_value.is_none_or(|q| q >= p))
+        );
+        assert_eq!(rows[lag - 1].ljung_box_p_value, Some(p));
+        // Same next-reading forecast from the fleet's monitor and the single fit's.
+        let mut a = s.monitor.as_deref().unwrap().clone();
+        let mut b = single.monitor(0.999).unwrap();
+        let (fa, fb) = (
+            a.forecast(1, &[0.9]).unwrap(),
+            b.forecast(1, &[0.9]).unwrap(),
+        );
+        assert_eq!(fa.steps[0].mean.to_bits(), fb.steps[0].mean.to_bits());
+        assert_eq!(a.observe(90.0).unwrap(), b.observe(90.0).unwrap());
+        assert!(without.outcomes[i].1.as_ref().unwrap().monitor.is_none());
     }
 }
