@@ -17,5 +17,6 @@ mod likelihood_reference;
 mod persistence;
 mod properties;
 mod regression_reference;
+mod robustness;
 mod search_checks;
 mod simulation_facts;
