@@ -504,20 +504,14 @@ pub(crate) struct EvalWorkspace {
     pub css_innov: Vec<f64>,
     pub scratch_coefs: Coefs,
     pub scratch_eval: Evaluation,
-    /// Batch evaluation: one filter per lane, the data prefix the lanes' filters run
-    /// on before the direct phase, per-lane cross-products, and points/values scratch.
+    /// Batch evaluation: one filter per lane (run up to its direct phase), per-lane
+    /// cross-products, and points/values scratch.
     lane_filters: Vec<KalmanWorkspace>,
-    lane_prefix: Vec<f64>,
     lane_cross: Vec<f64>,
     pub batch_coefs: Vec<Coefs>,
     pub batch_values: Vec<Option<(f64, usize)>>,
     pub batch_slots: Vec<Option<usize>>,
 }
-
-/// Readings a lane's filter may spend in its full-covariance phase before the batch
-/// hands that lane to the single-point path (slowly converging filters, MA roots near
-/// the unit circle).
-const LANE_PREFIX: usize = 512;
 
 /// How a lane of a batch ended its pre-phase.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -528,8 +522,6 @@ enum LaneStatus {
     Done,
     /// The model is not admissible for the filter.
     Failed,
-    /// Evaluate alone.
-    Alone,
 }
 
 /// Result of one objective evaluation.
@@ -638,15 +630,9 @@ impl EvalWorkspace {
                 }
             }
             ObjectiveKind::Exact => {
-                let m = n.min(LANE_PREFIX);
                 if self.lane_filters.len() < MAX_LANES {
                     self.lane_filters
                         .resize(MAX_LANES, KalmanWorkspace::default());
-                }
-                self.lane_prefix.clear();
-                for c in 0..k {
-                    self.lane_prefix
-                        .extend_from_slice(&prep.data[c * n..c * n + m]);
                 }
                 for (l, c) in chunk.iter().enumerate() {
                     self.expand(c, bp.period);
@@ -656,16 +642,16 @@ impl EvalWorkspace {
                         continue;
                     }
                     let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
-                    let (tot, stop) = filter.pass_until(&self.lane_prefix, m, k, cross, true);
+                    let (tot, stop) = filter.pass_until(&prep.data, n, k, cross, true);
                     log_det[l] = tot.log_det;
                     used[l] = tot.used;
                     match stop {
                         Some(t) => {
-                            lanes[l] = filter.lane_at(m, k, t);
+                            let ring = KalmanWorkspace::RING;
+                            lanes[l] = filter.lane_at(ring, ring - 1, k, t);
                             start[l] = t;
                         }
-                        None if m == n => status[l] = LaneStatus::Done,
-                        None => status[l] = LaneStatus::Alone,
+                        None => status[l] = LaneStatus::Done,
                     }
                 }
             }
@@ -707,13 +693,9 @@ impl EvalWorkspace {
             used[l] += n - start[l];
         }
         let mut out = std::mem::take(&mut self.scratch_eval);
-        for (l, c) in chunk.iter().enumerate() {
+        for l in 0..chunk.len() {
             let r = match status[l] {
                 LaneStatus::Failed => None,
-                LaneStatus::Alone => self
-                    .evaluate(prep, bp, c, kind, None, &mut out)
-                    .ok()
-                    .map(|()| (out.neg_log_likelihood, out.used)),
                 LaneStatus::Active | LaneStatus::Done => {
                     self.cross.clear();
                     self.cross
@@ -1622,7 +1604,8 @@ mod batch_tests {
     }
 
     /// Batched values are bitwise the single-point values, on every lane path: active
-    /// lanes with different direct-phase starts, a slowly converging MA root (alone), an
+    /// lanes with different direct-phase starts, an MA root so near the unit circle that
+    /// the filter never reaches its direct phase (done in the pre-phase), an
     /// inadmissible point (failed), a series shorter than the lane prefix (done), with
     /// and without the profiled mean, exact and conditional.
     #[test]

@@ -38,6 +38,9 @@
 use crate::error::{Error, Result};
 use crate::lag;
 
+/// Largest state dimension with the fixed-size full-covariance step.
+const SMALL_STATE: usize = 4;
+
 /// Convergence threshold on trace(P⁺) for leaving the full-covariance phase.
 pub(crate) const STEADY_TOLERANCE: f64 = 1e-14;
 
@@ -72,6 +75,9 @@ pub(crate) struct KalmanWorkspace {
     pub(crate) fvar: Vec<f64>,
     /// Steps spent in the full-covariance phase during the last pass.
     pub(crate) full_steps: usize,
+    /// Tests only: take the general full-covariance step for every state size.
+    #[cfg(test)]
+    general_only: bool,
 }
 
 /// Accumulated results of one filter pass.
@@ -280,9 +286,15 @@ impl KalmanWorkspace {
         self.pass_until(data, n, ncols, cross, false).0
     }
 
+    /// Length of the innovation ring kept by [`Self::pass_until`] when it stops at the
+    /// direct phase (enough for the lanes' MA history, a power of two).
+    pub(crate) const RING: usize = 4;
+
     /// [`Self::pass`], optionally stopping where the direct phase would begin; then the
     /// second value is that time `t` (readings before `t` are done, `cross` holds their
-    /// part) and [`Self::lane_at`] gives the state to continue from.
+    /// part) and [`Self::lane_at`] gives the state to continue from. Stopping runs need no
+    /// series-length buffers: innovations go to a ring of [`Self::RING`] per column and F
+    /// is not kept. They require a series without missing readings.
     pub(crate) fn pass_until(
         &mut self,
         data: &[f64],
@@ -291,11 +303,20 @@ impl KalmanWorkspace {
         cross: &mut [f64],
         stop_at_direct: bool,
     ) -> (PassTotals, Option<usize>) {
+        debug_assert!(!stop_at_direct || !data[..n].iter().any(|v| v.is_nan()));
+        // Innovation of column c at time t lives at c·stride + (t & mask).
+        let (stride, mask) = if stop_at_direct {
+            (Self::RING, Self::RING - 1)
+        } else {
+            (n, usize::MAX)
+        };
         let r = self.r;
         resize(&mut self.state, ncols * r);
         // Every entry of these two is written by the pass: size them, don't clear them.
-        ensure_len(&mut self.innov, ncols * n);
-        ensure_len(&mut self.fvar, n);
+        ensure_len(&mut self.innov, ncols * stride);
+        if !stop_at_direct {
+            ensure_len(&mut self.fvar, n);
+        }
         for v in cross.iter_mut() {
             *v = 0.0;
         }
@@ -310,17 +331,74 @@ impl KalmanWorkspace {
             let missing = data[t].is_nan();
             match phase {
                 Phase::Full => {
+                    #[cfg(test)]
+                    let small = !self.general_only;
+                    #[cfg(not(test))]
+                    let small = true;
+                    if small && !missing && r <= SMALL_STATE && ncols <= 2 {
+                        // Small states: run the whole stretch in registers.
+                        let (next, steady) = match r {
+                            1 => self.full_small::<1>(
+                                data,
+                                n,
+                                ncols,
+                                t,
+                                cross,
+                                &mut totals,
+                                (stride, mask),
+                                !stop_at_direct,
+                            ),
+                            2 => self.full_small::<2>(
+                                data,
+                                n,
+                                ncols,
+                                t,
+                                cross,
+                                &mut totals,
+                                (stride, mask),
+                                !stop_at_direct,
+                            ),
+                            3 => self.full_small::<3>(
+                                data,
+                                n,
+                                ncols,
+                                t,
+                                cross,
+                                &mut totals,
+                                (stride, mask),
+                                !stop_at_direct,
+                            ),
+                            _ => self.full_small::<4>(
+                                data,
+                                n,
+                                ncols,
+                                t,
+                                cross,
+                                &mut totals,
+                                (stride, mask),
+                                !stop_at_direct,
+                            ),
+                        };
+                        self.full_steps += next - t;
+                        t = next;
+                        if steady {
+                            phase = Phase::Steady(0);
+                        }
+                        continue;
+                    }
                     self.full_steps += 1;
                     let f = self.p[0];
                     if missing {
                         self.fvar[t] = f64::NAN;
                         for c in 0..ncols {
-                            self.innov[c * n + t] = f64::NAN;
+                            self.innov[c * stride + (t & mask)] = f64::NAN;
                         }
                         self.predict_states(ncols);
                         self.predict_covariance_no_update();
                     } else {
-                        self.fvar[t] = f;
+                        if !stop_at_direct {
+                            self.fvar[t] = f;
+                        }
                         totals.log_det += f.ln();
                         totals.used += 1;
                         for i in 0..r {
@@ -328,13 +406,13 @@ impl KalmanWorkspace {
                         }
                         for c in 0..ncols {
                             let v = data[c * n + t] - self.state[c * r];
-                            self.innov[c * n + t] = v;
+                            self.innov[c * stride + (t & mask)] = v;
                             let st = &mut self.state[c * r..(c + 1) * r];
                             for i in 0..r {
                                 st[i] += self.kcol[i] * v;
                             }
                         }
-                        accumulate_cross(&self.innov, n, t, ncols, f, cross);
+                        accumulate_cross(&self.innov, stride, t & mask, ncols, f, cross);
                         self.predict_states(ncols);
                         let trace = self.predict_covariance_after_update(f);
                         // Converged when the updated covariance vanishes: then the
@@ -351,17 +429,19 @@ impl KalmanWorkspace {
                         phase = Phase::Full;
                         continue;
                     }
-                    self.fvar[t] = 1.0;
+                    if !stop_at_direct {
+                        self.fvar[t] = 1.0;
+                    }
                     totals.used += 1;
                     for c in 0..ncols {
                         let v = data[c * n + t] - self.state[c * r];
-                        self.innov[c * n + t] = v;
+                        self.innov[c * stride + (t & mask)] = v;
                         let st = &mut self.state[c * r..(c + 1) * r];
                         for i in 0..r {
                             st[i] += self.rvec[i] * v;
                         }
                     }
-                    accumulate_cross(&self.innov, n, t, ncols, 1.0, cross);
+                    accumulate_cross(&self.innov, stride, t & mask, ncols, 1.0, cross);
                     self.predict_states(ncols);
                     phase = if count + 1 >= r {
                         Phase::Direct
@@ -380,7 +460,7 @@ impl KalmanWorkspace {
                         end += 1;
                     }
                     if crate::lanes::fits(self.p_len, self.q_len, ncols) {
-                        let mut lane = [self.lane_at(n, ncols, start)];
+                        let mut lane = [self.lane_at(n, usize::MAX, ncols, start)];
                         crate::lanes::run(
                             data,
                             n,
@@ -449,15 +529,128 @@ impl KalmanWorkspace {
         (totals, None)
     }
 
+    /// The full-covariance phase for `r = R ≤ SMALL_STATE` and at most two columns, from
+    /// `t0` over present readings until the covariance has converged (second value
+    /// `true`), a missing reading or the end; returns where it stopped. The covariance,
+    /// gain and states live in fixed-size arrays for the whole stretch; the arithmetic is
+    /// the general step's, in the same order.
+    #[allow(clippy::too_many_arguments, clippy::needless_range_loop)]
+    fn full_small<const R: usize>(
+        &mut self,
+        data: &[f64],
+        n: usize,
+        ncols: usize,
+        t0: usize,
+        cross: &mut [f64],
+        totals: &mut PassTotals,
+        (stride, mask): (usize, usize),
+        keep_fvar: bool,
+    ) -> (usize, bool) {
+        const S: usize = SMALL_STATE + 1;
+        let mut p = [[0.0f64; R]; R];
+        let mut phi = [0.0f64; R];
+        let mut rv = [0.0f64; R];
+        let mut st = [[0.0f64; R]; 2];
+        for i in 0..R {
+            phi[i] = self.phi[i];
+            rv[i] = self.rvec[i];
+            for j in 0..R {
+                p[i][j] = self.p[i * R + j];
+            }
+            for c in 0..ncols {
+                st[c][i] = self.state[c * R + i];
+            }
+        }
+        let mut m = [[0.0f64; S]; S];
+        let mut t = t0;
+        let mut steady = false;
+        while t < n && !data[t].is_nan() {
+            let f = p[0][0];
+            if keep_fvar {
+                self.fvar[t] = f;
+            }
+            totals.log_det += f.ln();
+            totals.used += 1;
+            let mut kcol = [0.0f64; R];
+            for i in 0..R {
+                kcol[i] = p[0][i] / f;
+            }
+            let mut v = [0.0f64; 2];
+            for c in 0..ncols {
+                v[c] = data[c * n + t] - st[c][0];
+                self.innov[c * stride + (t & mask)] = v[c];
+                for i in 0..R {
+                    st[c][i] += kcol[i] * v[c];
+                }
+            }
+            if ncols == 1 {
+                cross[0] += v[0] * v[0] / f;
+            } else {
+                for i in 0..ncols {
+                    let vi = v[i] / f;
+                    for j in i..ncols {
+                        cross[i * ncols + j] += vi * v[j];
+                    }
+                }
+            }
+            for c in 0..ncols {
+                let a0 = st[c][0];
+                for i in 0..R - 1 {
+                    st[c][i] = phi[i] * a0 + st[c][i + 1];
+                }
+                st[c][R - 1] = phi[R - 1] * a0;
+            }
+            // M = P − k P[0,:] (zero border), then P = T M Tᵀ + RRᵀ.
+            let mut trace = 0.0;
+            for i in 0..R {
+                let ki = p[0][i] / f;
+                for j in 0..R {
+                    m[i][j] = p[i][j] - ki * p[0][j];
+                }
+                trace += m[i][i];
+            }
+            let m00 = m[0][0];
+            for i in 0..R {
+                let (fi, ri, mi) = (phi[i], rv[i], m[0][i + 1]);
+                let a = fi * m00;
+                for j in 0..R {
+                    p[i][j] =
+                        a * phi[j] + ri * rv[j] + fi * m[0][j + 1] + phi[j] * mi + m[i + 1][j + 1];
+                }
+            }
+            t += 1;
+            if trace < STEADY_TOLERANCE {
+                steady = true;
+                break;
+            }
+        }
+        for i in 0..R {
+            for j in 0..R {
+                self.p[i * R + j] = p[i][j];
+            }
+            for c in 0..ncols {
+                self.state[c * R + i] = st[c][i];
+            }
+        }
+        (t, steady)
+    }
+
     /// The lane that continues this filter's direct phase at time `t`: the model's
-    /// coefficients and the innovations before `t` (stored with column stride `n`).
-    pub(crate) fn lane_at(&self, n: usize, ncols: usize, t: usize) -> crate::lanes::Lane {
+    /// coefficients and the innovations before `t` (column stride and index mask as the
+    /// pass stored them: `(n, usize::MAX)`, or `(RING, RING − 1)` after a stopping pass).
+    pub(crate) fn lane_at(
+        &self,
+        stride: usize,
+        mask: usize,
+        ncols: usize,
+        t: usize,
+    ) -> crate::lanes::Lane {
         let mut lane = crate::lanes::Lane::default();
         lane.phi[..self.p_len].copy_from_slice(&self.phi[..self.p_len]);
         lane.theta[..self.q_len].copy_from_slice(&self.rvec[1..=self.q_len]);
         for c in 0..ncols {
             for j in 0..self.q_len {
-                lane.hist[c][j] = self.innov[c * n + t - 1 - j];
+                lane.hist[c][j] = self.innov[c * stride + ((t - 1 - j) & mask)];
             }
         }
         lane
@@ -1045,6 +1238,52 @@ mod tests {
             tot.log_det,
             cross[0]
         );
+    }
+
+    /// The fixed-size full phase is the general step, bit for bit: every small state
+    /// size, one and two columns, with gaps (which hand back to the general step).
+    #[test]
+    fn small_state_phase_is_the_general_step() {
+        let n = 400;
+        let mut x: Vec<f64> = (0..n)
+            .map(|t| ((t * 7919 % 211) as f64 / 70.0 - 1.5) + 0.5 * ((t / 9) % 3) as f64)
+            .collect();
+        x[150] = f64::NAN;
+        x[151] = f64::NAN;
+        let mut data = x.clone();
+        data.extend((0..n).map(|_| 1.0));
+        let models: [(&[f64], &[f64]); 5] = [
+            (&[0.6], &[]),
+            (&[0.5], &[0.95]),
+            (&[0.4, 0.2], &[0.3, -0.99]),
+            (&[0.3], &[0.2, 0.1, 0.97]),
+            (&[0.1, 0.1, 0.1], &[0.5, 0.2]),
+        ];
+        for (phi, theta) in models {
+            for ncols in [1, 2] {
+                let run = |general: bool| {
+                    let mut ws = KalmanWorkspace {
+                        general_only: general,
+                        ..Default::default()
+                    };
+                    ws.set_model(phi, theta).unwrap();
+                    let mut cross = vec![0.0; ncols * ncols];
+                    let tot = ws.pass(&data, n, ncols, &mut cross);
+                    let mut bits: Vec<u64> = cross.iter().map(|v| v.to_bits()).collect();
+                    bits.push(tot.log_det.to_bits());
+                    bits.push(tot.used as u64);
+                    bits.extend(ws.innov[..ncols * n].iter().map(|v| v.to_bits()));
+                    bits.extend(ws.fvar[..n].iter().map(|v| v.to_bits()));
+                    (bits, ws.full_steps)
+                };
+                let (small, steps) = run(false);
+                assert_eq!(small, run(true).0, "{phi:?} {theta:?} ncols {ncols}");
+                assert!(
+                    steps > 10 || theta.is_empty(),
+                    "{phi:?} {theta:?}: {steps} full steps"
+                );
+            }
+        }
     }
 
     #[test]
