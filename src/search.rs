@@ -356,6 +356,11 @@ pub struct SearchSettings {
     pub alpha: f64,
     /// Estimator for every candidate (default CSS-started ML).
     pub estimator: Estimator,
+    /// Stepwise only: also expand the runner-up while it is within 2 criterion units of
+    /// the leader (default `false`). In the order-recovery study (n = 500, 200
+    /// replications) this lifted AR(2) recovery from 41% to 52.5% (BIC: 43% to 55%)
+    /// and left the other cases unchanged, at about 1.4× the candidates' cost.
+    pub explore_near_ties: bool,
 }
 
 impl SearchSettings {
@@ -369,6 +374,7 @@ impl SearchSettings {
             exhaustive: false,
             alpha: 0.05,
             estimator: Estimator::StagedLikelihood,
+            explore_near_ties: false,
         }
     }
     /// Set bounds on p, q, P, Q.
@@ -395,6 +401,11 @@ impl SearchSettings {
     /// Try every order within the bounds.
     pub fn exhaustive(mut self, yes: bool) -> Self {
         self.exhaustive = yes;
+        self
+    }
+    /// Stepwise: also follow a near-tied runner-up (see [`Self::explore_near_ties`]).
+    pub fn near_tie_exploration(mut self, yes: bool) -> Self {
+        self.explore_near_ties = yes;
         self
     }
 }
@@ -622,6 +633,9 @@ pub fn search_orders_with(
         let fit = b.build().and_then(|bp| bp.fit_with(series, ws));
         match fit {
             Ok(m) if cancelling(&m) => {
+                // Discarded, and not a stepping stone either: navigating through such
+                // fits (the (2,2) start is often one) led the search into large orders
+                // at several times the cost without better recovery.
                 cand.failure =
                     Some("near-cancelling AR and MA roots (redundant parameters)".into());
                 tried.push(cand);
@@ -683,23 +697,43 @@ pub fn search_orders_with(
         } else {
             vec![(2, 2, 0, 0), (0, 0, 0, 0), (1, 0, 0, 0), (0, 1, 0, 0)]
         };
-        let mut best: Option<(OrderKey, f64)> = None;
+        // Best-first over the neighbourhood graph: each round expands the best-scored
+        // candidate not expanded yet among the best `beam`, skipping any more than
+        // `NEAR_TIE` criterion units behind the leader; the search ends when none is
+        // left. A beam of one is the plain stepwise rule. A beam of two (on request)
+        // also follows a near-tied runner-up: the plain rule stops in the first local
+        // minimum, e.g. ARMA(1,2) for AR(2) data, whose runner-up ARMA(2,1) leads on to
+        // AR(2). An unbounded beam of two wandered into large orders at 14× the cost.
+        let beam = if settings.explore_near_ties { 2 } else { 1 };
+        const NEAR_TIE: f64 = 2.0;
+        let mut scored: Vec<(OrderKey, f64)> = Vec::new();
+        let note = |key: OrderKey, v: Option<f64>, scored: &mut Vec<(OrderKey, f64)>| {
+            if let Some(v) = v
+                && !scored.iter().any(|e| e.0 == key)
+            {
+                scored.push((key, v));
+            }
+        };
         for (p, q, sp, sq) in starts {
             let (p, q, sp, sq) = (p.min(mp), q.min(mq), sp.min(msp), sq.min(msq));
-            if let Some(v) = try_one(p, q, sp, sq, c0, &mut tried, &mut fits)
-                && best.is_none_or(|b| v < b.1)
-            {
-                best = Some(((p, q, sp, sq, c0), v));
-            }
+            let v = try_one(p, q, sp, sq, c0, &mut tried, &mut fits);
+            note((p, q, sp, sq, c0), v, &mut scored);
         }
-        let mut improved = true;
+        let mut expanded: Vec<OrderKey> = Vec::new();
         let mut rounds = 0;
-        while improved && rounds < 100 {
-            improved = false;
+        while rounds < 100 {
             rounds += 1;
-            let Some(((p, q, sp, sq, c), v0)) = best else {
+            scored.sort_by(|x, y| x.1.total_cmp(&y.1));
+            let lead = scored.first().map_or(f64::INFINITY, |e| e.1);
+            let Some(&((p, q, sp, sq, c), _)) = scored
+                .iter()
+                .take(beam)
+                .filter(|e| e.1 <= lead + NEAR_TIE)
+                .find(|e| !expanded.contains(&e.0))
+            else {
                 break;
             };
+            expanded.push((p, q, sp, sq, c));
             let mut moves: Vec<(isize, isize, isize, isize, bool)> = vec![
                 (-1, 0, 0, 0, c),
                 (1, 0, 0, 0, c),
@@ -728,14 +762,10 @@ pub fn search_orders_with(
                     continue;
                 }
                 let cand = (np as usize, nq as usize, nsp as usize, nsq as usize, cc);
-                if let Some(v) = try_one(
+                let v = try_one(
                     cand.0, cand.1, cand.2, cand.3, cand.4, &mut tried, &mut fits,
-                ) && v < v0
-                    && best.is_none_or(|b| v < b.1)
-                {
-                    best = Some((cand, v));
-                    improved = true;
-                }
+                );
+                note(cand, v, &mut scored);
             }
         }
     }
