@@ -581,8 +581,13 @@ impl EvalWorkspace {
     ) {
         values.clear();
         let (pn, qn) = bp.expanded_degrees();
-        let lanes_ok =
-            points.len() > 1 && !prep.has_missing && crate::lanes::fits(pn, qn, prep.ncols);
+        // Measured (benches/estimation.rs, `*_batch8`): lanes pay 1.6–1.7× per point for
+        // the exact likelihood up to ARMA(3,2) and for CSS up to ARMA(2,1), but CSS at
+        // ARMA(3,2) runs out of registers and loses 8%; CSS lanes stop at p + q = 4.
+        let lanes_ok = points.len() > 1
+            && !prep.has_missing
+            && crate::lanes::fits(pn, qn, prep.ncols)
+            && (kind == ObjectiveKind::Exact || pn + qn <= 4);
         if !lanes_ok {
             let mut out = std::mem::take(&mut self.scratch_eval);
             for c in points {
