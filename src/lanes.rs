@@ -141,6 +141,27 @@ fn dispatch<const L: usize, const C: usize, const S: bool>(
     go!(0,0; 0,1; 0,2; 0,3; 1,0; 1,1; 1,2; 1,3; 2,0; 2,1; 2,2; 2,3; 3,0; 3,1; 3,2);
 }
 
+/// One lane's innovation for one column at `t`, history `h` (structure of arrays).
+#[allow(clippy::needless_range_loop)]
+#[inline(always)]
+fn innovation<const L: usize, const P: usize, const Q: usize>(
+    w: &[f64],
+    t: usize,
+    phi: &[[f64; L]; LANE_ORDER],
+    theta: &[[f64; L]; LANE_ORDER],
+    h: &[[f64; L]; LANE_ORDER],
+    l: usize,
+) -> f64 {
+    let mut x = w[t];
+    for i in 0..P {
+        x -= phi[i][l] * w[t - 1 - i];
+    }
+    for j in 1..Q {
+        x -= theta[j][l] * h[j][l];
+    }
+    if Q > 0 { x - theta[0][l] * h[0][l] } else { x }
+}
+
 /// The loop. Per lane and column: `x = w_t − Σ_{i<P} φ_i w_{t−1−i} − Σ_{1≤j<Q} θ_j h_j`,
 /// then `v = x − θ₀h₀` (only `θ₁v_{t−1}` on the carried chain), then the sums.
 #[allow(clippy::needless_range_loop)]
@@ -186,23 +207,9 @@ fn kernel<const L: usize, const C: usize, const S: bool, const P: usize, const Q
         let mut e0 = [0.0f64; L];
         let mut e1 = [0.0f64; L];
         for l in 0..L {
-            let mut x = w0[t];
-            for i in 0..P {
-                x -= phi[i][l] * w0[t - 1 - i];
-            }
-            for j in 1..Q {
-                x -= theta[j][l] * h0[j][l];
-            }
-            e0[l] = if Q > 0 { x - theta[0][l] * h0[0][l] } else { x };
+            e0[l] = innovation::<L, P, Q>(w0, t, &phi, &theta, &h0, l);
             if C == 2 {
-                let mut x = w1[t];
-                for i in 0..P {
-                    x -= phi[i][l] * w1[t - 1 - i];
-                }
-                for j in 1..Q {
-                    x -= theta[j][l] * h1[j][l];
-                }
-                e1[l] = if Q > 0 { x - theta[0][l] * h1[0][l] } else { x };
+                e1[l] = innovation::<L, P, Q>(w1, t, &phi, &theta, &h1, l);
             }
         }
         if Q > 0 {
