@@ -858,29 +858,7 @@ impl EvalWorkspace {
                     let pred = guarded_prediction(w, v, t, &self.ar_nz, &self.ma_nz);
                     v[t] = w[t] - pred;
                 }
-                if k != 2 {
-                    direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
-                }
-            }
-        }
-        if k == 2 && !prep.has_missing {
-            // Both columns through one loop (independent chains overlap).
-            let guarded_end = (cond.max(max_ma)).min(n);
-            let paired = crate::kalman::direct_recursion_pair(
-                &prep.data[..2 * n],
-                &mut self.css_innov[..2 * n],
-                n,
-                guarded_end,
-                n,
-                &self.ar_nz,
-                &self.ma_nz,
-            );
-            if !paired {
-                for c in 0..2 {
-                    let w = &prep.data[c * n..(c + 1) * n];
-                    let v = &mut self.css_innov[c * n..(c + 1) * n];
-                    direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
-                }
+                direct_recursion(w, v, guarded_end, n, &self.ar_nz, &self.ma_nz);
             }
         }
         if !prep.has_missing {

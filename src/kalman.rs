@@ -337,47 +337,25 @@ impl KalmanWorkspace {
                     let small = true;
                     if small && !missing && r <= SMALL_STATE && ncols <= 2 {
                         // Small states: run the whole stretch in registers.
+                        macro_rules! small {
+                            ($r:literal) => {
+                                self.full_small::<$r>(
+                                    data,
+                                    n,
+                                    ncols,
+                                    t,
+                                    cross,
+                                    &mut totals,
+                                    (stride, mask),
+                                    !stop_at_direct,
+                                )
+                            };
+                        }
                         let (next, steady) = match r {
-                            1 => self.full_small::<1>(
-                                data,
-                                n,
-                                ncols,
-                                t,
-                                cross,
-                                &mut totals,
-                                (stride, mask),
-                                !stop_at_direct,
-                            ),
-                            2 => self.full_small::<2>(
-                                data,
-                                n,
-                                ncols,
-                                t,
-                                cross,
-                                &mut totals,
-                                (stride, mask),
-                                !stop_at_direct,
-                            ),
-                            3 => self.full_small::<3>(
-                                data,
-                                n,
-                                ncols,
-                                t,
-                                cross,
-                                &mut totals,
-                                (stride, mask),
-                                !stop_at_direct,
-                            ),
-                            _ => self.full_small::<4>(
-                                data,
-                                n,
-                                ncols,
-                                t,
-                                cross,
-                                &mut totals,
-                                (stride, mask),
-                                !stop_at_direct,
-                            ),
+                            1 => small!(1),
+                            2 => small!(2),
+                            3 => small!(3),
+                            _ => small!(4),
                         };
                         self.full_steps += next - t;
                         t = next;
@@ -485,22 +463,10 @@ impl KalmanWorkspace {
                         }
                         continue;
                     }
-                    let paired = ncols == 2
-                        && direct_recursion_pair(
-                            &data[..2 * n],
-                            &mut self.innov[..2 * n],
-                            n,
-                            start,
-                            end,
-                            &self.ar_nz,
-                            &self.ma_nz,
-                        );
-                    if !paired {
-                        for c in 0..ncols {
-                            let w = &data[c * n..(c + 1) * n];
-                            let v = &mut self.innov[c * n..(c + 1) * n];
-                            direct_recursion(w, v, start, end, &self.ar_nz, &self.ma_nz);
-                        }
+                    for c in 0..ncols {
+                        let w = &data[c * n..(c + 1) * n];
+                        let v = &mut self.innov[c * n..(c + 1) * n];
+                        direct_recursion(w, v, start, end, &self.ar_nz, &self.ma_nz);
                     }
                     for f in &mut self.fvar[start..end] {
                         *f = 1.0;
@@ -891,88 +857,6 @@ fn dense_kernel<const P: usize, const Q: usize>(
             hist[0] = e;
         }
         v[t] = e;
-    }
-}
-
-/// Two columns through the dense kernel in one loop: the two recursions are
-/// independent, so their dependency chains overlap (a regression column rides along
-/// with the series at almost no extra latency). `w` and `v` hold both columns
-/// (`n` each, column-major). Returns `false` if the shape is not dense-small.
-pub(crate) fn direct_recursion_pair(
-    w: &[f64],
-    v: &mut [f64],
-    n: usize,
-    start: usize,
-    end: usize,
-    ar_nz: &[(usize, f64)],
-    ma_nz: &[(usize, f64)],
-) -> bool {
-    let Some((p, q, phi, theta)) = dense_small(ar_nz, ma_nz) else {
-        return false;
-    };
-    if start >= end {
-        return true;
-    }
-    let (w0, w1) = w.split_at(n);
-    let (v0, v1) = v.split_at_mut(n);
-    dispatch_small!(
-        p,
-        q,
-        pair_kernel,
-        [w0, &w1[..n]],
-        [v0, &mut v1[..n]],
-        start,
-        end,
-        &phi,
-        &theta
-    );
-    true
-}
-
-#[inline(always)]
-fn pair_kernel<const P: usize, const Q: usize>(
-    w: [&[f64]; 2],
-    v: [&mut [f64]; 2],
-    start: usize,
-    end: usize,
-    phi: &[f64; 3],
-    theta: &[f64; 3],
-) {
-    let [v0, v1] = v;
-    let mut h0 = [0.0f64; 3];
-    let mut h1 = [0.0f64; 3];
-    for j in 0..Q {
-        h0[j] = v0[start - 1 - j];
-        h1[j] = v1[start - 1 - j];
-    }
-    let (w0, w1) = (&w[0][..end], &w[1][..end]);
-    let (v0, v1) = (&mut v0[..end], &mut v1[..end]);
-    for t in start..end {
-        let mut x0 = w0[t];
-        let mut x1 = w1[t];
-        for i in 0..P {
-            x0 -= phi[i] * w0[t - 1 - i];
-            x1 -= phi[i] * w1[t - 1 - i];
-        }
-        for j in 1..Q {
-            x0 -= theta[j] * h0[j];
-            x1 -= theta[j] * h1[j];
-        }
-        let (e0, e1) = if Q > 0 {
-            (x0 - theta[0] * h0[0], x1 - theta[0] * h1[0])
-        } else {
-            (x0, x1)
-        };
-        if Q > 0 {
-            for j in (1..Q).rev() {
-                h0[j] = h0[j - 1];
-                h1[j] = h1[j - 1];
-            }
-            h0[0] = e0;
-            h1[0] = e1;
-        }
-        v0[t] = e0;
-        v1[t] = e1;
     }
 }
 
