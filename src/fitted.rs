@@ -357,10 +357,115 @@ impl Blueprint {
         let prep = estimate::prepare(self, series, regressors)?;
         let layout = Layout::new(self);
         let cell = RefCell::new(std::mem::take(&mut workspace.inner));
-        let result = fit_prepared(self, series, regressors, &prep, &layout, &cell);
+        let result = fit_prepared(self, series, regressors, &prep, &layout, &cell, true);
+        workspace.inner = cell.into_inner();
+        result.map(|(model, _)| model)
+    }
+
+    /// [`Blueprint::fit_with`] without the Hessian of the standard errors (a search fits
+    /// many candidates and keeps one): the model has no covariance until
+    /// [`complete_standard_errors`] is called with the returned regression covariance.
+    pub(crate) fn fit_deferring_errors(
+        &self,
+        series: &[f64],
+        workspace: &mut FitWorkspace,
+    ) -> Result<(FittedModel, DeferredErrors)> {
+        let prep = estimate::prepare(self, series, &[])?;
+        let layout = Layout::new(self);
+        let cell = RefCell::new(std::mem::take(&mut workspace.inner));
+        let result = fit_prepared(self, series, &[], &prep, &layout, &cell, false);
         workspace.inner = cell.into_inner();
         result
     }
+}
+
+/// What [`complete_standard_errors`] needs besides the model: the regression block of the
+/// covariance, computed during the fit.
+#[derive(Debug, Clone)]
+pub(crate) struct DeferredErrors {
+    beta_cov: Option<Vec<f64>>,
+}
+
+/// Give a model fitted by [`Blueprint::fit_deferring_errors`] on `series` its covariance
+/// and standard errors: bit for bit those of [`Blueprint::fit_with`].
+pub(crate) fn complete_standard_errors(
+    model: &mut FittedModel,
+    series: &[f64],
+    deferred: DeferredErrors,
+    workspace: &mut FitWorkspace,
+) -> Result<()> {
+    let bp = model.blueprint.clone();
+    let prep = estimate::prepare(&bp, series, &[])?;
+    let layout = Layout::new(&bp);
+    let mut coefs = estimate::Coefs::default();
+    for c in &model.coefficients {
+        match c.term {
+            Term::Ar(_) => coefs.f[0].push(c.value),
+            Term::Ma(_) => coefs.f[1].push(c.value),
+            Term::SeasonalAr(_) => coefs.f[2].push(c.value),
+            Term::SeasonalMa(_) => coefs.f[3].push(c.value),
+            _ => {}
+        }
+    }
+    let kind = if model.log_likelihood.is_exact() {
+        ObjectiveKind::Exact
+    } else {
+        ObjectiveKind::Conditional
+    };
+    let hess = estimate::hessian(&prep, &bp, &layout, kind, &mut workspace.inner, &coefs);
+    attach_covariance(model, &layout, &prep, hess, deferred.beta_cov);
+    Ok(())
+}
+
+/// Covariance from the Hessian of −log L over free ARMA terms and the GLS covariance of
+/// the profiled regression terms (asymptotically independent blocks); standard errors
+/// into the coefficients, and a warning when unavailable.
+fn attach_covariance(
+    model: &mut FittedModel,
+    layout: &Layout,
+    prep: &estimate::Prepared,
+    hess: Option<Vec<f64>>,
+    beta_cov: Option<Vec<f64>>,
+) {
+    let arma_terms = layout.free_terms();
+    let na = arma_terms.len();
+    let arma_cov = if na == 0 {
+        Some(Vec::new())
+    } else {
+        hess.and_then(|h| linalg::invert_spd(&h, na))
+    };
+    let mut covariance_terms = arma_terms;
+    covariance_terms.extend(prep.profiled.iter().copied());
+    let kk = covariance_terms.len();
+    let nb = kk - na;
+    let covariance = match (arma_cov, nb) {
+        (Some(a), 0) => Some(a),
+        (Some(a), _) => beta_cov.map(|b| {
+            let mut full = vec![0.0; kk * kk];
+            for i in 0..na {
+                full[i * kk..i * kk + na].copy_from_slice(&a[i * na..(i + 1) * na]);
+            }
+            for i in 0..nb {
+                full[(na + i) * kk + na..(na + i) * kk + kk]
+                    .copy_from_slice(&b[i * nb..(i + 1) * nb]);
+            }
+            full
+        }),
+        (None, _) => None,
+    };
+    if covariance.is_none() && kk > 0 {
+        model.warnings.insert(0, FitWarning::NoStandardErrors);
+    }
+    let se_of = |term: Term| -> Option<f64> {
+        let i = covariance_terms.iter().position(|t| *t == term)?;
+        let v = covariance.as_ref()?[i * kk + i];
+        (v > 0.0).then(|| v.sqrt())
+    };
+    for c in model.coefficients.iter_mut() {
+        c.std_error = if c.held { None } else { se_of(c.term) };
+    }
+    model.covariance_terms = covariance_terms;
+    model.covariance = covariance;
 }
 
 fn fit_prepared(
@@ -370,7 +475,8 @@ fn fit_prepared(
     prep: &estimate::Prepared,
     layout: &Layout,
     cell: &RefCell<EvalWorkspace>,
-) -> Result<FittedModel> {
+    errors: bool,
+) -> Result<(FittedModel, DeferredErrors)> {
     let start = estimate::starting_values(prep, bp);
     let x0 = estimate::coordinates(layout, &start).unwrap_or_else(|| vec![0.0; layout.free_len]);
     let mut stages = Vec::new();
@@ -494,44 +600,14 @@ fn fit_prepared(
         residuals[t + loss] = v * scale;
         standardized[t + loss] = v * scale / (sd * f.sqrt());
     }
-    // Covariance from the Hessian of −log L over free ARMA and profiled regression terms.
+    // The Hessian of −log L over the free ARMA terms (now, or later on request).
     let mut warnings = Vec::new();
-    let hess = estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs);
-    drop(ws);
-    let arma_terms = layout.free_terms();
-    let na = arma_terms.len();
-    let arma_cov = if na == 0 {
-        Some(Vec::new())
+    let hess = if errors {
+        estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs)
     } else {
-        hess.and_then(|h| linalg::invert_spd(&h, na))
+        None
     };
-    let mut covariance_terms = arma_terms;
-    covariance_terms.extend(prep.profiled.iter().copied());
-    let kk = covariance_terms.len();
-    let nb = kk - na;
-    let covariance = match (arma_cov, nb) {
-        (Some(a), 0) => Some(a),
-        (Some(a), _) => beta_cov.map(|b| {
-            let mut full = vec![0.0; kk * kk];
-            for i in 0..na {
-                full[i * kk..i * kk + na].copy_from_slice(&a[i * na..(i + 1) * na]);
-            }
-            for i in 0..nb {
-                full[(na + i) * kk + na..(na + i) * kk + kk]
-                    .copy_from_slice(&b[i * nb..(i + 1) * nb]);
-            }
-            full
-        }),
-        (None, _) => None,
-    };
-    if covariance.is_none() && kk > 0 {
-        warnings.push(FitWarning::NoStandardErrors);
-    }
-    let se_of = |term: Term| -> Option<f64> {
-        let i = covariance_terms.iter().position(|t| *t == term)?;
-        let v = covariance.as_ref()?[i * kk + i];
-        (v > 0.0).then(|| v.sqrt())
-    };
+    drop(ws);
     let mut coefficients = Vec::new();
     for term in bp.terms() {
         let held = bp.held_value(term);
@@ -552,7 +628,7 @@ fn fit_prepared(
         coefficients.push(CoefficientEstimate {
             term,
             value,
-            std_error: if held.is_some() { None } else { se_of(term) },
+            std_error: None,
             held: held.is_some(),
         });
     }
@@ -598,11 +674,11 @@ fn fit_prepared(
         ObjectiveKind::Exact => LogLikelihood::Exact(-ev.neg_log_likelihood),
         ObjectiveKind::Conditional => LogLikelihood::Conditional(-ev.neg_log_likelihood),
     };
-    Ok(FittedModel {
+    let mut model = FittedModel {
         blueprint: bp.clone(),
         coefficients,
-        covariance_terms,
-        covariance,
+        covariance_terms: Vec::new(),
+        covariance: None,
         innovation_variance: ev.innovation_variance,
         log_likelihood,
         counts: ReadingCounts {
@@ -620,7 +696,13 @@ fn fit_prepared(
         data_fingerprint: fingerprint(series),
         forecaster,
         terminal,
-    })
+    };
+    if errors {
+        attach_covariance(&mut model, layout, prep, hess, beta_cov);
+        Ok((model, DeferredErrors { beta_cov: None }))
+    } else {
+        Ok((model, DeferredErrors { beta_cov }))
+    }
 }
 
 /// FNV-1a over the bit patterns of the readings (NaN canonicalised).

@@ -86,6 +86,74 @@ pub(crate) fn invert_spd(a: &[f64], k: usize) -> Option<Vec<f64>> {
     Some(inv)
 }
 
+/// Householder QR of the columns `a` (column-major, overwritten: `v` below the diagonal,
+/// R above it, R's diagonal in `rdiag`), applying the reflections to `b` (→ Qᵀb). Stops
+/// at the first column that is dependent on the earlier ones to working precision and
+/// returns how many columns were reduced.
+fn householder(a: &mut [Vec<f64>], b: &mut [f64], rdiag: &mut [f64]) -> usize {
+    let k = a.len();
+    for j in 0..k {
+        let norm = a[j][j..].iter().map(|v| v * v).sum::<f64>().sqrt();
+        if !(norm > 1e-13) {
+            return j;
+        }
+        let alpha = if a[j][j] > 0.0 { -norm } else { norm };
+        // v = x − alpha e1, stored in a[j][j..]
+        a[j][j] -= alpha;
+        let vnorm2 = a[j][j..].iter().map(|v| v * v).sum::<f64>();
+        rdiag[j] = alpha;
+        if vnorm2 == 0.0 {
+            continue;
+        }
+        let (head, tail) = a.split_at_mut(j + 1);
+        let v = &head[j][j..];
+        for col in tail.iter_mut() {
+            let dot: f64 = v.iter().zip(&col[j..]).map(|(p, q)| p * q).sum();
+            let f = 2.0 * dot / vnorm2;
+            for (c, vi) in col[j..].iter_mut().zip(v) {
+                *c -= f * vi;
+            }
+        }
+        let dot: f64 = v.iter().zip(&b[j..]).map(|(p, q)| p * q).sum();
+        let f = 2.0 * dot / vnorm2;
+        for (c, vi) in b[j..].iter_mut().zip(v) {
+            *c -= f * vi;
+        }
+    }
+    k
+}
+
+/// Residual sums of squares of the nested least-squares fits of `y` on the first
+/// `1, 2, …` columns (one QR: with `Qᵀy = c`, the fit on `j` columns leaves `Σ_{i≥j} c_i²`).
+/// Stops before the first column that is dependent on the earlier ones (scaled to unit
+/// norm first, as in [`least_squares`]).
+pub(crate) fn nested_residual_sums(columns: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
+    let n = y.len();
+    if columns.iter().any(|c| c.len() != n) {
+        return Vec::new();
+    }
+    let mut a: Vec<Vec<f64>> = columns
+        .iter()
+        .map(|c| {
+            let s = c.iter().map(|v| v * v).sum::<f64>().sqrt();
+            let s = if s > 0.0 { s } else { 1.0 };
+            c.iter().map(|v| v / s).collect()
+        })
+        .collect();
+    let k = a.len().min(n);
+    a.truncate(k);
+    let mut b = y.to_vec();
+    let mut rdiag = vec![0.0; k];
+    let done = householder(&mut a, &mut b, &mut rdiag);
+    // tail[j] = Σ_{i≥j} b_i²
+    let mut tail = vec![0.0; done + 1];
+    tail[done] = b[done..].iter().map(|v| v * v).sum();
+    for j in (0..done).rev() {
+        tail[j] = tail[j + 1] + b[j] * b[j];
+    }
+    tail[1..].to_vec()
+}
+
 /// Least squares `min ‖y − Xβ‖` by Householder QR with column scaling.
 /// `x` is column-major (`columns[j]` has `n` rows). Returns `(β, R⁻¹R⁻ᵀ)` — the
 /// coefficients and the unscaled covariance factor `(XᵀX)⁻¹` — or `None` if `X` is
@@ -111,33 +179,8 @@ pub(crate) fn least_squares(columns: &[Vec<f64>], y: &[f64]) -> Option<(Vec<f64>
         .collect();
     let mut b = y.to_vec();
     let mut rdiag = vec![0.0; k];
-    for j in 0..k {
-        let norm = a[j][j..].iter().map(|v| v * v).sum::<f64>().sqrt();
-        if !(norm > 1e-13) {
-            return None;
-        }
-        let alpha = if a[j][j] > 0.0 { -norm } else { norm };
-        // v = x − alpha e1, stored in a[j][j..]
-        a[j][j] -= alpha;
-        let vnorm2 = a[j][j..].iter().map(|v| v * v).sum::<f64>();
-        rdiag[j] = alpha;
-        if vnorm2 == 0.0 {
-            continue;
-        }
-        let (head, tail) = a.split_at_mut(j + 1);
-        let v = &head[j][j..];
-        for col in tail.iter_mut() {
-            let dot: f64 = v.iter().zip(&col[j..]).map(|(p, q)| p * q).sum();
-            let f = 2.0 * dot / vnorm2;
-            for (c, vi) in col[j..].iter_mut().zip(v) {
-                *c -= f * vi;
-            }
-        }
-        let dot: f64 = v.iter().zip(&b[j..]).map(|(p, q)| p * q).sum();
-        let f = 2.0 * dot / vnorm2;
-        for (c, vi) in b[j..].iter_mut().zip(v) {
-            *c -= f * vi;
-        }
+    if householder(&mut a, &mut b, &mut rdiag) < k {
+        return None;
     }
     // R: diagonal rdiag, above-diagonal a[col][row] for row < col.
     let r = |i: usize, j: usize| if i == j { rdiag[i] } else { a[j][i] };
@@ -213,5 +256,38 @@ mod tests {
                 && (cov[3] - 0.1).abs() < 1e-14
         );
         assert!(least_squares(&[vec![1.0; 3], vec![2.0; 3]], &[1.0, 2.0, 3.0]).is_none());
+    }
+
+    #[test]
+    fn nested_sums_match_separate_fits() {
+        let n = 60;
+        let cols: Vec<Vec<f64>> = (0..5)
+            .map(|j| {
+                (0..n)
+                    .map(|t| ((t * (j + 3) * 7919) % 101) as f64 / 50.0 - 1.0)
+                    .collect()
+            })
+            .collect();
+        let y: Vec<f64> = (0..n).map(|t| ((t * 104729) % 97) as f64 / 40.0).collect();
+        let nested = nested_residual_sums(&cols, &y);
+        assert_eq!(nested.len(), 5);
+        for j in 1..=5 {
+            let (b, _) = least_squares(&cols[..j], &y).unwrap();
+            let ssr: f64 = (0..n)
+                .map(|i| {
+                    let fit: f64 = (0..j).map(|c| b[c] * cols[c][i]).sum();
+                    (y[i] - fit).powi(2)
+                })
+                .sum();
+            assert!(
+                (nested[j - 1] - ssr).abs() < 1e-10 * ssr,
+                "{j}: {} vs {ssr}",
+                nested[j - 1]
+            );
+        }
+        // A dependent column ends the list.
+        let mut dep = cols.clone();
+        dep[2] = dep[0].iter().map(|v| 2.0 * v).collect();
+        assert_eq!(nested_residual_sums(&dep, &y).len(), 2);
     }
 }

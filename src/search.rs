@@ -30,7 +30,7 @@
 
 use crate::criteria::Criterion;
 use crate::error::{Error, ErrorKind, Result};
-use crate::fitted::{FitWorkspace, FittedModel};
+use crate::fitted::{DeferredErrors, FitWorkspace, FittedModel};
 use crate::linalg;
 use crate::spec::{Blueprint, Estimator};
 
@@ -221,20 +221,19 @@ pub fn augmented_dickey_fuller(series: &[f64], terms: TrendTerms) -> Result<Root
     } else {
         1
     };
+    // Lag length by AIC on the common sample t = kmax+1 .. n-1: the fits with 0..=kmax
+    // lags are nested, so one QR of the largest design gives every residual sum.
+    let base = gamma_col + 1;
     let mut best = (f64::INFINITY, 0usize);
-    for k in 0..=kmax {
-        let (cols, target) = design(k, kmax);
-        let Some((b, _)) = linalg::least_squares(&cols, &target) else {
-            continue;
-        };
-        let m = target.len() as f64;
-        let ssr: f64 = (0..target.len())
-            .map(|i| {
-                let fit: f64 = cols.iter().zip(&b).map(|(c, bj)| c[i] * bj).sum();
-                (target[i] - fit).powi(2)
-            })
-            .sum();
-        let info = m * (ssr / m).ln() + 2.0 * cols.len() as f64;
+    let (cols, target) = design(kmax, kmax);
+    let m = target.len() as f64;
+    for (j, ssr) in linalg::nested_residual_sums(&cols, &target)
+        .into_iter()
+        .enumerate()
+        .skip(base - 1)
+    {
+        let k = j + 1 - base;
+        let info = m * (ssr / m).ln() + 2.0 * (base + k) as f64;
         if info < best.0 {
             best = (info, k);
         }
@@ -584,7 +583,7 @@ pub fn search_orders_with(
     let (msp, msq) = if s > 1 { (msp, msq) } else { (0, 0) };
     let constant_allowed = d + sd <= 1;
     let mut tried: Vec<Candidate> = Vec::new();
-    let mut fits: Vec<Option<FittedModel>> = Vec::new();
+    let mut fits: Vec<Option<(FittedModel, DeferredErrors)>> = Vec::new();
     let key = |p: usize, q: usize, sp: usize, sq: usize, c: bool| (p, q, sp, sq, c);
     let mut seen = std::collections::HashSet::new();
 
@@ -594,7 +593,7 @@ pub fn search_orders_with(
                        sq: usize,
                        c: bool,
                        tried: &mut Vec<Candidate>,
-                       fits: &mut Vec<Option<FittedModel>>|
+                       fits: &mut Vec<Option<(FittedModel, DeferredErrors)>>|
      -> Option<f64> {
         if p > mp || q > mq || sp > msp || sq > msq || (c && !constant_allowed) {
             return None;
@@ -630,9 +629,11 @@ pub fn search_orders_with(
             adequate: false,
             failure: None,
         };
-        let fit = b.build().and_then(|bp| bp.fit_with(series, ws));
+        // Standard errors only for the chosen candidate (the Hessian is 2k² + 1
+        // evaluations per candidate).
+        let fit = b.build().and_then(|bp| bp.fit_deferring_errors(series, ws));
         match fit {
-            Ok(m) if cancelling(&m) => {
+            Ok((m, _)) if cancelling(&m) => {
                 // Discarded, and not a stepping stone either: navigating through such
                 // fits (the (2,2) start is often one) led the search into large orders
                 // at several times the cost without better recovery.
@@ -642,7 +643,7 @@ pub fn search_orders_with(
                 fits.push(None);
                 None
             }
-            Ok(m) => {
+            Ok((m, deferred)) => {
                 let crit = m
                     .criteria()
                     .ok()
@@ -662,7 +663,7 @@ pub fn search_orders_with(
                     cand.failure = Some(format!("{} undefined", settings.criterion));
                 }
                 tried.push(cand);
-                fits.push(Some(m));
+                fits.push(Some((m, deferred)));
                 crit
             }
             Err(e) => {
@@ -838,9 +839,10 @@ pub fn search_orders_with(
         explanation.push_str("; NO candidate passed the whiteness gate: this is the best inadequate one, do not trust its significance");
     }
     explanation.push('.');
-    let model = fits[idx]
+    let (mut model, deferred) = fits[idx]
         .take()
         .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?;
+    crate::fitted::complete_standard_errors(&mut model, series, deferred, ws)?;
     Ok(SearchOutcome {
         model,
         adequate,

@@ -235,6 +235,19 @@ fn airline_search_passes_the_gate() {
     assert_eq!(out.differencing.1, 1, "{out}");
     assert!(out.candidates.len() >= 5);
     assert!(out.explanation.contains("chose"));
+    // The search computes standard errors for the chosen candidate only; they are those
+    // of a plain fit of the same blueprint, bit for bit.
+    let plain = out.model.blueprint().fit(&y).unwrap();
+    let bits = |m: &lagwise::FittedModel| -> Vec<u64> {
+        m.coefficients()
+            .iter()
+            .flat_map(|c| [c.value.to_bits(), c.std_error.map_or(0, f64::to_bits)])
+            .chain(m.covariance().unwrap_or(&[]).iter().map(|v| v.to_bits()))
+            .collect()
+    };
+    assert!(out.model.covariance().is_some());
+    assert_eq!(bits(&out.model), bits(&plain));
+    assert_eq!(out.model.warnings(), plain.warnings());
 }
 
 #[test]
