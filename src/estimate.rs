@@ -26,7 +26,7 @@ use argmin::solver::linesearch::condition::ArmijoCondition;
 use argmin::solver::quasinewton::BFGS;
 
 use crate::error::{Error, ErrorKind, Result};
-use crate::kalman::{KalmanWorkspace, direct_recursion};
+use crate::kalman::{KalmanWorkspace, PassTotals, direct_recursion};
 use crate::lag;
 use crate::linalg;
 use crate::spec::{Blueprint, Term};
@@ -639,6 +639,9 @@ impl EvalWorkspace {
                     self.lane_filters
                         .resize(MAX_LANES, KalmanWorkspace::default());
                 }
+                // Each lane's filter opens with its own Chandrasekhar phase; four of them
+                // run side by side, then each continues alone up to its direct phase.
+                let mut active = [false; MAX_LANES];
                 for (l, c) in chunk.iter().enumerate() {
                     self.expand(c, bp.period);
                     let filter = &mut self.lane_filters[l];
@@ -647,7 +650,27 @@ impl EvalWorkspace {
                         continue;
                     }
                     let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
-                    let (tot, stop) = filter.pass_until(&prep.data, n, k, cross, true);
+                    filter.begin_pass(n, k, cross, true);
+                    active[l] = true;
+                }
+                let mut opened = [(0usize, false, PassTotals::default()); MAX_LANES];
+                crate::kalman::open_side_by_side(
+                    &mut self.lane_filters[..chunk.len()],
+                    &active[..chunk.len()],
+                    &prep.data,
+                    n,
+                    k,
+                    &mut self.lane_cross,
+                    &mut opened,
+                );
+                for l in 0..chunk.len() {
+                    if !active[l] {
+                        continue;
+                    }
+                    let filter = &mut self.lane_filters[l];
+                    let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
+                    let (tot, stop) =
+                        filter.pass_from(&prep.data, n, k, cross, true, Some(opened[l]));
                     log_det[l] = tot.log_det;
                     used[l] = tot.used;
                     match stop {

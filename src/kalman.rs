@@ -329,13 +329,19 @@ impl KalmanWorkspace {
         cross: &mut [f64],
         stop_at_direct: bool,
     ) -> (PassTotals, Option<usize>) {
-        debug_assert!(!stop_at_direct || !data[..n].iter().any(|v| v.is_nan()));
-        // Innovation of column c at time t lives at c·stride + (t & mask).
-        let (stride, mask) = if stop_at_direct {
-            (Self::RING, Self::RING - 1)
-        } else {
-            (n, usize::MAX)
-        };
+        self.begin_pass(n, ncols, cross, stop_at_direct);
+        self.pass_from(data, n, ncols, cross, stop_at_direct, None)
+    }
+
+    /// Size and clear the buffers of a pass (see [`Self::pass_until`]).
+    pub(crate) fn begin_pass(
+        &mut self,
+        n: usize,
+        ncols: usize,
+        cross: &mut [f64],
+        stop_at_direct: bool,
+    ) {
+        let stride = if stop_at_direct { Self::RING } else { n };
         let r = self.r;
         resize(&mut self.state, ncols * r);
         // Every entry of these two is written by the pass: size them, don't clear them.
@@ -349,10 +355,37 @@ impl KalmanWorkspace {
         for v in self.state.iter_mut() {
             *v = 0.0;
         }
+    }
+
+    /// The pass after [`Self::begin_pass`]. `opened` is where an opening Chandrasekhar
+    /// phase run elsewhere ([`open_side_by_side`]) stopped: `(t, converged, totals)`;
+    /// `None` runs it here.
+    pub(crate) fn pass_from(
+        &mut self,
+        data: &[f64],
+        n: usize,
+        ncols: usize,
+        cross: &mut [f64],
+        stop_at_direct: bool,
+        opened: Option<(usize, bool, PassTotals)>,
+    ) -> (PassTotals, Option<usize>) {
+        debug_assert!(!stop_at_direct || !data[..n].iter().any(|v| v.is_nan()));
+        // Innovation of column c at time t lives at c·stride + (t & mask).
+        let (stride, mask) = if stop_at_direct {
+            (Self::RING, Self::RING - 1)
+        } else {
+            (n, usize::MAX)
+        };
+        let r = self.r;
         let mut totals = PassTotals::default();
         let mut phase = Phase::Full;
         self.full_steps = 0;
         let mut t = 0;
+        if let Some((next, steady, opened_totals)) = opened {
+            totals = opened_totals;
+            phase = self.after_opening(next, n, steady);
+            t = next;
+        }
         while t < n {
             let missing = data[t].is_nan();
             match phase {
@@ -374,18 +407,8 @@ impl KalmanWorkspace {
                             (stride, mask),
                             !stop_at_direct,
                         );
-                        self.full_steps += next;
+                        phase = self.after_opening(next, n, steady);
                         t = next;
-                        if steady {
-                            phase = Phase::Steady(0);
-                        } else if t < n {
-                            // A gap before convergence: the covariance recursion takes
-                            // over. P_t depends on the model only, so replay it.
-                            for _ in 0..t {
-                                let f = self.p[0];
-                                self.predict_covariance_after_update(f);
-                            }
-                        }
                         continue;
                     }
                     self.full_steps += 1;
@@ -517,6 +540,23 @@ impl KalmanWorkspace {
             t += 1;
         }
         (totals, None)
+    }
+
+    /// The phase after an opening Chandrasekhar stretch that ended at `t`.
+    fn after_opening(&mut self, t: usize, n: usize, steady: bool) -> Phase {
+        self.full_steps = t;
+        if steady {
+            return Phase::Steady(0);
+        }
+        if t < n {
+            // A gap before convergence: the covariance recursion takes over. P_t depends
+            // on the model only, so replay it.
+            for _ in 0..t {
+                let f = self.p[0];
+                self.predict_covariance_after_update(f);
+            }
+        }
+        Phase::Full
     }
 
     /// The full-covariance phase from the stationary start (t = 0) by the Chandrasekhar
@@ -957,11 +997,13 @@ fn chandrasekhar_steps(
             }
             a[r - 1] = phi[r - 1] * a0 + g[r - 1] * gv;
         }
-        if ncols == 1 {
-            let v = innov[t & mask];
-            cross[0] += v * v * inv;
-        } else {
-            accumulate_cross(innov, stride, t & mask, ncols, f, cross);
+        match ncols {
+            1 => {
+                let v = innov[t & mask];
+                cross[0] += v * v * inv;
+            }
+            2 => cross_two(innov[t & mask], innov[stride + (t & mask)], f, cross),
+            _ => accumulate_cross(innov, stride, t & mask, ncols, f, cross),
         }
         let w0 = w[0];
         let k = w0 * inv;
@@ -985,6 +1027,170 @@ fn chandrasekhar_steps(
         totals.log_det += product.ln();
     }
     (t, steady)
+}
+
+/// `cross` (2×2 upper triangle) += v vᵀ / F, the same arithmetic as [`accumulate_cross`].
+#[inline(always)]
+fn cross_two(v0: f64, v1: f64, f: f64, cross: &mut [f64]) {
+    let a = v0 / f;
+    cross[0] += a * v0;
+    cross[1] += a * v1;
+    let b = v1 / f;
+    cross[3] += b * v1;
+}
+
+/// The opening Chandrasekhar phases of several filters of one shape (`r ≤ 4`, at most two
+/// columns, no missing readings; each after [`KalmanWorkspace::set_model`] and
+/// [`KalmanWorkspace::begin_pass`] in stopping mode), four side by side in one loop so
+/// that their division-bound recursions overlap. Per filter the arithmetic is exactly
+/// that of [`chandrasekhar_steps`], so every result is bitwise the single-filter one.
+/// `cross` holds `kk = ncols²` entries per filter. Returns `(t, converged, totals)` per
+/// filter for [`KalmanWorkspace::pass_from`]; inactive filters are left alone.
+pub(crate) fn open_side_by_side(
+    filters: &mut [KalmanWorkspace],
+    active: &[bool],
+    data: &[f64],
+    n: usize,
+    ncols: usize,
+    cross: &mut [f64],
+    out: &mut [(usize, bool, PassTotals)],
+) {
+    let mut idx_all = [0usize; crate::lanes::MAX_LANES];
+    let mut count = 0;
+    for l in (0..filters.len().min(crate::lanes::MAX_LANES)).filter(|&l| active[l]) {
+        idx_all[count] = l;
+        count += 1;
+    }
+    if count == 0 {
+        return;
+    }
+    let r = filters[idx_all[0]].r;
+    for group in idx_all[..count].chunks(4) {
+        macro_rules! go {
+            ($r:literal, $c:literal) => {
+                open_group::<$r, $c>(filters, group, data, n, cross, out)
+            };
+        }
+        match (r, ncols) {
+            (1, 1) => go!(1, 1),
+            (2, 1) => go!(2, 1),
+            (3, 1) => go!(3, 1),
+            (4, 1) => go!(4, 1),
+            (1, _) => go!(1, 2),
+            (2, _) => go!(2, 2),
+            (3, _) => go!(3, 2),
+            _ => go!(4, 2),
+        }
+    }
+}
+
+fn open_group<const R: usize, const C: usize>(
+    filters: &mut [KalmanWorkspace],
+    group: &[usize],
+    data: &[f64],
+    n: usize,
+    cross_all: &mut [f64],
+    out: &mut [(usize, bool, PassTotals)],
+) {
+    const L: usize = 4;
+    const RING: usize = KalmanWorkspace::RING;
+    let kk = C * C;
+    let mut phi = [[0.0f64; R]; L];
+    let mut g = [[0.0f64; R]; L];
+    let mut w = [[0.0f64; R]; L];
+    let mut st = [[[0.0f64; R]; C]; L];
+    let mut ring = [[[0.0f64; RING]; C]; L];
+    let mut cross = [[0.0f64; 4]; L];
+    let mut f = [1.0f64; L];
+    let mut product = [1.0f64; L];
+    let mut factors = [0usize; L];
+    let mut totals = [PassTotals::default(); L];
+    let mut done = [true; L];
+    let mut stop = [(0usize, false); L];
+    for (j, &l) in group.iter().enumerate() {
+        let fl = &filters[l];
+        let f0 = fl.p[0];
+        for i in 0..R {
+            phi[j][i] = fl.phi[i];
+            let below = if i + 1 < R { fl.p[(i + 1) * R] } else { 0.0 };
+            g[j][i] = fl.phi[i] * f0 + below;
+        }
+        w[j] = g[j];
+        f[j] = f0;
+        done[j] = false;
+    }
+    let mut live = group.len();
+    let mut t = 0;
+    while live > 0 && t < n {
+        let y = [data[t], if C == 2 { data[n + t] } else { 0.0 }];
+        for j in 0..L {
+            if done[j] {
+                continue;
+            }
+            let fj = f[j];
+            let inv = 1.0 / fj;
+            product[j] *= fj;
+            factors[j] += 1;
+            if factors[j] == 16 || product[j] > 1e150 {
+                totals[j].log_det += product[j].ln();
+                product[j] = 1.0;
+                factors[j] = 0;
+            }
+            totals[j].used += 1;
+            let mut v = [0.0f64; C];
+            for c in 0..C {
+                let a = &mut st[j][c];
+                let a0 = a[0];
+                let vc = y[c] - a0;
+                v[c] = vc;
+                ring[j][c][t & (RING - 1)] = vc;
+                let gv = vc * inv;
+                for i in 0..R - 1 {
+                    a[i] = phi[j][i] * a0 + a[i + 1] + g[j][i] * gv;
+                }
+                a[R - 1] = phi[j][R - 1] * a0 + g[j][R - 1] * gv;
+            }
+            if C == 1 {
+                cross[j][0] += v[0] * v[0] * inv;
+            } else {
+                cross_two(v[0], v[C - 1], fj, &mut cross[j]);
+            }
+            let w0 = w[j][0];
+            let k = w0 * inv;
+            let nf = fj - w0 * k;
+            f[j] = nf;
+            let mut size = 0.0;
+            for i in 0..R {
+                let u = phi[j][i] * w0 + if i + 1 < R { w[j][i + 1] } else { 0.0 };
+                let gi = g[j][i];
+                g[j][i] = gi - k * u;
+                let wi = u - k * gi;
+                w[j][i] = wi;
+                size += wi * wi;
+            }
+            if size < CHANDRASEKHAR_TOLERANCE * nf && nf - 1.0 < 1e-10 {
+                done[j] = true;
+                stop[j] = (t + 1, true);
+                live -= 1;
+            }
+        }
+        t += 1;
+    }
+    for (j, &l) in group.iter().enumerate() {
+        if !stop[j].1 {
+            stop[j] = (t, false);
+        }
+        if factors[j] > 0 {
+            totals[j].log_det += product[j].ln();
+        }
+        let fl = &mut filters[l];
+        for c in 0..C {
+            fl.state[c * R..(c + 1) * R].copy_from_slice(&st[j][c]);
+            fl.innov[c * RING..(c + 1) * RING].copy_from_slice(&ring[j][c]);
+        }
+        cross_all[l * kk..(l + 1) * kk].copy_from_slice(&cross[j][..kk]);
+        out[l] = (stop[j].0, stop[j].1, totals[j]);
+    }
 }
 
 #[inline]
