@@ -999,6 +999,8 @@ struct Objective<'a> {
     ws: &'a RefCell<EvalWorkspace>,
     evals: &'a Cell<usize>,
     budget: usize,
+    /// Objective values asked for since the last gradient (the line search's tries).
+    tries: &'a Cell<usize>,
     best: &'a RefCell<(f64, Vec<f64>)>,
     eval_out: &'a RefCell<Evaluation>,
 }
@@ -1187,6 +1189,16 @@ impl CostFunction for Objective<'_> {
         if self.evals.get() >= self.budget {
             return Err(argmin::core::Error::msg("evaluation budget exhausted"));
         }
+        // Backtracking halves the step each try. After `MAX_TRIES` the trial step is
+        // below 2⁻⁶⁰ of the quasi-Newton step: a finite direction no longer moves the
+        // point, and an infinite one (a broken carried curvature) never becomes
+        // admissible. Stop the line search there (the run restarts from the best point
+        // with a fresh inverse Hessian) instead of spending the whole budget on it.
+        const MAX_TRIES: usize = 60;
+        self.tries.set(self.tries.get() + 1);
+        if self.tries.get() > MAX_TRIES {
+            return Err(argmin::core::Error::msg("line search made no progress"));
+        }
         Ok(self.value(x))
     }
 }
@@ -1195,6 +1207,7 @@ impl Gradient for Objective<'_> {
     type Param = Vec<f64>;
     type Gradient = Vec<f64>;
     fn gradient(&self, x: &Self::Param) -> std::result::Result<Vec<f64>, argmin::core::Error> {
+        self.tries.set(0);
         Ok(self.gradient_at(x))
     }
 }
@@ -1213,6 +1226,7 @@ pub(crate) fn minimise(
     inv_hessian0: Option<Vec<Vec<f64>>>,
 ) -> Result<StageOutcome> {
     let evals = Cell::new(0);
+    let tries = Cell::new(0);
     let best = RefCell::new((f64::INFINITY, x0.clone()));
     let eval_out = RefCell::new(Evaluation::default());
     let obj = Objective {
@@ -1223,6 +1237,7 @@ pub(crate) fn minimise(
         ws,
         evals: &evals,
         budget: bp.max_iterations * (2 * x0.len() * x0.len() + 4 * x0.len() + 30),
+        tries: &tries,
         best: &best,
         eval_out: &eval_out,
     };
@@ -1263,6 +1278,7 @@ pub(crate) fn minimise(
     let mut carried = inv_hessian0.filter(|h| h.len() == k);
     let mut last_inv_hessian = None;
     for _restart in 0..4 {
+        tries.set(0);
         let start = best.borrow().1.clone();
         let remaining = max_iter.saturating_sub(iterations);
         if remaining == 0 {
