@@ -26,8 +26,10 @@
 //!    reading, so the Chandrasekhar recursions (Morf, Sidhu & Kailath 1974) carry the
 //!    gain in O(r) per step. After a missing reading (NaN: no measurement update) the
 //!    covariance recursion takes over, exploiting the companion structure, O(r²) per step.
-//! 2. **Steady**: once the trace of the updated covariance `P⁺_t` is below 1e-14 the gain has converged to `R` (for an
-//!    invertible MA part); the state is updated in O(r) for `r` steps.
+//! 2. **Steady**: once the gain has converged to `R` (for an invertible MA part: the
+//!    Chandrasekhar step `|w|²/F` below 1e-16, or the trace of the updated covariance
+//!    `P⁺_t` below 1e-14 in the covariance recursion) the state is updated in O(r) for
+//!    `r` steps.
 //! 3. **Direct**: the filter is then exactly the innovations recursion
 //!    `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` over the non-zero coefficients only
 //!    (4 terms for an AR(1)×seasonal MA(1) at r = 97). A missing reading rebuilds the
