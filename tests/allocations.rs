@@ -1,8 +1,11 @@
 //! Proof that a likelihood evaluation allocates nothing once the workspace has grown.
-//! A separate test binary because it installs a counting global allocator; it holds a
-//! single test so that no other test thread allocates while it counts.
+//! A separate test binary because it installs a counting global allocator. Only the test's
+//! own thread is counted: the harness's main thread prints test names concurrently, and on
+//! a loaded machine that printing can fall inside the counting window (seen once in CI: 4
+//! allocations that were not ours).
 
 use std::alloc::{GlobalAlloc, Layout, System};
+use std::cell::Cell;
 use std::sync::atomic::{AtomicUsize, Ordering};
 
 use lagwise::{Blueprint, FitWorkspace, Simulator};
@@ -11,9 +14,21 @@ struct Counting;
 
 static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
 
+thread_local! {
+    /// Whether allocations on this thread are counted (const-initialised: reading it
+    /// does not allocate).
+    static COUNTED: Cell<bool> = const { Cell::new(false) };
+}
+
+fn note_allocation() {
+    if COUNTED.try_with(|c| c.get()).unwrap_or(false) {
+        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+    }
+}
+
 unsafe impl GlobalAlloc for Counting {
     unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        note_allocation();
         // SAFETY: forwarded unchanged to the system allocator.
         unsafe { System.alloc(layout) }
     }
@@ -22,7 +37,7 @@ unsafe impl GlobalAlloc for Counting {
         unsafe { System.dealloc(ptr, layout) }
     }
     unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        note_allocation();
         // SAFETY: forwarded unchanged to the system allocator.
         unsafe { System.realloc(ptr, layout, new_size) }
     }
@@ -33,6 +48,7 @@ static GLOBAL: Counting = Counting;
 
 #[test]
 fn likelihood_evaluations_do_not_allocate() {
+    COUNTED.with(|c| c.set(true));
     let cases: Vec<(Blueprint, Vec<f64>, Vec<f64>)> = vec![
         (
             Blueprint::builder().nonseasonal(2, 0, 1).build().unwrap(),
