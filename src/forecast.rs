@@ -363,6 +363,52 @@ fn transpose(a: &[f64], dim: usize) -> Vec<f64> {
     t
 }
 
+#[cfg(test)]
+thread_local! {
+    /// Tests only: build terminal states by the dense augmented filter throughout.
+    static DENSE_ONLY: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// The terminal state from the ARMA filter on `w_t = z_t − Σ c_k z_{t−k}` (`z` holds the
+/// δ lags before t0 and every reading from t0 on, none missing): the α block is that
+/// filter's predicted state, the lag block the last δ readings. Exact when the filter has
+/// converged by the end (`None` otherwise: the dense filter then carries the covariance).
+fn steady_terminal(
+    m: &ForecastModel,
+    z: &[f64],
+    delta: usize,
+    next_index: u64,
+) -> Result<Option<FilterState>> {
+    let n = z.len();
+    let w: Vec<f64> = (delta..n)
+        .map(|t| {
+            z[t] - m
+                .c
+                .iter()
+                .enumerate()
+                .map(|(k, c)| c * z[t - 1 - k])
+                .sum::<f64>()
+        })
+        .collect();
+    let mut kw = crate::kalman::KalmanWorkspace::default();
+    kw.set_model(trim(&m.phi), trim(&m.rvec[1..]))?;
+    if kw.r != m.r {
+        return Ok(None);
+    }
+    let mut cross = [0.0];
+    kw.pass(&w, w.len(), 1, &mut cross);
+    let Some(alpha) = kw.steady_terminal_state(&w, w.len()) else {
+        return Ok(None);
+    };
+    let mut s = alpha.to_vec();
+    s.extend((1..=delta).map(|k| z[n - k]));
+    Ok(Some(FilterState {
+        s,
+        cov: Vec::new(),
+        next_index,
+    }))
+}
+
 /// Run the forecasting filter over a whole series (original scale) and return its final
 /// state. `regressors` are the exogenous columns over the series.
 pub(crate) fn terminal_state(
@@ -400,6 +446,18 @@ pub(crate) fn terminal_state(
         )
     })?;
     let lags: Vec<f64> = (1..=delta).map(|k| z_at(t0 - k, &mut xbuf)).collect();
+    #[cfg(test)]
+    let dense_only = DENSE_ONLY.with(|d| d.get());
+    #[cfg(not(test))]
+    let dense_only = false;
+    if !dense_only && !series[t0..].iter().any(|v| v.is_nan()) {
+        // No missing reading from t0 on: the lag block of the augmented state stays known,
+        // and its ARMA block is the estimation filter's on the differenced readings.
+        let z: Vec<f64> = (t0 - delta..n).map(|t| z_at(t, &mut xbuf)).collect();
+        if let Some(st) = steady_terminal(m, &z, delta, n as u64)? {
+            return Ok(st);
+        }
+    }
     let mut st = FilterState::start(m, &lags, t0 as u64)?;
     for t in t0..n {
         let z = if series[t].is_nan() {
@@ -718,5 +776,93 @@ impl Monitor {
             return Err(format!("alarm level {} outside (0, 1)", self.alarm_level));
         }
         Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::{Blueprint, Simulator};
+
+    /// The terminal state taken from the ARMA filter equals the dense augmented filter's:
+    /// non-seasonal, integrated with drift, seasonal with differencing, and a regression
+    /// with ARMA errors; forecasts from both agree to rounding.
+    #[test]
+    fn steady_terminal_matches_dense_filter() {
+        let sim = |ar: &[f64], ma: &[f64], sma: &[f64], s: usize, d: usize, sd: usize| {
+            Simulator::builder()
+                .autoregressive(ar)
+                .moving_average(ma)
+                .seasonal(&[], sma, s)
+                .differencing(d, sd)
+                .level(40.0)
+                .build()
+                .unwrap()
+                .generate(600, 11)
+        };
+        let outdoor: Vec<f64> = (0..600).map(|t| (t as f64 / 30.0).sin()).collect();
+        let cases: Vec<(Blueprint, Vec<f64>, bool)> = vec![
+            (
+                Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap(),
+                sim(&[0.6], &[0.3], &[], 1, 0, 0),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(0, 1, 1)
+                    .drift_term(true)
+                    .build()
+                    .unwrap(),
+                sim(&[], &[0.5], &[], 1, 1, 0),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 1)
+                    .periodic(0, 1, 1, 12)
+                    .build()
+                    .unwrap(),
+                sim(&[0.5], &[0.2], &[-0.6], 12, 0, 1),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .exogenous(1)
+                    .build()
+                    .unwrap(),
+                sim(&[0.7], &[], &[], 1, 0, 0),
+                true,
+            ),
+        ];
+        for (bp, x, exo) in cases {
+            let regs: Vec<&[f64]> = if exo { vec![&outdoor] } else { vec![] };
+            let model = bp.fit_regression(&x, &regs).unwrap();
+            let fast = terminal_state(&model.forecaster, &x, &regs).unwrap();
+            DENSE_ONLY.with(|d| d.set(true));
+            let dense = terminal_state(&model.forecaster, &x, &regs).unwrap();
+            DENSE_ONLY.with(|d| d.set(false));
+            let label = bp.shape_label();
+            assert!(fast.cov.is_empty(), "{label}: fast path not taken");
+            assert_eq!(fast.next_index, dense.next_index, "{label}");
+            assert_eq!(fast.s.len(), dense.s.len(), "{label}");
+            for (a, b) in fast.s.iter().zip(&dense.s) {
+                assert!(
+                    (a - b).abs() <= 1e-9 * (1.0 + b.abs()),
+                    "{label}: {a} vs {b}"
+                );
+            }
+            let future: Vec<f64> = (0..24).map(|t| (t as f64 / 7.0).cos()).collect();
+            let fregs: Vec<&[f64]> = if exo { vec![&future] } else { vec![] };
+            let f1 = forecast_from(&model.forecaster, &fast, 24, &[0.95], &fregs).unwrap();
+            let f2 = forecast_from(&model.forecaster, &dense, 24, &[0.95], &fregs).unwrap();
+            for (a, b) in f1.steps.iter().zip(&f2.steps) {
+                assert!(
+                    (a.mean - b.mean).abs() <= 1e-9 * (1.0 + b.mean.abs()),
+                    "{label}"
+                );
+                assert!((a.sd - b.sd).abs() <= 1e-9 * b.sd, "{label}");
+            }
+        }
     }
 }

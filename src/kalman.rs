@@ -88,6 +88,8 @@ pub(crate) struct KalmanWorkspace {
     pub(crate) fvar: Vec<f64>,
     /// Steps spent in the full-covariance phase during the last pass.
     pub(crate) full_steps: usize,
+    /// The phase the last complete pass ended in.
+    ended_in: Phase,
     /// Tests only: force a route through the full-covariance phase.
     #[cfg(test)]
     route: Route,
@@ -541,7 +543,23 @@ impl KalmanWorkspace {
             }
             t += 1;
         }
+        self.ended_in = phase;
         (totals, None)
+    }
+
+    /// After a complete one-column pass over `data` (length `n`): the predicted state for
+    /// time `n`, if the filter ended with its gain converged (its covariance is then RRᵀ);
+    /// `None` if it was still in the full-covariance phase.
+    pub(crate) fn steady_terminal_state(&mut self, data: &[f64], n: usize) -> Option<&[f64]> {
+        match self.ended_in {
+            Phase::Full => None,
+            Phase::Steady(_) => Some(&self.state[..self.r]),
+            Phase::Direct => {
+                // The direct phase keeps innovations only: rebuild the state from them.
+                self.rebuild_states(data, n, 1, n);
+                Some(&self.state[..self.r])
+            }
+        }
     }
 
     /// The phase after an opening Chandrasekhar stretch that ended at `t`.
@@ -782,8 +800,9 @@ impl KalmanWorkspace {
     }
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 enum Phase {
+    #[default]
     Full,
     Steady(usize),
     Direct,
