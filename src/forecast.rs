@@ -273,18 +273,66 @@ impl FilterState {
             self.s[r] = zt;
         }
         if !self.steady() {
-            let g = transition_rows(m, &self.cov);
-            // Cov ← G Taᵀ + Q: apply the same row map to the columns of G.
-            let gt = transpose(&g, dim);
-            let mut next = transition_rows(m, &gt);
-            for i in 0..r {
-                for j in 0..r {
-                    next[i * dim + j] += m.rvec[i] * m.rvec[j];
+            // Cov ← Ta Cov Taᵀ + Q in two row sweeps: H = Cov Taᵀ (the transition applied
+            // to each row), then Ta H (rows of H combined), written back in place.
+            let nz: Vec<(usize, f64)> =
+                m.c.iter()
+                    .enumerate()
+                    .filter(|(_, c)| **c != 0.0)
+                    .map(|(k, c)| (r + k, *c))
+                    .collect();
+            let mut h = vec![0.0; dim * dim];
+            for (x, y) in self.cov.chunks_exact(dim).zip(h.chunks_exact_mut(dim)) {
+                transition_vector(m, &nz, x, y);
+            }
+            let (h0, cov) = (&h[..dim], &mut self.cov);
+            for i in 0..dim {
+                let out = &mut cov[i * dim..(i + 1) * dim];
+                if i < r {
+                    let fi = m.phi[i];
+                    if i + 1 < r {
+                        let below = &h[(i + 1) * dim..(i + 2) * dim];
+                        for ((o, a), b) in out.iter_mut().zip(h0).zip(below) {
+                            *o = fi * a + b;
+                        }
+                    } else {
+                        for (o, a) in out.iter_mut().zip(h0) {
+                            *o = fi * a;
+                        }
+                    }
+                } else if i == r {
+                    out.copy_from_slice(h0);
+                    for &(k, c) in &nz {
+                        for (o, v) in out.iter_mut().zip(&h[k * dim..(k + 1) * dim]) {
+                            *o += c * v;
+                        }
+                    }
+                } else {
+                    out.copy_from_slice(&h[(i - 1) * dim..i * dim]);
                 }
             }
-            self.cov = transpose(&next, dim);
+            for i in 0..r {
+                for j in 0..r {
+                    self.cov[i * dim + j] += m.rvec[i] * m.rvec[j];
+                }
+            }
         }
         self.next_index += 1;
+    }
+}
+
+/// `y = Ta x` for the augmented transition (`nz`: the non-zero lag weights `(r + k, c_k)`).
+fn transition_vector(m: &ForecastModel, nz: &[(usize, f64)], x: &[f64], y: &mut [f64]) {
+    let r = m.r;
+    let dim = x.len();
+    let x0 = x[0];
+    for j in 0..r - 1 {
+        y[j] = m.phi[j] * x0 + x[j + 1];
+    }
+    y[r - 1] = m.phi[r - 1] * x0;
+    if dim > r {
+        y[r] = x0 + nz.iter().map(|&(k, c)| c * x[k]).sum::<f64>();
+        y[r + 1..dim].copy_from_slice(&x[r..dim - 1]);
     }
 }
 
@@ -321,46 +369,6 @@ fn zcz(m: &ForecastModel, cov: &[f64]) -> f64 {
             .enumerate()
             .map(|(k, c)| c * zc[r + k])
             .sum::<f64>()
-}
-
-/// Rows of Ta·M for the augmented transition.
-fn transition_rows(m: &ForecastModel, mat: &[f64]) -> Vec<f64> {
-    let dim = m.dim();
-    let r = m.r;
-    let mut g = vec![0.0; dim * dim];
-    let row0 = &mat[..dim];
-    for i in 0..r {
-        let out = &mut g[i * dim..(i + 1) * dim];
-        for (o, v) in out.iter_mut().zip(row0) {
-            *o = m.phi[i] * v;
-        }
-        if i + 1 < r {
-            let next = &mat[(i + 1) * dim..(i + 2) * dim];
-            for (o, v) in out.iter_mut().zip(next) {
-                *o += v;
-            }
-        }
-    }
-    if dim > r {
-        let zrow = z_times(m, mat);
-        g[r * dim..(r + 1) * dim].copy_from_slice(&zrow);
-        for k in 1..dim - r {
-            let (src, dst) = ((r + k - 1) * dim, (r + k) * dim);
-            let row: Vec<f64> = mat[src..src + dim].to_vec();
-            g[dst..dst + dim].copy_from_slice(&row);
-        }
-    }
-    g
-}
-
-fn transpose(a: &[f64], dim: usize) -> Vec<f64> {
-    let mut t = vec![0.0; dim * dim];
-    for i in 0..dim {
-        for j in 0..dim {
-            t[j * dim + i] = a[i * dim + j];
-        }
-    }
-    t
 }
 
 #[cfg(test)]

@@ -71,6 +71,12 @@ pub(crate) struct KalmanWorkspace {
     /// −w wᵀ / F_t`.
     ch_g: Vec<f64>,
     ch_w: Vec<f64>,
+    /// F at the end of the opening Chandrasekhar phase.
+    ch_f: f64,
+    /// Across gaps (large states): `P_{t+1} − P_t = W M Wᵀ` with `W` (r × rank, column-
+    /// major) and `M` (rank × rank), `F_t` and `G_t` (in `ch_g`); see
+    /// [`KalmanWorkspace::gappy`].
+    gap: GapFactors,
     kcol: Vec<f64>,
     state: Vec<f64>,
     tmp: Vec<f64>,
@@ -94,6 +100,32 @@ pub(crate) struct KalmanWorkspace {
     #[cfg(test)]
     route: Route,
 }
+
+/// The factored covariance step of [`KalmanWorkspace::gappy`] and its scratch space.
+#[derive(Debug, Default, Clone)]
+struct GapFactors {
+    /// Whether the factors describe the current time (set where a gap is met).
+    ready: bool,
+    /// Where the covariance was last known in full (the stationary start or a steady
+    /// state), for the covariance recursion to replay from if the rank grows too large.
+    anchor: usize,
+    anchor_steady: bool,
+    f: f64,
+    rank: usize,
+    w: Vec<f64>,
+    m: Vec<f64>,
+    w_next: Vec<f64>,
+    m_next: Vec<f64>,
+    u: Vec<f64>,
+    a: Vec<f64>,
+    ma: Vec<f64>,
+    norms: Vec<f64>,
+    kept: Vec<usize>,
+}
+
+/// State sizes above which gaps are bridged by the factored (Chandrasekhar-type) step
+/// rather than the covariance recursion (at small sizes the O(r²) recursion is as cheap).
+const GAPPY_MIN_STATE: usize = 8;
 
 /// Which code runs the full-covariance phase (tests compare them).
 #[cfg(test)]
@@ -359,6 +391,7 @@ impl KalmanWorkspace {
         for v in self.state.iter_mut() {
             *v = 0.0;
         }
+        self.gap.ready = false;
     }
 
     /// The pass after [`Self::begin_pass`]. `opened` is where an opening Chandrasekhar
@@ -415,6 +448,30 @@ impl KalmanWorkspace {
                         t = next;
                         continue;
                     }
+                    if t == 0 && missing && !stop_at_direct && self.gappy_allowed() {
+                        // Missing first reading: P₁ = P₀, so the step is zero (rank 0).
+                        let r = self.r;
+                        let f0 = self.p[0];
+                        for i in 0..r {
+                            let below = if i + 1 < r { self.p[(i + 1) * r] } else { 0.0 };
+                            self.ch_g[i] = self.phi[i] * f0 + below;
+                        }
+                        let gap = &mut self.gap;
+                        gap.anchor = 0;
+                        gap.anchor_steady = false;
+                        gap.f = f0;
+                        gap.rank = 0;
+                        gap.ready = true;
+                    }
+                    if self.gap.ready {
+                        let (next, how) = self.gappy(data, n, ncols, t, cross, &mut totals);
+                        self.full_steps += next - t;
+                        t = next;
+                        if how == Some(true) {
+                            phase = Phase::Steady(0);
+                        }
+                        continue;
+                    }
                     self.full_steps += 1;
                     let f = self.p[0];
                     if missing {
@@ -454,7 +511,7 @@ impl KalmanWorkspace {
                 }
                 Phase::Steady(count) => {
                     if missing {
-                        self.reset_covariance_to_steady();
+                        self.gap_from_steady(t);
                         phase = Phase::Full;
                         continue;
                     }
@@ -509,7 +566,7 @@ impl KalmanWorkspace {
                         t = end;
                         if t < n {
                             self.rebuild_states(data, n, ncols, t);
-                            self.reset_covariance_to_steady();
+                            self.gap_from_steady(t);
                             phase = Phase::Full;
                         }
                         continue;
@@ -535,7 +592,7 @@ impl KalmanWorkspace {
                     if t < n {
                         // Missing reading at t: rebuild the predicted state and go full.
                         self.rebuild_states(data, n, ncols, t);
-                        self.reset_covariance_to_steady();
+                        self.gap_from_steady(t);
                         phase = Phase::Full;
                     }
                     continue;
@@ -569,14 +626,257 @@ impl KalmanWorkspace {
             return Phase::Steady(0);
         }
         if t < n {
-            // A gap before convergence: the covariance recursion takes over. P_t depends
-            // on the model only, so replay it.
-            for _ in 0..t {
-                let f = self.p[0];
-                self.predict_covariance_after_update(f);
+            if self.gappy_allowed() {
+                // Missing at t: P_{t+1} − P_t = −w wᵀ/F + G Gᵀ/F (the update that did not
+                // happen), rank two.
+                let r = self.r;
+                let f = self.ch_f;
+                let gap = &mut self.gap;
+                gap.anchor = 0;
+                gap.anchor_steady = false;
+                gap.f = f;
+                gap.rank = 2;
+                ensure_len(&mut gap.w, 2 * r);
+                ensure_len(&mut gap.m, 4);
+                gap.w[..r].copy_from_slice(&self.ch_w);
+                gap.w[r..2 * r].copy_from_slice(&self.ch_g);
+                gap.m.copy_from_slice(&[-1.0 / f, 0.0, 0.0, 1.0 / f]);
+                gap.ready = true;
+            } else {
+                // A gap before convergence: the covariance recursion takes over. P_t
+                // depends on the model only, so replay it.
+                for _ in 0..t {
+                    let f = self.p[0];
+                    self.predict_covariance_after_update(f);
+                }
             }
         }
         Phase::Full
+    }
+
+    /// Whether gaps go through [`Self::gappy`] (large states, not forced off by a test).
+    fn gappy_allowed(&self) -> bool {
+        #[cfg(test)]
+        let forced_off = self.route == Route::Riccati;
+        #[cfg(not(test))]
+        let forced_off = false;
+        self.r > GAPPY_MIN_STATE && !forced_off
+    }
+
+    /// A gap met in the steady state at time `t` (the state means are current): the
+    /// covariance is RRᵀ. Prepares the factored step (large states) or the covariance
+    /// recursion.
+    fn gap_from_steady(&mut self, t: usize) {
+        self.reset_covariance_to_steady();
+        if !self.gappy_allowed() {
+            return;
+        }
+        // P_t = RRᵀ: F = 1, G = T R; missing at t: P_{t+1} − P_t = G Gᵀ (the update from
+        // the steady state changes nothing).
+        let r = self.r;
+        for i in 0..r {
+            let below = if i + 1 < r { self.rvec[i + 1] } else { 0.0 };
+            self.ch_g[i] = self.phi[i] + below;
+        }
+        let gap = &mut self.gap;
+        gap.anchor = t;
+        gap.anchor_steady = true;
+        gap.f = 1.0;
+        gap.rank = 1;
+        ensure_len(&mut gap.w, r);
+        ensure_len(&mut gap.m, 1);
+        gap.w[..r].copy_from_slice(&self.ch_g);
+        gap.m[0] = 1.0;
+        gap.ready = true;
+    }
+
+    /// The full phase across gaps for large states, from time `t0` where [`GapFactors`]
+    /// are ready, without the O(r²) covariance. With `δ_t = P_{t+1} − P_t = W M Wᵀ`,
+    /// `a = W[0, :]`, `U = T W`: `F_{t+1} = F_t + aᵀMa`, `G_{t+1} = G_t + U M a`, and the
+    /// next factors depend on whether readings t and t+1 are present (P) or missing (M):
+    ///
+    /// ```text
+    /// P,P: W ← U − G_t aᵀ/F_t,          M ← M − (Ma)(Ma)ᵀ/F_{t+1}
+    /// P,M: W ← [U, G_t],                M ← diag(M, 1/F_t)
+    /// M,P: W ← [U − G_t aᵀ/F_t, G_t],   M ← diag(M − (Ma)(Ma)ᵀ/F_{t+1}, −1/F_t)
+    /// M,M: W ← U,                       M unchanged
+    /// ```
+    ///
+    /// (P,P is the Chandrasekhar step; the others add or drop the update that did not
+    /// happen.) Columns whose contribution falls below 1e-17 are dropped. Returns where
+    /// it stopped and why: the gain converged (`Some(true)`), the end (`Some(false)`), or
+    /// the rank grew past r/2 (`None`: `self.p` then holds `P_t` for the covariance
+    /// recursion, replayed from the anchor).
+    #[allow(clippy::too_many_arguments)]
+    fn gappy(
+        &mut self,
+        data: &[f64],
+        n: usize,
+        ncols: usize,
+        t0: usize,
+        cross: &mut [f64],
+        totals: &mut PassTotals,
+    ) -> (usize, Option<bool>) {
+        debug_assert!(self.innov.len() >= ncols * n && self.fvar.len() >= n);
+        let r = self.r;
+        let max_rank = (r / 2).max(2);
+        let mut t = t0;
+        self.gap.ready = false;
+        let mut f = self.gap.f;
+        while t < n {
+            let missing = data[t].is_nan();
+            // The measurement and the state means: a ← T a + G v / F.
+            if missing {
+                self.fvar[t] = f64::NAN;
+                for c in 0..ncols {
+                    self.innov[c * n + t] = f64::NAN;
+                }
+                self.predict_states(ncols);
+            } else {
+                self.fvar[t] = f;
+                totals.log_det += f.ln();
+                totals.used += 1;
+                let inv = 1.0 / f;
+                for c in 0..ncols {
+                    let st = &mut self.state[c * r..(c + 1) * r];
+                    let a0 = st[0];
+                    let v = data[c * n + t] - a0;
+                    self.innov[c * n + t] = v;
+                    let gv = v * inv;
+                    for i in 0..r - 1 {
+                        st[i] = self.phi[i] * a0 + st[i + 1] + self.ch_g[i] * gv;
+                    }
+                    st[r - 1] = self.phi[r - 1] * a0 + self.ch_g[r - 1] * gv;
+                }
+                accumulate_cross(&self.innov, n, t, ncols, f, cross);
+            }
+            // The covariance factors for t + 1.
+            let next_missing = t + 1 < n && data[t + 1].is_nan();
+            let gap = &mut self.gap;
+            let k = gap.rank;
+            ensure_len(&mut gap.a, k);
+            ensure_len(&mut gap.ma, k);
+            ensure_len(&mut gap.u, r * k);
+            let mut s = 0.0;
+            for j in 0..k {
+                gap.a[j] = gap.w[j * r];
+            }
+            for j in 0..k {
+                let mut v = 0.0;
+                for l in 0..k {
+                    v += gap.m[j * k + l] * gap.a[l];
+                }
+                gap.ma[j] = v;
+                s += gap.a[j] * v;
+            }
+            let f_next = f + s;
+            // The update at t that did not happen (missing, then present) or the one at
+            // t + 1 that will not (present, then missing) adds a column G_t.
+            let extra = match (missing, next_missing) {
+                (true, false) => Some(-1.0 / f),
+                (false, true) => Some(1.0 / f),
+                _ => None,
+            };
+            let k2 = k + usize::from(extra.is_some());
+            ensure_len(&mut gap.w_next, r * k2);
+            ensure_len(&mut gap.m_next, k2 * k2);
+            ensure_len(&mut gap.norms, k2);
+            // One sweep per column: u = T w, the new column (u, or u − G_t a_j/F_t), its
+            // norm, and G_{t+1} = G_t + Σ_j u (Ma)_j accumulated in `u` (scratch).
+            ensure_len(&mut gap.u, r);
+            gap.u.copy_from_slice(&self.ch_g);
+            let phi = &self.phi[..r];
+            for j in 0..k {
+                let col = &gap.w[j * r..(j + 1) * r];
+                let out = &mut gap.w_next[j * r..(j + 1) * r];
+                let w0 = col[0];
+                let aj = if next_missing { 0.0 } else { gap.a[j] / f };
+                let mj = gap.ma[j];
+                let mut norm = 0.0;
+                let g = &self.ch_g[..r];
+                let acc = &mut gap.u[..r];
+                for i in 0..r - 1 {
+                    let u = phi[i] * w0 + col[i + 1];
+                    let v = u - g[i] * aj;
+                    out[i] = v;
+                    norm += v * v;
+                    acc[i] += u * mj;
+                }
+                let u = phi[r - 1] * w0;
+                let v = u - g[r - 1] * aj;
+                out[r - 1] = v;
+                norm += v * v;
+                acc[r - 1] += u * mj;
+                gap.norms[j] = norm.sqrt();
+                let shrink = if next_missing { 0.0 } else { mj / f_next };
+                for l in 0..k {
+                    gap.m_next[j * k2 + l] = gap.m[j * k + l] - shrink * gap.ma[l];
+                }
+            }
+            if let Some(weight) = extra {
+                gap.w_next[k * r..(k + 1) * r].copy_from_slice(&self.ch_g);
+                gap.norms[k] = self.ch_g.iter().map(|v| v * v).sum::<f64>().sqrt();
+                for l in 0..k {
+                    gap.m_next[k * k2 + l] = 0.0;
+                    gap.m_next[l * k2 + k] = 0.0;
+                }
+                gap.m_next[k * k2 + k] = weight;
+            }
+            // G_{t+1} = G_t + U M a, F_{t+1} = F_t + aᵀ M a.
+            self.ch_g.copy_from_slice(&gap.u);
+            f = f_next;
+            // Drop columns that no longer contribute (|column| · Σ_l |M_jl| |column_l|
+            // below 1e-17), then swap the new factors in.
+            gap.kept.clear();
+            let mut total = 0.0;
+            for j in 0..k2 {
+                let reach: f64 = (0..k2)
+                    .map(|l| gap.m_next[j * k2 + l].abs() * gap.norms[l])
+                    .sum();
+                let size = gap.norms[j] * reach;
+                if size >= 1e-17 {
+                    gap.kept.push(j);
+                    total += size;
+                }
+            }
+            let keep = gap.kept.len();
+            for (p, &j) in gap.kept.iter().enumerate() {
+                if p != j {
+                    gap.w_next.copy_within(j * r..(j + 1) * r, p * r);
+                }
+            }
+            ensure_len(&mut gap.m, keep * keep);
+            for (p, &jp) in gap.kept.iter().enumerate() {
+                for (q, &jq) in gap.kept.iter().enumerate() {
+                    gap.m[p * keep + q] = gap.m_next[jp * k2 + jq];
+                }
+            }
+            std::mem::swap(&mut gap.w, &mut gap.w_next);
+            gap.rank = keep;
+            t += 1;
+            if !next_missing && t < n && total < CHANDRASEKHAR_TOLERANCE * f && f - 1.0 < 1e-10 {
+                return (t, Some(true));
+            }
+            if keep > max_rank {
+                // Too many directions to track: rebuild P_t from the last full
+                // covariance and continue with the covariance recursion.
+                let anchor = gap.anchor;
+                // (A stationary anchor left `self.p` untouched: it still holds P₀.)
+                if gap.anchor_steady {
+                    self.reset_covariance_to_steady();
+                }
+                for k in anchor..t {
+                    if data[k].is_nan() {
+                        self.predict_covariance_no_update();
+                    } else {
+                        let fk = self.p[0];
+                        self.predict_covariance_after_update(fk);
+                    }
+                }
+                return (t, None);
+            }
+        }
+        (t, Some(false))
     }
 
     /// The full-covariance phase from the stationary start (t = 0) by the Chandrasekhar
@@ -649,7 +949,7 @@ impl KalmanWorkspace {
                 out
             }};
         }
-        if fixed && ncols <= 2 && r <= SMALL_STATE {
+        let (t, steady, f) = if fixed && ncols <= 2 && r <= SMALL_STATE {
             match r {
                 1 => fixed!(1),
                 2 => fixed!(2),
@@ -672,7 +972,9 @@ impl KalmanWorkspace {
                 ring,
                 fvar,
             )
-        }
+        };
+        self.ch_f = f;
+        (t, steady)
     }
 
     /// The lane that continues this filter's direct phase at time `t`: the model's
@@ -983,7 +1285,7 @@ fn chandrasekhar_steps(
     innov: &mut [f64],
     (stride, mask): (usize, usize),
     mut fvar: Option<&mut [f64]>,
-) -> (usize, bool) {
+) -> (usize, bool, f64) {
     let r = phi.len();
     for v in st.iter_mut() {
         *v = 0.0;
@@ -1047,7 +1349,7 @@ fn chandrasekhar_steps(
     if factors > 0 {
         totals.log_det += product.ln();
     }
-    (t, steady)
+    (t, steady, f)
 }
 
 /// `cross` (2×2 upper triangle) += v vᵀ / F, the same arithmetic as [`accumulate_cross`].
@@ -1464,6 +1766,15 @@ mod tests {
         gappy[151] = f64::NAN;
         let mut early_gap = base.clone();
         early_gap[5] = f64::NAN;
+        // Gaps at the start, long and short, close together, and a stretch of
+        // alternating readings that pushes the factored step past its rank limit.
+        let mut many_gaps = base.clone();
+        for i in [0usize, 1, 40, 41, 42, 43, 44, 45, 46, 47, 60, 200, 201, 330] {
+            many_gaps[i] = f64::NAN;
+        }
+        for i in (250..300).step_by(2) {
+            many_gaps[i] = f64::NAN;
+        }
         let models: [(&[f64], &[f64]); 7] = [
             (&[0.6], &[]),
             (&[0.5], &[0.95]),
@@ -1477,7 +1788,7 @@ mod tests {
                 &[0.3, 0., 0., 0., 0., 0., 0., 0., 0., 0., 0., 0.6, 0.18],
             ),
         ];
-        for x in [&base, &gappy, &early_gap] {
+        for x in [&base, &gappy, &early_gap, &many_gaps] {
             for (phi, theta) in models {
                 for ncols in [1, 2, 3] {
                     let mut data = x.clone();
