@@ -705,8 +705,8 @@ impl KalmanWorkspace {
     /// (P,P is the Chandrasekhar step; the others add or drop the update that did not
     /// happen.) Columns whose contribution falls below 1e-17 are dropped. Returns where
     /// it stopped and why: the gain converged (`Some(true)`), the end (`Some(false)`), or
-    /// the rank grew past r/2 (`None`: `self.p` then holds `P_t` for the covariance
-    /// recursion, replayed from the anchor).
+    /// the rank grew past r/2 or F fell below 1 (`None`: `self.p` then holds `P_t` for
+    /// the covariance recursion, replayed from the anchor).
     #[allow(clippy::too_many_arguments)]
     fn gappy(
         &mut self,
@@ -857,9 +857,11 @@ impl KalmanWorkspace {
             if !next_missing && t < n && total < CHANDRASEKHAR_TOLERANCE * f && f - 1.0 < 1e-10 {
                 return (t, Some(true));
             }
-            if keep > max_rank {
-                // Too many directions to track: rebuild P_t from the last full
-                // covariance and continue with the covariance recursion.
+            // F_t ≥ 1 in exact arithmetic; a factored step that loses that (rounding in
+            // the indefinite M) hands over like a too-wide one.
+            if keep > max_rank || !(f >= 1.0 - 1e-9) {
+                // Too many directions to track (or lost accuracy): rebuild P_t from the
+                // last full covariance and continue with the covariance recursion.
                 let anchor = gap.anchor;
                 // (A stationary anchor left `self.p` untouched: it still holds P₀.)
                 if gap.anchor_steady {
