@@ -362,14 +362,15 @@ impl Blueprint {
         result.map(|(model, _)| model)
     }
 
-    /// [`Blueprint::fit_with`] without the Hessian of the standard errors (a search fits
-    /// many candidates and keeps one): the model has no covariance until
-    /// [`complete_standard_errors`] is called with the returned regression covariance.
-    pub(crate) fn fit_deferring_errors(
+    /// [`Blueprint::fit_with`] without the two parts only a kept model needs (a search
+    /// fits many candidates and keeps one): the Hessian of the standard errors and the
+    /// forecasting state. The model has neither covariance nor a usable forecasting
+    /// state until [`complete_candidate`] is called with the returned [`Deferred`].
+    pub(crate) fn fit_as_candidate(
         &self,
         series: &[f64],
         workspace: &mut FitWorkspace,
-    ) -> Result<(FittedModel, DeferredErrors)> {
+    ) -> Result<(FittedModel, Deferred)> {
         let prep = estimate::prepare(self, series, &[])?;
         let layout = Layout::new(self);
         let cell = RefCell::new(std::mem::take(&mut workspace.inner));
@@ -379,19 +380,19 @@ impl Blueprint {
     }
 }
 
-/// What [`complete_standard_errors`] needs besides the model: the regression block of the
+/// What [`complete_candidate`] needs besides the model: the regression block of the
 /// covariance, computed during the fit.
 #[derive(Debug, Clone)]
-pub(crate) struct DeferredErrors {
+pub(crate) struct Deferred {
     beta_cov: Option<Vec<f64>>,
 }
 
-/// Give a model fitted by [`Blueprint::fit_deferring_errors`] on `series` its covariance
-/// and standard errors: bit for bit those of [`Blueprint::fit_with`].
-pub(crate) fn complete_standard_errors(
+/// Give a model fitted by [`Blueprint::fit_as_candidate`] on `series` its covariance,
+/// standard errors and forecasting state: bit for bit those of [`Blueprint::fit_with`].
+pub(crate) fn complete_candidate(
     model: &mut FittedModel,
     series: &[f64],
-    deferred: DeferredErrors,
+    deferred: Deferred,
     workspace: &mut FitWorkspace,
 ) -> Result<()> {
     let bp = model.blueprint.clone();
@@ -414,6 +415,7 @@ pub(crate) fn complete_standard_errors(
     };
     let hess = estimate::hessian(&prep, &bp, &layout, kind, &mut workspace.inner, &coefs);
     attach_covariance(model, &layout, &prep, hess, deferred.beta_cov);
+    model.terminal = crate::forecast::terminal_state(&model.forecaster, series, &[])?;
     Ok(())
 }
 
@@ -475,8 +477,8 @@ fn fit_prepared(
     prep: &estimate::Prepared,
     layout: &Layout,
     cell: &RefCell<EvalWorkspace>,
-    errors: bool,
-) -> Result<(FittedModel, DeferredErrors)> {
+    complete: bool,
+) -> Result<(FittedModel, Deferred)> {
     let start = estimate::starting_values(prep, bp);
     let x0 = estimate::coordinates(layout, &start).unwrap_or_else(|| vec![0.0; layout.free_len]);
     let mut stages = Vec::new();
@@ -602,7 +604,7 @@ fn fit_prepared(
     }
     // The Hessian of −log L over the free ARMA terms (now, or later on request).
     let mut warnings = Vec::new();
-    let hess = if errors {
+    let hess = if complete {
         estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs)
     } else {
         None
@@ -669,7 +671,11 @@ fn fit_prepared(
         .map(|c| (c.term, c.value))
         .collect();
     let forecaster = ForecastModel::new(bp, &coefs, ev.innovation_variance, regression);
-    let terminal = crate::forecast::terminal_state(&forecaster, series, regressors)?;
+    let terminal = if complete {
+        crate::forecast::terminal_state(&forecaster, series, regressors)?
+    } else {
+        crate::forecast::FilterState::pending()
+    };
     let log_likelihood = match kind {
         ObjectiveKind::Exact => LogLikelihood::Exact(-ev.neg_log_likelihood),
         ObjectiveKind::Conditional => LogLikelihood::Conditional(-ev.neg_log_likelihood),
@@ -697,11 +703,11 @@ fn fit_prepared(
         forecaster,
         terminal,
     };
-    if errors {
+    if complete {
         attach_covariance(&mut model, layout, prep, hess, beta_cov);
-        Ok((model, DeferredErrors { beta_cov: None }))
+        Ok((model, Deferred { beta_cov: None }))
     } else {
-        Ok((model, DeferredErrors { beta_cov }))
+        Ok((model, Deferred { beta_cov }))
     }
 }
 

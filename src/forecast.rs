@@ -151,6 +151,15 @@ pub(crate) struct FilterState {
 }
 
 impl FilterState {
+    /// A placeholder for a candidate fit whose state is computed only if it is kept.
+    pub(crate) fn pending() -> Self {
+        FilterState {
+            s: Vec::new(),
+            cov: Vec::new(),
+            next_index: 0,
+        }
+    }
+
     /// Start at time `t0` with the δ lags `lags` (newest first).
     fn start(m: &ForecastModel, lags: &[f64], t0: u64) -> Result<Self> {
         let r = m.r;

@@ -792,22 +792,25 @@ impl KalmanWorkspace {
                 let w0 = col[0];
                 let aj = if next_missing { 0.0 } else { gap.a[j] / f };
                 let mj = gap.ma[j];
-                let mut norm = 0.0;
                 let g = &self.ch_g[..r];
                 let acc = &mut gap.u[..r];
-                for i in 0..r - 1 {
-                    let u = phi[i] * w0 + col[i + 1];
-                    let v = u - g[i] * aj;
-                    out[i] = v;
-                    norm += v * v;
-                    acc[i] += u * mj;
+                // Element-wise over i < r − 1 (zipped: no bounds checks, vectorisable),
+                // then the last row, then the norm by the four-way dot.
+                for ((((o, a), &gi), &ph), &below) in out[..r - 1]
+                    .iter_mut()
+                    .zip(acc[..r - 1].iter_mut())
+                    .zip(&g[..r - 1])
+                    .zip(&phi[..r - 1])
+                    .zip(&col[1..r])
+                {
+                    let u = ph * w0 + below;
+                    *o = u - gi * aj;
+                    *a += u * mj;
                 }
                 let u = phi[r - 1] * w0;
-                let v = u - g[r - 1] * aj;
-                out[r - 1] = v;
-                norm += v * v;
+                out[r - 1] = u - g[r - 1] * aj;
                 acc[r - 1] += u * mj;
-                gap.norms[j] = norm.sqrt();
+                gap.norms[j] = segment_dot(out, out).sqrt();
                 let shrink = if next_missing { 0.0 } else { mj / f_next };
                 for l in 0..k {
                     gap.m_next[j * k2 + l] = gap.m[j * k + l] - shrink * gap.ma[l];

@@ -30,7 +30,7 @@
 
 use crate::criteria::Criterion;
 use crate::error::{Error, ErrorKind, Result};
-use crate::fitted::{DeferredErrors, FitWorkspace, FittedModel};
+use crate::fitted::{Deferred, FitWorkspace, FittedModel};
 use crate::linalg;
 use crate::spec::{Blueprint, Estimator};
 
@@ -583,7 +583,7 @@ pub fn search_orders_with(
     let (msp, msq) = if s > 1 { (msp, msq) } else { (0, 0) };
     let constant_allowed = d + sd <= 1;
     let mut tried: Vec<Candidate> = Vec::new();
-    let mut fits: Vec<Option<(FittedModel, DeferredErrors)>> = Vec::new();
+    let mut fits: Vec<Option<(FittedModel, Deferred)>> = Vec::new();
     let key = |p: usize, q: usize, sp: usize, sq: usize, c: bool| (p, q, sp, sq, c);
     let mut seen = std::collections::HashSet::new();
 
@@ -593,7 +593,7 @@ pub fn search_orders_with(
                        sq: usize,
                        c: bool,
                        tried: &mut Vec<Candidate>,
-                       fits: &mut Vec<Option<(FittedModel, DeferredErrors)>>|
+                       fits: &mut Vec<Option<(FittedModel, Deferred)>>|
      -> Option<f64> {
         if p > mp || q > mq || sp > msp || sq > msq || (c && !constant_allowed) {
             return None;
@@ -629,9 +629,9 @@ pub fn search_orders_with(
             adequate: false,
             failure: None,
         };
-        // Standard errors only for the chosen candidate (the Hessian is 2k² + 1
-        // evaluations per candidate).
-        let fit = b.build().and_then(|bp| bp.fit_deferring_errors(series, ws));
+        // Standard errors and the forecasting state only for the chosen candidate (the
+        // Hessian is 2k² + 1 evaluations; the state is a filter pass over the series).
+        let fit = b.build().and_then(|bp| bp.fit_as_candidate(series, ws));
         match fit {
             Ok((m, _)) if cancelling(&m) => {
                 // Discarded, and not a stepping stone either: navigating through such
@@ -842,7 +842,7 @@ pub fn search_orders_with(
     let (mut model, deferred) = fits[idx]
         .take()
         .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?;
-    crate::fitted::complete_standard_errors(&mut model, series, deferred, ws)?;
+    crate::fitted::complete_candidate(&mut model, series, deferred, ws)?;
     Ok(SearchOutcome {
         model,
         adequate,

@@ -248,6 +248,16 @@ fn airline_search_passes_the_gate() {
     assert!(out.model.covariance().is_some());
     assert_eq!(bits(&out.model), bits(&plain));
     assert_eq!(out.model.warnings(), plain.warnings());
+    // So is the forecasting state, built for the chosen candidate only.
+    let ahead = |m: &lagwise::FittedModel| -> Vec<u64> {
+        m.forecast(24, &[0.9])
+            .unwrap()
+            .steps
+            .iter()
+            .flat_map(|s| [s.mean.to_bits(), s.sd.to_bits()])
+            .collect()
+    };
+    assert_eq!(ahead(&out.model), ahead(&plain));
 }
 
 #[test]
