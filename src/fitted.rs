@@ -398,16 +398,7 @@ pub(crate) fn complete_candidate(
     let bp = model.blueprint.clone();
     let prep = estimate::prepare(&bp, series, &[])?;
     let layout = Layout::new(&bp);
-    let mut coefs = estimate::Coefs::default();
-    for c in &model.coefficients {
-        match c.term {
-            Term::Ar(_) => coefs.f[0].push(c.value),
-            Term::Ma(_) => coefs.f[1].push(c.value),
-            Term::SeasonalAr(_) => coefs.f[2].push(c.value),
-            Term::SeasonalMa(_) => coefs.f[3].push(c.value),
-            _ => {}
-        }
-    }
+    let coefs = model.factor_coefficients();
     let kind = if model.log_likelihood.is_exact() {
         ObjectiveKind::Exact
     } else {
