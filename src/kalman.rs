@@ -116,7 +116,8 @@ struct GapFactors {
     m: Vec<f64>,
     w_next: Vec<f64>,
     m_next: Vec<f64>,
-    u: Vec<f64>,
+    /// G_{t+1}, accumulated during the column sweep.
+    g_next: Vec<f64>,
     a: Vec<f64>,
     ma: Vec<f64>,
     norms: Vec<f64>,
@@ -450,12 +451,7 @@ impl KalmanWorkspace {
                     }
                     if t == 0 && missing && !stop_at_direct && self.gappy_allowed() {
                         // Missing first reading: P₁ = P₀, so the step is zero (rank 0).
-                        let r = self.r;
-                        let f0 = self.p[0];
-                        for i in 0..r {
-                            let below = if i + 1 < r { self.p[(i + 1) * r] } else { 0.0 };
-                            self.ch_g[i] = self.phi[i] * f0 + below;
-                        }
+                        let f0 = self.gain_from_covariance();
                         let gap = &mut self.gap;
                         gap.anchor = 0;
                         gap.anchor_steady = false;
@@ -654,6 +650,17 @@ impl KalmanWorkspace {
         Phase::Full
     }
 
+    /// `G = T P e₁` into `ch_g` from the covariance in `self.p`; returns `F = P[0][0]`.
+    fn gain_from_covariance(&mut self) -> f64 {
+        let r = self.r;
+        let f0 = self.p[0];
+        for i in 0..r {
+            let below = if i + 1 < r { self.p[(i + 1) * r] } else { 0.0 };
+            self.ch_g[i] = self.phi[i] * f0 + below;
+        }
+        f0
+    }
+
     /// Whether gaps go through [`Self::gappy`] (large states, not forced off by a test).
     fn gappy_allowed(&self) -> bool {
         #[cfg(test)]
@@ -756,7 +763,6 @@ impl KalmanWorkspace {
             let k = gap.rank;
             ensure_len(&mut gap.a, k);
             ensure_len(&mut gap.ma, k);
-            ensure_len(&mut gap.u, r * k);
             let mut s = 0.0;
             for j in 0..k {
                 gap.a[j] = gap.w[j * r];
@@ -782,9 +788,9 @@ impl KalmanWorkspace {
             ensure_len(&mut gap.m_next, k2 * k2);
             ensure_len(&mut gap.norms, k2);
             // One sweep per column: u = T w, the new column (u, or u − G_t a_j/F_t), its
-            // norm, and G_{t+1} = G_t + Σ_j u (Ma)_j accumulated in `u` (scratch).
-            ensure_len(&mut gap.u, r);
-            gap.u.copy_from_slice(&self.ch_g);
+            // norm, and G_{t+1} = G_t + Σ_j u (Ma)_j accumulated in `g_next`.
+            ensure_len(&mut gap.g_next, r);
+            gap.g_next.copy_from_slice(&self.ch_g);
             let phi = &self.phi[..r];
             for j in 0..k {
                 let col = &gap.w[j * r..(j + 1) * r];
@@ -793,7 +799,7 @@ impl KalmanWorkspace {
                 let aj = if next_missing { 0.0 } else { gap.a[j] / f };
                 let mj = gap.ma[j];
                 let g = &self.ch_g[..r];
-                let acc = &mut gap.u[..r];
+                let acc = &mut gap.g_next[..r];
                 // Element-wise over i < r − 1 (zipped: no bounds checks, vectorisable),
                 // then the last row, then the norm by the four-way dot.
                 for ((((o, a), &gi), &ph), &below) in out[..r - 1]
@@ -826,7 +832,7 @@ impl KalmanWorkspace {
                 gap.m_next[k * k2 + k] = weight;
             }
             // G_{t+1} = G_t + U M a, F_{t+1} = F_t + aᵀ M a.
-            self.ch_g.copy_from_slice(&gap.u);
+            self.ch_g.copy_from_slice(&gap.g_next);
             f = f_next;
             // Drop columns that no longer contribute (|column| · Σ_l |M_jl| |column_l|
             // below 1e-17), then swap the new factors in.
@@ -911,11 +917,7 @@ impl KalmanWorkspace {
     ) -> (usize, bool) {
         let r = self.r;
         // F₁ = P₀[0][0], G₁ = T P₀ e₁, w₁ = G₁, predicted states zero.
-        let f0 = self.p[0];
-        for i in 0..r {
-            let below = if i + 1 < r { self.p[(i + 1) * r] } else { 0.0 };
-            self.ch_g[i] = self.phi[i] * f0 + below;
-        }
+        let f0 = self.gain_from_covariance();
         self.ch_w.copy_from_slice(&self.ch_g);
         #[cfg(test)]
         let fixed = self.route == Route::Usual;
