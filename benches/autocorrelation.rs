@@ -40,9 +40,7 @@ fn correlogram(c: &mut Criterion) {
     for &lag in &[40usize, 200] {
         let r = &cg.autocorrelations()[..=lag];
         pacf.bench_function(BenchmarkId::new("durbin_levinson", lag), |b| {
-            b.iter(|| {
-                lagwise::correlogram::partial_from_autocorrelations(black_box(r)).expect("ok")
-            })
+            b.iter(|| lagwise::partial_from_autocorrelations(black_box(r)).expect("ok"))
         });
     }
     pacf.finish();

@@ -8,6 +8,8 @@
 //! (defaults: 20000 series × 1000 readings; the target size is 100000 × 1000),
 //! or `cargo run --release --example fleet -- --search [series]` for the order-search
 //! benchmark (default 500 series × 1000 readings, projected to 10,000).
+// The counting global allocator needs `unsafe` (the workspace denies it elsewhere).
+#![allow(unsafe_code)]
 
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::hint::black_box;

@@ -5,7 +5,7 @@
 //!
 //! Run: `cargo run --release --example kestrel_bay`
 
-use lagwise::search::search_orders_with;
+use lagwise::search_orders_with;
 use lagwise::{
     BandRule, Blueprint, Correlogram, Dropouts, FitWorkspace, FittedModel, Innovations,
     PortmanteauScan, SearchOutcome, SearchSettings, Simulator,

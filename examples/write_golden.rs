@@ -1,7 +1,7 @@
 //! Writes the golden storage fixture used by tests/persistence.rs. Run once per format
 //! version: `cargo run --example write_golden` (writes into tests/data/).
 
-use lagwise::{Blueprint, Simulator, persist};
+use lagwise::{Blueprint, Simulator};
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let x = Simulator::builder()
@@ -18,7 +18,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         .fit(&x)?;
     std::fs::write(
         "tests/data/golden_model_v1.json",
-        persist::model_to_json(&fit)?,
+        lagwise::model_to_json(&fit)?,
     )?;
     let fc = fit.forecast(8, &[0.95])?;
     let text: Vec<String> = fc

@@ -55,25 +55,25 @@
 //! **Errors.** One opaque [`Error`] with a matchable [`ErrorKind`]. Bad input and invalid
 //! settings are typed errors, never panics; nothing the caller passes is mutated.
 //!
-//! **Counting rule for criteria.** See [`criteria`]: `k` counts every estimated parameter,
+//! **Counting rule for criteria.** See [`InformationCriteria`]: `k` counts every estimated parameter,
 //! σ² included.
 //!
-//! ## Modules
-//! | module | what |
+//! ## Map of the surface
+//! Every public item lives at the crate root (`lagwise::Name`); the folders of the source
+//! are layers of the implementation, not paths a caller writes. By step of the workflow:
+//!
+//! | step | items |
 //! |---|---|
-//! | [`correlogram`] | autocovariance, ACF, PACF, cross-correlation, bands |
-//! | [`whiteness`] | Ljung–Box and Box–Pierce over lags `1..=H` |
-//! | [`criteria`] | AIC, AICc, BIC, HQIC |
-//! | [`lag`] | lag polynomials, roots, admissibility |
-//! | [`synth`] | seeded SARIMA simulation |
-//! | [`spec`] | [`Blueprint`]: the model specification and its builder |
-//! | [`kalman`] | state-space form and exact likelihood |
-//! | [`fitted`] | [`Blueprint::fit`], [`FittedModel`], residual checks, [`LikelihoodSurface`] |
-//! | [`compare`] | ranking by criteria, nested likelihood-ratio test |
-//! | [`forecast`] | [`Forecast`] with intervals, online [`Monitor`] |
-//! | [`persist`] | versioned JSON storage |
-//! | [`fleet`] | [`Fleet`]: many series in parallel |
-//! | [`search`] | unit-root tests, automatic order search |
+//! | look at a series | [`Correlogram`], [`BandRule`], [`CrossCorrelogram`], [`PortmanteauScan`], [`augmented_dickey_fuller`], [`kpss`], [`seasonal_strength`] |
+//! | say which model | [`Blueprint`], [`BlueprintBuilder`], [`Term`], [`Estimator`] |
+//! | lag polynomials | [`inverse_roots`] (conventions), [`is_stationary`], [`is_invertible`], [`psi_weights`], [`pi_weights`], [`multiply`], [`step_down`] |
+//! | simulate | [`Simulator`], [`Innovations`], [`Dropouts`] |
+//! | fit and explain | [`Blueprint::fit`], [`FittedModel`], [`ResidualCheck`], [`LikelihoodSurface`], [`exact_log_likelihood`] |
+//! | compare | [`InformationCriteria`] (counting rule), [`rank_by_criterion`], [`nested_likelihood_ratio`] |
+//! | forecast and watch | [`Forecast`], [`Monitor`], [`ReadingCheck`] |
+//! | choose orders | [`search_orders`], [`SearchSettings`], [`SearchOutcome`] |
+//! | store | [`model_to_json`] (format), [`model_from_json`], [`monitor_to_json`], [`blueprint_to_json`] |
+//! | many series | [`Fleet`], [`FitSummary`], [`FleetReport`] |
 //!
 //! ## Performance
 //! Correlograms cost `O(n·H)` multiply-adds over cache-sized blocks and allocate only a
@@ -95,52 +95,59 @@
 //! reproducible bit for bit on the same build and input, and across builds only to the
 //! optimiser's tolerance. Fleet results are bit-identical whatever the thread count.
 #![forbid(unsafe_code)]
-#![deny(missing_docs)]
-#![warn(missing_debug_implementations, unreachable_pub)]
-// `!(x > 0.0)` is used on purpose: it is true for NaN, which `x <= 0.0` is not.
-#![allow(clippy::neg_cmp_op_on_partial_ord)]
-// Numeric kernels index several arrays with one counter; iterator chains hide that.
-#![allow(clippy::needless_range_loop)]
+// The other lints (missing docs denied, …) are set once for the workspace in the root
+// Cargo.toml.
 
-pub mod compare;
-pub mod correlogram;
-pub mod criteria;
-mod error;
+// The layers, bottom to top (DEVELOPERS.md has the map; `tests/layers.rs` holds the rule
+// that a file uses only its own layer and the ones below).
+mod base;
 mod estimate;
-pub mod fitted;
-pub mod fleet;
-pub mod forecast;
-pub mod kalman;
-pub mod lag;
-mod lanes;
-mod linalg;
-pub mod persist;
-pub mod search;
-mod series;
-pub mod spec;
-pub mod synth;
-pub mod whiteness;
+mod filter;
+mod fit;
+mod fleet;
+mod forecast;
+mod model;
+mod select;
+mod stats;
+mod store;
 
-pub use compare::{NestedTest, RankedModel, nested_likelihood_ratio, rank_by_criterion};
-pub use correlogram::{
-    BandRule, Correlogram, CorrelogramScratch, CrossCorrelogram, cross_correlogram,
-    cross_correlogram_with,
-};
-pub use criteria::{Criterion, InformationCriteria};
-pub use error::{Error, ErrorKind, Result};
+// The public surface: every public item is reachable at exactly one path, the crate root.
+pub use base::error::{Error, ErrorKind, Result};
 pub use estimate::{StageRecord, StopReason};
-pub use fitted::{
+pub use filter::kalman::{exact_log_likelihood, full_phase_log_likelihood};
+pub use fit::compare::{NestedTest, RankedModel, nested_likelihood_ratio, rank_by_criterion};
+pub use fit::fitted::{
     CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
-    LogLikelihood, ReadingCounts, ResidualCheck,
+    LogLikelihood, NEAR_UNIT_MODULUS, ReadingCounts, ResidualCheck,
 };
 pub use fleet::{
     FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, WhitenessDigest,
 };
 pub use forecast::{Forecast, ForecastStep, Monitor, ReadingCheck};
-pub use search::{SearchOutcome, SearchSettings, search_orders};
-pub use spec::{Blueprint, BlueprintBuilder, Estimator, ModelShape, Term};
-pub use synth::{Dropouts, Innovations, Simulator, SimulatorBuilder};
-pub use whiteness::{PortmanteauRow, PortmanteauScan};
+pub use model::blueprint::{
+    Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
+    Term,
+};
+pub use model::lag::{
+    Complex, expand_autoregressive, expand_moving_average, inverse_roots, is_invertible,
+    is_stationary, multiply, pi_weights, psi_weights, step_down,
+};
+pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
+pub use select::search::{
+    Candidate, SearchOutcome, SearchSettings, choose_differencing, gate_lag, search_orders,
+    search_orders_with,
+};
+pub use stats::correlogram::{
+    BandRule, Correlogram, CorrelogramScratch, CrossCorrelogram, cross_correlogram,
+    cross_correlogram_with, partial_from_autocorrelations,
+};
+pub use stats::criteria::{Criterion, InformationCriteria};
+pub use stats::portmanteau::{PortmanteauRow, PortmanteauScan};
+pub use stats::unitroot::{RootTest, TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength};
+pub use store::persist::{
+    FORMAT_VERSION, blueprint_from_json, blueprint_to_json, model_from_json, model_to_json,
+    monitor_from_json, monitor_to_json,
+};
 
 // The README's Rust examples are compiled and run as doc tests, so they cannot go stale.
 #[doc = include_str!("../README.md")]

@@ -3,11 +3,11 @@
 //! missing reading; extreme but finite values; stuck-sensor steps). Nothing here may
 //! panic; every row runs.
 
-use lagwise::search::{TrendTerms, augmented_dickey_fuller, kpss, search_orders};
 use lagwise::{
     Blueprint, Correlogram, InformationCriteria, PortmanteauScan, SearchSettings, Simulator,
-    cross_correlogram, kalman::exact_log_likelihood, persist,
+    cross_correlogram, exact_log_likelihood,
 };
+use lagwise::{TrendTerms, augmented_dickey_fuller, kpss, search_orders};
 
 fn variant<T>(r: lagwise::Result<T>) -> String {
     match r {
@@ -327,7 +327,7 @@ fn matrix() {
         (
             "period 1",
             "seasonal strength",
-            variant(lagwise::search::seasonal_strength(&good, 1)),
+            variant(lagwise::seasonal_strength(&good, 1)),
             "InvalidArgument",
         ),
         (
@@ -385,19 +385,19 @@ fn matrix() {
         (
             "corrupt json",
             "model",
-            variant(persist::model_from_json("{\"schema\":")),
+            variant(lagwise::model_from_json("{\"schema\":")),
             "CorruptStore",
         ),
         (
             "corrupt json",
             "monitor",
-            variant(persist::monitor_from_json("[1,2,3]")),
+            variant(lagwise::monitor_from_json("[1,2,3]")),
             "CorruptStore",
         ),
         (
             "corrupt json",
             "blueprint",
-            variant(persist::blueprint_from_json(
+            variant(lagwise::blueprint_from_json(
                 "{\"schema\":\"lagwise.blueprint\",\"version\":1,\"body\":{}}",
             )),
             "CorruptStore",

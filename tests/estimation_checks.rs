@@ -240,8 +240,8 @@ proptest! {
         let fit = Blueprint::builder().nonseasonal(1, 0, 1).estimator(e).build().unwrap().fit(&x).unwrap();
         let phi = fit.coefficient(Term::Ar(1)).unwrap().value;
         let theta = fit.coefficient(Term::Ma(1)).unwrap().value;
-        prop_assert!(lagwise::lag::is_stationary(&[phi]));
-        prop_assert!(lagwise::lag::is_invertible(&[theta]));
+        prop_assert!(lagwise::is_stationary(&[phi]));
+        prop_assert!(lagwise::is_invertible(&[theta]));
         prop_assert!(fit.stages().iter().all(|s| s.iterations <= 200));
     }
 

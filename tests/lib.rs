@@ -13,6 +13,7 @@ mod fleet_checks;
 mod forecast_checks;
 mod forecast_reference;
 mod fuzz_replay;
+mod layers;
 mod likelihood_reference;
 mod persistence;
 mod properties;

@@ -16,7 +16,7 @@ fn kalman_equals_dense_gaussian_density() {
         let s2 = case["sigma2"].as_f64().unwrap();
         let x = floats(&case["series"]);
         let want = case["log_likelihood"].as_f64().unwrap();
-        let got = lagwise::kalman::exact_log_likelihood(&phi, &theta, s2, &x).unwrap();
+        let got = lagwise::exact_log_likelihood(&phi, &theta, s2, &x).unwrap();
         assert!(
             (got - want).abs() <= 1e-9 * want.abs(),
             "{label}: {got} vs {want}"

@@ -2,7 +2,7 @@
 //! with an error that says what is wrong.
 
 use crate::common::test_path;
-use lagwise::{Blueprint, ErrorKind, FittedModel, Simulator, persist};
+use lagwise::{Blueprint, ErrorKind, FittedModel, Simulator};
 use proptest::prelude::*;
 
 fn sample_fit(kind: usize, seed: u64) -> FittedModel {
@@ -70,15 +70,15 @@ proptest! {
     #[test]
     fn model_round_trip_is_bit_exact(kind in 0usize..3, seed in any::<u64>()) {
         let fit = sample_fit(kind, seed);
-        let text = persist::model_to_json(&fit).unwrap();
-        let back = persist::model_from_json(&text).unwrap();
+        let text = lagwise::model_to_json(&fit).unwrap();
+        let back = lagwise::model_from_json(&text).unwrap();
         prop_assert_eq!(bits(&back.forecast(20, &[0.9]).unwrap()), bits(&fit.forecast(20, &[0.9]).unwrap()));
         prop_assert_eq!(back.coefficients(), fit.coefficients());
         // Monitors resume exactly where they were saved.
         let mut live = fit.monitor(0.99).unwrap();
         live.observe_batch(&[1.0, f64::NAN, 2.0]).unwrap();
-        let saved = persist::monitor_to_json(&live).unwrap();
-        let mut resumed = persist::monitor_from_json(&saved).unwrap();
+        let saved = lagwise::monitor_to_json(&live).unwrap();
+        let mut resumed = lagwise::monitor_from_json(&saved).unwrap();
         let a = live.observe(3.0).unwrap();
         let b = resumed.observe(3.0).unwrap();
         prop_assert_eq!(a.predicted.to_bits(), b.predicted.to_bits());
@@ -87,7 +87,7 @@ proptest! {
 }
 
 fn refused(text: &str) -> String {
-    match persist::model_from_json(text).unwrap_err().into_kind() {
+    match lagwise::model_from_json(text).unwrap_err().into_kind() {
         ErrorKind::CorruptStore { message } => message,
         other => panic!("expected CorruptStore, got {other:?}"),
     }
@@ -96,7 +96,7 @@ fn refused(text: &str) -> String {
 #[test]
 fn corrupt_documents_are_refused_with_reasons() {
     let fit = sample_fit(0, 5);
-    let text = persist::model_to_json(&fit).unwrap();
+    let text = lagwise::model_to_json(&fit).unwrap();
     let mut doc: serde_json::Value = serde_json::from_str(&text).unwrap();
 
     assert!(
@@ -135,12 +135,12 @@ fn corrupt_documents_are_refused_with_reasons() {
     // Monitors too.
     let m = fit.monitor(0.99).unwrap();
     let mut md: serde_json::Value =
-        serde_json::from_str(&persist::monitor_to_json(&m).unwrap()).unwrap();
+        serde_json::from_str(&lagwise::monitor_to_json(&m).unwrap()).unwrap();
     md["body"]["state"]["s"]
         .as_array_mut()
         .unwrap()
         .push(serde_json::json!(0.0));
-    assert!(persist::monitor_from_json(&md.to_string()).is_err());
+    assert!(lagwise::monitor_from_json(&md.to_string()).is_err());
 }
 
 /// Golden file written by version 1 of the format (tests/data/golden_model_v1.json,
@@ -149,7 +149,7 @@ fn corrupt_documents_are_refused_with_reasons() {
 #[test]
 fn golden_v1_model_still_loads() {
     let text = std::fs::read_to_string(test_path("data/golden_model_v1.json")).unwrap();
-    let fit = persist::model_from_json(&text).unwrap();
+    let fit = lagwise::model_from_json(&text).unwrap();
     let recorded: Vec<f64> = std::fs::read_to_string(test_path("data/golden_model_v1.forecast"))
         .unwrap()
         .split_whitespace()

@@ -10,8 +10,8 @@
 
 use std::collections::BTreeMap;
 
-use lagwise::synth::{Dropouts, Innovations};
 use lagwise::{Blueprint, Estimator, FitWarning, Simulator};
+use lagwise::{Dropouts, Innovations};
 
 struct Family {
     name: &'static str,

@@ -1,11 +1,11 @@
 //! Unit-root tests and the automatic order search.
 
 use crate::common::{load_column, load_json};
-use lagwise::search::{
+use lagwise::{ErrorKind, Simulator};
+use lagwise::{
     SearchSettings, TrendTerms, augmented_dickey_fuller, choose_differencing, kpss, search_orders,
     seasonal_strength,
 };
-use lagwise::{ErrorKind, Simulator};
 use rayon::prelude::*;
 
 fn dataset(case: &serde_json::Value) -> Vec<f64> {

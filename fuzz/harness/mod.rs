@@ -5,7 +5,7 @@
 
 /// Decode: byte 0 = max lag, byte 1 = fitted coefficients, then 8-byte little-endian f64s
 /// (any bit pattern: NaN, ±inf, subnormals, extremes) for the series.
-pub fn correlogram(data: &[u8]) {
+pub(crate) fn correlogram(data: &[u8]) {
     if data.len() < 2 {
         return;
     }
@@ -121,7 +121,7 @@ fn blueprint(b: &mut Bytes<'_>) -> Option<lagwise::Blueprint> {
 
 /// Fitting: bytes → specification + series; then the residual check, criteria and a
 /// forecast, whatever the outcome of the fit. Checks invariants of successful fits.
-pub fn fit(data: &[u8]) {
+pub(crate) fn fit(data: &[u8]) {
     let mut b = Bytes::new(data);
     let raw = b.byte() & 1 == 1;
     let Some(bp) = blueprint(&mut b) else { return };
@@ -147,7 +147,7 @@ pub fn fit(data: &[u8]) {
 
 /// Forecasting and online updating: fit a fixed small model to the first half, then feed
 /// the second half (any values) to the monitor and forecast from it.
-pub fn monitor(data: &[u8]) {
+pub(crate) fn monitor(data: &[u8]) {
     let mut b = Bytes::new(data);
     let alarm = (b.byte() as f64 + 1.0) / 257.0;
     let horizon = b.byte() as usize;
@@ -172,15 +172,15 @@ pub fn monitor(data: &[u8]) {
 }
 
 /// Deserialising stored models and monitors: arbitrary text must be refused cleanly.
-pub fn restore(data: &[u8]) {
+pub(crate) fn restore(data: &[u8]) {
     let text = String::from_utf8_lossy(data);
-    if let Ok(m) = lagwise::persist::model_from_json(&text) {
+    if let Ok(m) = lagwise::model_from_json(&text) {
         let _ = m.forecast(3, &[0.9]);
         let _ = m.monitor(0.99).map(|mut mon| mon.observe(1.0));
     }
-    if let Ok(mut mon) = lagwise::persist::monitor_from_json(&text) {
+    if let Ok(mut mon) = lagwise::monitor_from_json(&text) {
         let _ = mon.observe(1.0);
         let _ = mon.forecast(3, &[0.9]);
     }
-    let _ = lagwise::persist::blueprint_from_json(&text);
+    let _ = lagwise::blueprint_from_json(&text);
 }

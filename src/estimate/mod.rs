@@ -1,22 +1,6 @@
 //! Estimators: conditional sum of squares, exact maximum likelihood, and the staged
 //! combination; Hannan–Rissanen starting values; the optimiser boundary (argmin BFGS
 //! with a Moré–Thuente line search); numerical Hessian for standard errors.
-//!
-//! # Objective
-//! The optimiser sees only the free ARMA coefficients. Each polynomial factor without
-//! held coefficients is parameterised by `u_k = atanh κ_k` (partial autocorrelations), so
-//! every trial point is admissible (Jones 1980; Monahan 1984). Regression coefficients
-//! (mean, drift) are profiled out by GLS inside the likelihood, and σ² is concentrated
-//! out, so the objective is `−log L / n` as a function of the ARMA part alone.
-//!
-//! # Conditional sum of squares (convention)
-//! On the differenced series `w`, residuals are `e_t = w_t − Σφ_i w_{t−i} − Σθ_j e_{t−j}`
-//! for `t ≥ p + P·s` (the first `p + P·s` differenced readings are conditioned on), with
-//! pre-sample residuals set to zero. A missing reading after the conditioning stretch gets
-//! residual zero and is replaced by its one-step prediction in later lags; a missing
-//! reading inside the conditioning stretch is taken as zero deviation. σ² = SS/m with `m`
-//! the number of non-missing residual times. The log-likelihood reported is the
-//! conditional one, `−m/2·(ln 2πσ² + 1)`, typed as conditional.
 
 use std::cell::{Cell, RefCell};
 
@@ -25,11 +9,12 @@ use argmin::solver::linesearch::BacktrackingLineSearch;
 use argmin::solver::linesearch::condition::ArmijoCondition;
 use argmin::solver::quasinewton::BFGS;
 
-use crate::error::{Error, ErrorKind, Result};
-use crate::kalman::{KalmanWorkspace, PassTotals, direct_recursion};
-use crate::lag;
-use crate::linalg;
-use crate::spec::{Blueprint, Term};
+use crate::base::error::{Error, ErrorKind, Result};
+use crate::base::linalg;
+use crate::filter::kalman::{KalmanWorkspace, PassTotals, direct_recursion};
+use crate::model::blueprint::{Blueprint, Term};
+use crate::model::coefficients::{Coefs, FACTORS, expand_into};
+use crate::model::lag;
 
 /// The differenced data of one fit, with its regression columns.
 #[derive(Debug, Clone)]
@@ -138,7 +123,8 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         .iter()
         .filter(|t| bp.held_value(**t).is_none())
         .count();
-    let s = crate::series::screen(series, WHAT, 2, crate::series::ConstantPolicy::Refuse)?;
+    let s =
+        crate::base::screen::screen(series, WHAT, 2, crate::base::screen::ConstantPolicy::Refuse)?;
     if series.len() <= loss {
         return Err(Error::new(ErrorKind::TooShort {
             what: WHAT,
@@ -170,7 +156,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
     // conditioning.
     let needed = estimated
         + 2
-        + if bp.estimator == crate::Estimator::ConditionalSumOfSquares {
+        + if bp.estimator == crate::model::blueprint::Estimator::ConditionalSumOfSquares {
             p_exp
         } else {
             0
@@ -216,7 +202,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
             .map(|c| rows.iter().map(|&t| data[c * n + t]).collect())
             .collect();
         let y: Vec<f64> = rows.iter().map(|&t| data[t]).collect();
-        if let Some((b, _)) = crate::linalg::least_squares(&cols, &y) {
+        if let Some((b, _)) = crate::base::linalg::least_squares(&cols, &y) {
             for t in 0..n {
                 let mut fit = 0.0;
                 for c in 1..ncols {
@@ -238,20 +224,6 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         has_missing: present_w < n,
         missing_original: series.len() - s.present,
     })
-}
-
-/// The four polynomial factors in canonical order.
-pub(crate) const FACTORS: [Term; 4] = [
-    Term::Ar(0),
-    Term::Ma(0),
-    Term::SeasonalAr(0),
-    Term::SeasonalMa(0),
-];
-
-/// Natural coefficients of the four factors.
-#[derive(Debug, Clone, Default, PartialEq)]
-pub(crate) struct Coefs {
-    pub f: [Vec<f64>; 4],
 }
 
 #[derive(Debug, Clone)]
@@ -278,7 +250,7 @@ impl Layout {
         for (k, &factor) in FACTORS.iter().enumerate() {
             let len = lens[k];
             let held: Vec<Option<f64>> = (1..=len)
-                .map(|i| bp.held_value(crate::spec::same_kind(factor, i)))
+                .map(|i| bp.held_value(crate::model::blueprint::same_kind(factor, i)))
                 .collect();
             let nheld = held.iter().filter(|h| h.is_some()).count();
             let transformed = nheld == 0;
@@ -427,7 +399,7 @@ impl Layout {
         for (k, fl) in self.factors.iter().enumerate() {
             for i in 0..fl.len {
                 if fl.held[i].is_none() {
-                    out.push(crate::spec::same_kind(FACTORS[k], i + 1));
+                    out.push(crate::model::blueprint::same_kind(FACTORS[k], i + 1));
                 }
             }
         }
@@ -458,25 +430,6 @@ fn admissible_with(c: &[f64], sign: f64, a: &mut Vec<f64>, b: &mut Vec<f64>) -> 
         a[..k - 1].copy_from_slice(&b[..k - 1]);
     }
     true
-}
-
-/// Expand `(1 ∓ Σa_iB^i)(1 ∓ Σb_jB^{js})` into `out` (coefficient list, sign convention of
-/// the factor kind); allocation-free once `out` has capacity.
-fn expand_into(a: &[f64], b: &[f64], period: usize, is_ma: bool, out: &mut Vec<f64>) {
-    let len = a.len() + b.len() * period;
-    out.clear();
-    out.resize(len, 0.0);
-    for (i, &ai) in a.iter().enumerate() {
-        out[i] += ai;
-    }
-    for (j, &bj) in b.iter().enumerate() {
-        let lag = (j + 1) * period;
-        out[lag - 1] += bj;
-        for (i, &ai) in a.iter().enumerate() {
-            // AR: −(−a)(−b) = −ab in "1 − Σc" form; MA: +ab.
-            out[lag + i] += if is_ma { ai * bj } else { -ai * bj };
-        }
-    }
 }
 
 /// Which objective.
@@ -537,8 +490,8 @@ impl EvalWorkspace {
     fn expand(&mut self, c: &Coefs, period: usize) {
         expand_into(&c.f[0], &c.f[2], period, false, &mut self.phi);
         expand_into(&c.f[1], &c.f[3], period, true, &mut self.theta);
-        crate::kalman::nonzero_lags(&self.phi, &mut self.ar_nz);
-        crate::kalman::nonzero_lags(&self.theta, &mut self.ma_nz);
+        crate::filter::kalman::nonzero_lags(&self.phi, &mut self.ar_nz);
+        crate::filter::kalman::nonzero_lags(&self.theta, &mut self.ma_nz);
     }
 
     /// Evaluate the objective at natural coefficients `c`. With `beta` given, the
@@ -569,7 +522,7 @@ impl EvalWorkspace {
 
     /// Evaluate several points: `values[i]` = `(−log L, readings used)` for
     /// `points[i]`, `None` where the evaluation failed. Points run side by side in lanes
-    /// (see [`crate::lanes`]) when the shape allows; each value is bitwise the one
+    /// (see [`crate::filter::lanes`]) when the shape allows; each value is bitwise the one
     /// [`Self::evaluate`] gives. Allocation-free once the workspace has grown.
     pub(crate) fn evaluate_batch(
         &mut self,
@@ -586,7 +539,7 @@ impl EvalWorkspace {
         // ARMA(3,2) runs out of registers and loses 8%; CSS lanes stop at p + q = 4.
         let lanes_ok = points.len() > 1
             && !prep.has_missing
-            && crate::lanes::fits(pn, qn, prep.ncols)
+            && crate::filter::lanes::fits(pn, qn, prep.ncols)
             && (kind == ObjectiveKind::Exact || pn + qn <= 4);
         if !lanes_ok {
             let mut out = std::mem::take(&mut self.scratch_eval);
@@ -597,7 +550,7 @@ impl EvalWorkspace {
             self.scratch_eval = out;
             return;
         }
-        for chunk in points.chunks(crate::lanes::MAX_LANES) {
+        for chunk in points.chunks(crate::filter::lanes::MAX_LANES) {
             self.evaluate_lanes(prep, bp, chunk, kind, values);
         }
     }
@@ -611,7 +564,7 @@ impl EvalWorkspace {
         kind: ObjectiveKind,
         values: &mut Vec<Option<(f64, usize)>>,
     ) {
-        use crate::lanes::{Lane, MAX_LANES};
+        use crate::filter::lanes::{Lane, MAX_LANES};
         let (n, k) = (prep.n, prep.ncols);
         let (pn, qn) = bp.expanded_degrees();
         let kk = k * k;
@@ -654,7 +607,7 @@ impl EvalWorkspace {
                     active[l] = true;
                 }
                 let mut opened = [(0usize, false, PassTotals::default()); MAX_LANES];
-                crate::kalman::open_side_by_side(
+                crate::filter::kalman::open_side_by_side(
                     &mut self.lane_filters[..chunk.len()],
                     &active[..chunk.len()],
                     &prep.data,
@@ -698,7 +651,7 @@ impl EvalWorkspace {
             if !active(status[l]) {
                 continue;
             }
-            crate::lanes::run(
+            crate::filter::lanes::run(
                 &prep.data,
                 n,
                 k,
@@ -713,11 +666,11 @@ impl EvalWorkspace {
             slot[count] = l;
             count += 1;
         }
-        crate::lanes::run(&prep.data, n, k, pn, qn, t0, n, &mut set[..count], None);
+        crate::filter::lanes::run(&prep.data, n, k, pn, qn, t0, n, &mut set[..count], None);
         for (j, lane) in set[..count].iter().enumerate() {
             let l = slot[j];
             let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
-            crate::kalman::add_lane_sums(lane, k, cross);
+            crate::filter::kalman::add_lane_sums(lane, k, cross);
             used[l] += n - start[l];
         }
         let mut out = std::mem::take(&mut self.scratch_eval);
@@ -807,8 +760,8 @@ impl EvalWorkspace {
     }
 
     /// The CSS lane for the expanded coefficients in `phi`/`theta` (lengths ≤ 3).
-    fn css_lane(&self) -> crate::lanes::Lane {
-        let mut lane = crate::lanes::Lane::default();
+    fn css_lane(&self) -> crate::filter::lanes::Lane {
+        let mut lane = crate::filter::lanes::Lane::default();
         lane.phi[..self.phi.len()].copy_from_slice(&self.phi);
         lane.theta[..self.theta.len()].copy_from_slice(&self.theta);
         lane
@@ -828,14 +781,14 @@ impl EvalWorkspace {
             self.fill.clear();
             self.fill.extend_from_slice(&prep.data);
         }
-        if !prep.has_missing && crate::lanes::fits(self.phi.len(), self.theta.len(), k) {
+        if !prep.has_missing && crate::filter::lanes::fits(self.phi.len(), self.theta.len(), k) {
             // Small shapes: the lanes kernel from the end of the conditioning stretch,
             // pre-sample residuals zero (they are the lane's initial history).
             for c in 0..k {
                 self.css_innov[c * n..c * n + cond].fill(0.0);
             }
             let mut lane = [self.css_lane()];
-            crate::lanes::run(
+            crate::filter::lanes::run(
                 &prep.data,
                 n,
                 k,
@@ -846,7 +799,7 @@ impl EvalWorkspace {
                 &mut lane,
                 Some(&mut self.css_innov[..k * n]),
             );
-            crate::kalman::add_lane_sums(&lane[0], k, &mut self.cross);
+            crate::filter::kalman::add_lane_sums(&lane[0], k, &mut self.cross);
             return n - cond;
         }
         let max_ma = self.ma_nz.last().map_or(0, |e| e.0);
@@ -887,7 +840,7 @@ impl EvalWorkspace {
         if !prep.has_missing {
             for i in 0..k {
                 for j in i..k {
-                    self.cross[i * k + j] += crate::kalman::segment_dot(
+                    self.cross[i * k + j] += crate::filter::kalman::segment_dot(
                         &self.css_innov[i * n + cond..(i + 1) * n],
                         &self.css_innov[j * n + cond..(j + 1) * n],
                     );
@@ -1416,7 +1369,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     };
     let mut ehat = vec![0.0; n];
     if m > 0
-        && let Ok(cg) = crate::correlogram::Correlogram::compute(&w, m)
+        && let Ok(cg) = crate::stats::correlogram::Correlogram::compute(&w, m)
     {
         // AR(m) coefficients from the correlogram's partial autocorrelations (kept
         // inside ±0.999) by the Durbin–Levinson map.
@@ -1452,7 +1405,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     let mut slots: Vec<(usize, usize)> = Vec::new();
     for &(f, i, lagv) in &ar_lags {
         let col: Vec<f64> = (start..n).map(|t| w[t - lagv]).collect();
-        match bp.held_value(crate::spec::same_kind(FACTORS[f], i + 1)) {
+        match bp.held_value(crate::model::blueprint::same_kind(FACTORS[f], i + 1)) {
             Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
             None => {
                 cols.push(col);
@@ -1462,7 +1415,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     }
     for &(f, i, lagv) in &ma_lags {
         let col: Vec<f64> = (start..n).map(|t| ehat[t - lagv]).collect();
-        match bp.held_value(crate::spec::same_kind(FACTORS[f], i + 1)) {
+        match bp.held_value(crate::model::blueprint::same_kind(FACTORS[f], i + 1)) {
             Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
             None => {
                 cols.push(col);
@@ -1479,7 +1432,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     }
     for (f, coefs) in out.f.iter_mut().enumerate() {
         let held_all: Vec<Option<f64>> = (1..=coefs.len())
-            .map(|i| bp.held_value(crate::spec::same_kind(FACTORS[f], i)))
+            .map(|i| bp.held_value(crate::model::blueprint::same_kind(FACTORS[f], i)))
             .collect();
         for (c, h) in coefs.iter_mut().zip(&held_all) {
             if let Some(v) = h {
@@ -1572,30 +1525,9 @@ pub(crate) fn natural(layout: &Layout, x: &[f64], ws: &mut EvalWorkspace) -> Opt
     ok.then_some(c)
 }
 
-/// Expanded (φ, θ) of natural coefficients.
-pub(crate) fn expanded(c: &Coefs, period: usize) -> (Vec<f64>, Vec<f64>) {
-    let mut phi = Vec::new();
-    let mut theta = Vec::new();
-    expand_into(&c.f[0], &c.f[2], period, false, &mut phi);
-    expand_into(&c.f[1], &c.f[3], period, true, &mut theta);
-    (phi, theta)
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn expansion_matches_polynomial_product() {
-        let mut out = Vec::new();
-        expand_into(&[0.5, -0.2], &[0.3], 4, false, &mut out);
-        assert_eq!(out, lag::expand_autoregressive(&[0.5, -0.2], &[0.3], 4));
-        expand_into(&[0.4], &[0.6, 0.1], 3, true, &mut out);
-        let want = lag::expand_moving_average(&[0.4], &[0.6, 0.1], 3);
-        for (a, b) in out.iter().zip(&want) {
-            assert!((a - b).abs() < 1e-15);
-        }
-    }
 
     #[test]
     fn differencing_lengths() {
@@ -1612,7 +1544,7 @@ mod tests {
 #[cfg(test)]
 mod batch_tests {
     use super::*;
-    use crate::synth::Simulator;
+    use crate::model::simulate::Simulator;
 
     fn coefs(p: usize, q: usize, phi: f64, theta: f64) -> Coefs {
         Coefs {

@@ -1,21 +1,4 @@
 //! Fitting one blueprint over many series in parallel.
-//!
-//! A [`Fleet`] holds the batch settings (threads, residual-check lags, alarm level,
-//! progress callback, cancellation flag); `fit_*` methods take the series as slices, as
-//! the rows of a 2-D ndarray, or as a ragged collection with the caller's ids. Each
-//! series gets its own result — a compact [`FitSummary`] or a typed error — so one bad
-//! series never aborts the batch.
-//!
-//! # Determinism
-//! Every series is fitted independently on a per-worker workspace whose history does
-//! not influence results, and results are returned in input order, so each series'
-//! result is **bit-identical whatever the thread count** (tested).
-//!
-//! # Memory
-//! Summaries keep estimates, standard errors, likelihood, criteria, convergence, the
-//! residual check's p-values and a ready-to-use [`Monitor`] — not the residuals — so a
-//! fleet's results stay small next to its input. Fit one series with
-//! [`Blueprint::fit`](crate::Blueprint::fit) when the full [`FittedModel`] is needed.
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
@@ -23,16 +6,16 @@ use std::time::{Duration, Instant};
 
 use rayon::prelude::*;
 
-use crate::criteria::InformationCriteria;
-use crate::error::{Error, ErrorKind, Result};
+use crate::base::error::{Error, ErrorKind, Result};
 use crate::estimate::StageRecord;
-use crate::fitted::{
+use crate::fit::fitted::{
     CoefficientEstimate, FitWarning, FitWorkspace, FittedModel, LogLikelihood, ReadingCounts,
     ResidualCheck,
 };
 use crate::forecast::Monitor;
-use crate::search::SearchSettings;
-use crate::spec::{Blueprint, ModelShape, Term};
+use crate::model::blueprint::{Blueprint, ModelShape, Term};
+use crate::select::search::SearchSettings;
+use crate::stats::criteria::InformationCriteria;
 
 /// Progress of a running batch, passed to the progress callback.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -49,6 +32,23 @@ pub struct Progress {
 type ProgressFn = dyn Fn(Progress) + Send + Sync;
 
 /// Batch settings. Build with [`Fleet::builder`].
+///
+/// A [`Fleet`] holds the batch settings (threads, residual-check lags, alarm level,
+/// progress callback, cancellation flag); `fit_*` methods take the series as slices, as
+/// the rows of a 2-D ndarray, or as a ragged collection with the caller's ids. Each
+/// series gets its own result — a compact [`FitSummary`] or a typed error — so one bad
+/// series never aborts the batch.
+///
+/// # Determinism
+/// Every series is fitted independently on a per-worker workspace whose history does
+/// not influence results, and results are returned in input order, so each series'
+/// result is **bit-identical whatever the thread count** (tested).
+///
+/// # Memory
+/// Summaries keep estimates, standard errors, likelihood, criteria, convergence, the
+/// residual check's p-values and a ready-to-use [`Monitor`] — not the residuals — so a
+/// fleet's results stay small next to its input. Fit one series with
+/// [`Blueprint::fit`](crate::Blueprint::fit) when the full [`FittedModel`] is needed.
 #[derive(Clone)]
 pub struct Fleet {
     threads: Option<usize>,
@@ -393,7 +393,7 @@ impl Fleet {
         self.run(blueprint, series)
     }
 
-    /// Search orders for every series (see [`crate::search`]); each summary describes
+    /// Search orders for every series (see [`search_orders`](crate::search_orders)); each summary describes
     /// the chosen model and carries the search's explanation. Ids are the positions.
     pub fn search_slices(
         &self,
@@ -402,7 +402,7 @@ impl Fleet {
     ) -> FleetReport<usize> {
         let items: Vec<(usize, &[f64])> = series.iter().copied().enumerate().collect();
         self.run_with(&items, |x, ws| {
-            let out = crate::search::search_orders_with(x, settings, ws)?;
+            let out = crate::select::search::search_orders_with(x, settings, ws)?;
             let mut s =
                 FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm())?;
             s.search_note = Some(out.explanation);

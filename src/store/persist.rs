@@ -1,30 +1,11 @@
 //! Versioned storage of blueprints, fitted models and monitors.
-//!
-//! Every stored document is an envelope `{"schema": …, "version": …, "body": …}`. Loading
-//! checks the schema name and version first, then the body's fields (serde reports a
-//! missing or mistyped field by name), then the content itself (lengths, admissible
-//! coefficients, a forecasting state consistent with the coefficients). Every refusal is
-//! [`ErrorKind::CorruptStore`] with a message that says
-//! which check failed. Workspaces are never stored.
-//!
-//! ```
-//! use lagwise::{Blueprint, Simulator, persist};
-//! # fn main() -> Result<(), lagwise::Error> {
-//! let x = Simulator::builder().autoregressive(&[0.6]).level(70.0).build()?.generate(400, 3);
-//! let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x)?;
-//! let text = persist::model_to_json(&fit)?;
-//! let back = persist::model_from_json(&text)?;
-//! assert_eq!(back.forecast(5, &[0.9])?, fit.forecast(5, &[0.9])?); // bit-identical
-//! assert!(persist::model_from_json(&text.replace("\"version\":1", "\"version\":9")).is_err());
-//! # Ok(()) }
-//! ```
 
 use serde::{Deserialize, Serialize};
 
-use crate::error::{Error, ErrorKind, Result};
-use crate::fitted::FittedModel;
+use crate::base::error::{Error, ErrorKind, Result};
+use crate::fit::fitted::FittedModel;
 use crate::forecast::Monitor;
-use crate::spec::Blueprint;
+use crate::model::blueprint::Blueprint;
 
 /// Version of the storage format written by this build.
 pub const FORMAT_VERSION: u32 = 1;
@@ -86,6 +67,25 @@ fn load<T: for<'de> Deserialize<'de>>(schema: &str, text: &str) -> Result<T> {
 }
 
 /// Serialise a fitted model to JSON (versioned envelope).
+///
+/// Every stored document is an envelope `{"schema": …, "version": …, "body": …}`. Loading
+/// checks the schema name and version first, then the body's fields (serde reports a
+/// missing or mistyped field by name), then the content itself (lengths, admissible
+/// coefficients, a forecasting state consistent with the coefficients). Every refusal is
+/// [`ErrorKind::CorruptStore`] with a message that says
+/// which check failed. Workspaces are never stored.
+///
+/// ```
+/// use lagwise::{Blueprint, Simulator};
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let x = Simulator::builder().autoregressive(&[0.6]).level(70.0).build()?.generate(400, 3);
+/// let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x)?;
+/// let text = lagwise::model_to_json(&fit)?;
+/// let back = lagwise::model_from_json(&text)?;
+/// assert_eq!(back.forecast(5, &[0.9])?, fit.forecast(5, &[0.9])?); // bit-identical
+/// assert!(lagwise::model_from_json(&text.replace("\"version\":1", "\"version\":9")).is_err());
+/// # Ok(()) }
+/// ```
 pub fn model_to_json(model: &FittedModel) -> Result<String> {
     save(MODEL_SCHEMA, model)
 }
@@ -114,22 +114,4 @@ pub fn blueprint_to_json(blueprint: &Blueprint) -> Result<String> {
 /// Restore a blueprint from JSON (the builder's validation runs again).
 pub fn blueprint_from_json(text: &str) -> Result<Blueprint> {
     load(BLUEPRINT_SCHEMA, text)
-}
-
-/// Serde helper: a `Vec<f64>` whose NaN entries (missing readings) are stored as `null`.
-pub(crate) mod nan_as_null {
-    use serde::{Deserialize, Deserializer, Serialize, Serializer};
-
-    pub(crate) fn serialize<S: Serializer>(v: &[f64], s: S) -> Result<S::Ok, S::Error> {
-        let opt: Vec<Option<f64>> = v
-            .iter()
-            .map(|x| if x.is_nan() { None } else { Some(*x) })
-            .collect();
-        opt.serialize(s)
-    }
-
-    pub(crate) fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<f64>, D::Error> {
-        let opt: Vec<Option<f64>> = Vec::deserialize(d)?;
-        Ok(opt.into_iter().map(|x| x.unwrap_or(f64::NAN)).collect())
-    }
 }

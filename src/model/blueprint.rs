@@ -1,12 +1,8 @@
 //! Model specification: the [`Blueprint`] and its builder.
-//!
-//! A blueprint says *which* model to fit — orders, differencing, mean/drift, held
-//! coefficients, estimator and optimiser settings — and never holds data. `build()`
-//! validates everything, so after it only genuine numerical trouble can fail a fit.
 
 use serde::{Deserialize, Serialize};
 
-use crate::error::{Error, ErrorKind, Result};
+use crate::base::error::{Error, ErrorKind, Result};
 
 /// Largest seasonal period accepted (10 days of minute readings).
 pub const MAX_PERIOD: usize = 14_400;
@@ -61,6 +57,22 @@ impl std::fmt::Display for Term {
 }
 
 /// How the coefficients are estimated.
+///
+/// # Objective
+/// The optimiser sees only the free ARMA coefficients. Each polynomial factor without
+/// held coefficients is parameterised by `u_k = atanh κ_k` (partial autocorrelations), so
+/// every trial point is admissible (Jones 1980; Monahan 1984). Regression coefficients
+/// (mean, drift) are profiled out by GLS inside the likelihood, and σ² is concentrated
+/// out, so the objective is `−log L / n` as a function of the ARMA part alone.
+///
+/// # Conditional sum of squares (convention)
+/// On the differenced series `w`, residuals are `e_t = w_t − Σφ_i w_{t−i} − Σθ_j e_{t−j}`
+/// for `t ≥ p + P·s` (the first `p + P·s` differenced readings are conditioned on), with
+/// pre-sample residuals set to zero. A missing reading after the conditioning stretch gets
+/// residual zero and is replaced by its one-step prediction in later lags; a missing
+/// reading inside the conditioning stretch is taken as zero deviation. σ² = SS/m with `m`
+/// the number of non-missing residual times. The log-likelihood reported is the
+/// conditional one, `−m/2·(ln 2πσ² + 1)`, typed as conditional.
 #[non_exhaustive]
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize, Default)]
 pub enum Estimator {
@@ -109,6 +121,10 @@ impl std::fmt::Display for Estimator {
 /// assert!(err.to_string().contains("theta.1"));
 /// # Ok(()) }
 /// ```
+///
+/// A blueprint says *which* model to fit — orders, differencing, mean/drift, held
+/// coefficients, estimator and optimiser settings — and never holds data. `build()`
+/// validates everything, so after it only genuine numerical trouble can fail a fit.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(try_from = "BlueprintRecord")]
 pub struct Blueprint {
@@ -370,9 +386,9 @@ impl BlueprintBuilder {
                     .map(|i| bp.held_value(same_kind(factor, i)).unwrap_or(0.0))
                     .collect();
                 let ok = if is_ar {
-                    crate::lag::is_stationary(&coefs)
+                    crate::model::lag::is_stationary(&coefs)
                 } else {
-                    crate::lag::is_invertible(&coefs)
+                    crate::model::lag::is_invertible(&coefs)
                 };
                 if !ok {
                     return bad(

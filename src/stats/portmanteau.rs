@@ -1,23 +1,9 @@
 //! Portmanteau tests of whiteness: Ljung–Box (Ljung & Box 1978) and Box–Pierce
 //! (Box & Pierce 1970), at every lag `1..=H`.
-//!
-//! With `m` non-missing readings and sample autocorrelations `r(k)` (see
-//! [`crate::correlogram`]):
-//!
-//! ```text
-//! Box–Pierce  Q_BP(h) = m · Σ_{k=1}^{h} r(k)²
-//! Ljung–Box   Q_LB(h) = m(m+2) · Σ_{k=1}^{h} r(k)² / (m−k)
-//! ```
-//!
-//! Under the null of white noise (after fitting an ARMA model with `p + q` coefficients)
-//! each is approximately chi-square with `h − (p + q)` degrees of freedom. Where
-//! `h ≤ p + q` there are no degrees of freedom left and the p-value is `None` — absent,
-//! not NaN. P-values come from the chi-square survival function of `statrs`.
 
-use statrs::distribution::{ChiSquared, ContinuousCDF};
-
-use crate::correlogram::{Correlogram, CorrelogramScratch};
-use crate::error::{Error, Result};
+use crate::base::dist::chi_square_upper;
+use crate::base::error::{Error, Result};
+use crate::stats::correlogram::{Correlogram, CorrelogramScratch};
 
 /// One lag of a [`PortmanteauScan`].
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -49,6 +35,19 @@ pub struct PortmanteauRow {
 /// assert!(scan.row(10).unwrap().degrees_of_freedom == Some(8));
 /// # Ok(()) }
 /// ```
+///
+/// With `m` non-missing readings and sample autocorrelations `r(k)` (see
+/// [`Correlogram`]):
+///
+/// ```text
+/// Box–Pierce  Q_BP(h) = m · Σ_{k=1}^{h} r(k)²
+/// Ljung–Box   Q_LB(h) = m(m+2) · Σ_{k=1}^{h} r(k)² / (m−k)
+/// ```
+///
+/// Under the null of white noise (after fitting an ARMA model with `p + q` coefficients)
+/// each is approximately chi-square with `h − (p + q)` degrees of freedom. Where
+/// `h ≤ p + q` there are no degrees of freedom left and the p-value is `None` — absent,
+/// not NaN. P-values come from the chi-square survival function of `statrs`.
 #[derive(Debug, Clone, PartialEq)]
 #[non_exhaustive]
 pub struct PortmanteauScan {
@@ -181,27 +180,10 @@ impl PortmanteauScan {
     }
 }
 
-/// Upper-tail probability `P(χ²_df > x)`.
-pub(crate) fn chi_square_upper(x: f64, df: usize) -> f64 {
-    match ChiSquared::new(df as f64) {
-        Ok(d) if x.is_finite() => d.sf(x.max(0.0)).clamp(0.0, 1.0),
-        Ok(_) if x == f64::INFINITY => 0.0,
-        _ => f64::NAN,
-    }
-}
-
-/// Chi-square quantile: the `x` with `P(χ²_df ≤ x) = probability`.
-#[cfg(test)]
-pub(crate) fn chi_square_quantile(probability: f64, df: usize) -> f64 {
-    match ChiSquared::new(df as f64) {
-        Ok(d) => d.inverse_cdf(probability),
-        Err(_) => f64::NAN,
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::base::dist::chi_square_quantile;
 
     #[test]
     fn statistics_follow_their_definitions() {

@@ -1,38 +1,9 @@
 //! Sample autocovariance, autocorrelation, partial autocorrelation, cross-correlation and
 //! their confidence bands.
-//!
-//! # Definitions
-//! With `m` non-missing readings, mean `x̄` of those readings and `z_t = x_t − x̄`
-//! (`z_t = 0` where `x_t` is missing), the autocovariance at lag `h` is
-//!
-//! ```text
-//! c(h) = (1/m) Σ_t z_t z_{t+h}        (pairwise-complete: a pair with a missing reading adds 0)
-//! r(h) = c(h) / c(0)
-//! ```
-//!
-//! With no missing readings this is the usual mean-corrected estimator with divisor `n`.
-//! The sequence is positive semi-definite (it is the autocovariance of the zero-filled
-//! deviations), so the partial autocorrelations from Durbin–Levinson stay inside [−1, 1].
-//! With many missing readings the estimates shrink towards zero by the fraction of
-//! complete pairs; that is the price of positive definiteness.
-//!
-//! # Cost
-//! The sums are computed directly, `O(n·(H+1))` multiply-adds for `n` readings and
-//! maximum lag `H`, over cache-sized blocks (2,048 readings plus `H` look-ahead) with
-//! eight independent accumulators so the compiler vectorises the inner product. The only
-//! allocation is the block buffer (`2,048 + H + 3` values), reusable through
-//! [`CorrelogramScratch`]; the caller's series is never copied. 10⁷ readings to lag 200
-//! take about 0.2–0.4 s on one core (see `benches/autocorrelation.rs` and the README).
-//! Direct sums were chosen over an FFT because they are exact in the sense of plain
-//! floating-point summation (no spectral leakage of rounding error into small lags), need
-//! no `O(n)` buffer, and are faster for the lags a correlogram is read at (H ≤ a few hundred).
-//! The mean uses a compensated two-pass sum on exactly rescaled values, which reproduces
-//! the NIST StRD NumAcc certified values.
 
-use statrs::distribution::{ContinuousCDF, Normal};
-
-use crate::error::{Error, ErrorKind, Result};
-use crate::series::{ConstantPolicy, Screened, screen};
+use crate::base::dist::two_sided_quantile;
+use crate::base::error::{Error, ErrorKind, Result};
+use crate::base::screen::{ConstantPolicy, Screened, screen};
 
 const BLOCK: usize = 2048;
 
@@ -196,6 +167,34 @@ fn accumulate_lags(base: &[f64], shifted: &[f64], len: usize, out: &mut [f64]) {
 /// assert_eq!(cg.partial_autocorrelations()[0], cg.autocorrelations()[1]);
 /// # Ok(()) }
 /// ```
+///
+/// # Definitions
+/// With `m` non-missing readings, mean `x̄` of those readings and `z_t = x_t − x̄`
+/// (`z_t = 0` where `x_t` is missing), the autocovariance at lag `h` is
+///
+/// ```text
+/// c(h) = (1/m) Σ_t z_t z_{t+h}        (pairwise-complete: a pair with a missing reading adds 0)
+/// r(h) = c(h) / c(0)
+/// ```
+///
+/// With no missing readings this is the usual mean-corrected estimator with divisor `n`.
+/// The sequence is positive semi-definite (it is the autocovariance of the zero-filled
+/// deviations), so the partial autocorrelations from Durbin–Levinson stay inside [−1, 1].
+/// With many missing readings the estimates shrink towards zero by the fraction of
+/// complete pairs; that is the price of positive definiteness.
+///
+/// # Cost
+/// The sums are computed directly, `O(n·(H+1))` multiply-adds for `n` readings and
+/// maximum lag `H`, over cache-sized blocks (2,048 readings plus `H` look-ahead) with
+/// eight independent accumulators so the compiler vectorises the inner product. The only
+/// allocation is the block buffer (`2,048 + H + 3` values), reusable through
+/// [`CorrelogramScratch`]; the caller's series is never copied. 10⁷ readings to lag 200
+/// take about 0.2–0.4 s on one core (see `benches/autocorrelation.rs` and the README).
+/// Direct sums were chosen over an FFT because they are exact in the sense of plain
+/// floating-point summation (no spectral leakage of rounding error into small lags), need
+/// no `O(n)` buffer, and are faster for the lags a correlogram is read at (H ≤ a few hundred).
+/// The mean uses a compensated two-pass sum on exactly rescaled values, which reproduces
+/// the NIST StRD NumAcc certified values.
 #[derive(Debug, Clone, PartialEq)]
 #[non_exhaustive]
 pub struct Correlogram {
@@ -357,18 +356,6 @@ pub enum BandRule {
     BartlettCumulative,
 }
 
-/// Standard normal quantile `z` with `P(|Z| ≤ z) = level`, for `0 < level < 1`.
-pub(crate) fn two_sided_quantile(level: f64, what: &'static str) -> Result<f64> {
-    if !(level > 0.0 && level < 1.0) {
-        return Err(Error::invalid(
-            what,
-            format!("level {level} is outside (0, 1); write 95% as 0.95"),
-        ));
-    }
-    let normal = Normal::standard();
-    Ok(normal.inverse_cdf(0.5 + level / 2.0))
-}
-
 fn check_lag(what: &'static str, max_lag: usize, length: usize) -> Result<()> {
     if max_lag >= length {
         return Err(Error::invalid(
@@ -390,7 +377,7 @@ fn check_lag(what: &'static str, max_lag: usize, length: usize) -> Result<()> {
 /// # fn main() -> Result<(), lagwise::Error> {
 /// // AR(1) with φ = 0.6: r(h) = 0.6^h, so the PACF is 0.6 then zeros.
 /// let r: Vec<f64> = (0..5).map(|h| 0.6f64.powi(h)).collect();
-/// let p = lagwise::correlogram::partial_from_autocorrelations(&r)?;
+/// let p = lagwise::partial_from_autocorrelations(&r)?;
 /// assert!((p[0] - 0.6).abs() < 1e-15 && p[1..].iter().all(|v| v.abs() < 1e-15));
 /// # Ok(()) }
 /// ```

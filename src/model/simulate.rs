@@ -1,12 +1,7 @@
 //! Seeded simulation of SARIMA paths.
-//!
-//! The random stream is the project's own (xoshiro256++ seeded through SplitMix64,
-//! Marsaglia's polar method for normals, Marsaglia–Tsang for the gamma draws behind
-//! Student-t innovations), so a seed gives **bit-identical paths on every platform and in
-//! every future version** of this crate: changing the stream is a breaking change.
 
-use crate::error::{Error, Result};
-use crate::lag;
+use crate::base::error::{Error, Result};
+use crate::model::lag;
 
 /// xoshiro256++ (Blackman & Vigna 2018), seeded by SplitMix64.
 #[derive(Debug, Clone)]
@@ -309,6 +304,11 @@ fn default_burn_in(ar: &[f64], ma: &[f64]) -> usize {
 /// assert_ne!(a, sim.generate(500, 18));
 /// # Ok(()) }
 /// ```
+///
+/// The random stream is the project's own (xoshiro256++ seeded through SplitMix64,
+/// Marsaglia's polar method for normals, Marsaglia–Tsang for the gamma draws behind
+/// Student-t innovations), so a seed gives **bit-identical paths on every platform and in
+/// every future version** of this crate: changing the stream is a breaking change.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Simulator {
     ar: Vec<f64>,

@@ -1,8 +1,4 @@
 //! The crate's one error type.
-//!
-//! [`Error`] is an opaque struct; match on [`Error::kind`] to react to a particular
-//! failure. Every message names the entry point that failed (`what`) and the offending
-//! value or position, so a log line is enough to find the bad reading.
 
 use std::fmt;
 
@@ -17,6 +13,10 @@ use std::fmt;
 /// assert!(matches!(err.kind(), ErrorKind::NonFiniteReading { index: 1, .. }));
 /// assert!(err.to_string().contains("reading 1"));
 /// ```
+///
+/// [`Error`] is an opaque struct; match on [`Error::kind`] to react to a particular
+/// failure. Every message names the entry point that failed (`what`) and the offending
+/// value or position, so a log line is enough to find the bad reading.
 #[derive(Clone, PartialEq)]
 pub struct Error {
     kind: Box<ErrorKind>,

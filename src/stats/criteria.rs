@@ -1,22 +1,6 @@
 //! Information criteria for comparing fitted models, nested or not.
-//!
-//! # Counting rule (the one place it is written down)
-//! `k` counts **every estimated parameter**: ARMA coefficients, seasonal coefficients,
-//! the mean or drift, regression coefficients, **and the innovation variance σ²**.
-//! Fixed (not estimated) coefficients do not count. `n` is the number of observations
-//! that enter the likelihood (after differencing, excluding missing readings).
-//!
-//! ```text
-//! Akaike (1974), AIC:                 2k − 2 log L
-//! Hurvich & Tsai (1989), AICc:        AIC + 2k(k+1)/(n−k−1)      (needs n > k+1)
-//! Schwarz (1978), BIC:                k ln n − 2 log L
-//! Hannan & Quinn (1979), HQIC:        2k ln ln n − 2 log L       (needs n ≥ 3)
-//! ```
-//!
-//! Criteria are only meaningful for full (exact) likelihoods of models fitted to the same
-//! data; conditional-sum-of-squares fits do not offer them.
 
-use crate::error::{Error, Result};
+use crate::base::error::{Error, Result};
 
 /// Which information criterion to rank by.
 #[non_exhaustive]
@@ -55,6 +39,22 @@ impl std::fmt::Display for Criterion {
 /// assert_eq!(ic.value(Criterion::Schwarz), Some(200.0 + 3.0 * 50f64.ln()));
 /// # Ok(()) }
 /// ```
+///
+/// # Counting rule (the one place it is written down)
+/// `k` counts **every estimated parameter**: ARMA coefficients, seasonal coefficients,
+/// the mean or drift, regression coefficients, **and the innovation variance σ²**.
+/// Fixed (not estimated) coefficients do not count. `n` is the number of observations
+/// that enter the likelihood (after differencing, excluding missing readings).
+///
+/// ```text
+/// Akaike (1974), AIC:                 2k − 2 log L
+/// Hurvich & Tsai (1989), AICc:        AIC + 2k(k+1)/(n−k−1)      (needs n > k+1)
+/// Schwarz (1978), BIC:                k ln n − 2 log L
+/// Hannan & Quinn (1979), HQIC:        2k ln ln n − 2 log L       (needs n ≥ 3)
+/// ```
+///
+/// Criteria are only meaningful for full (exact) likelihoods of models fitted to the same
+/// data; conditional-sum-of-squares fits do not offer them.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct InformationCriteria {

@@ -5,15 +5,16 @@ use std::fmt;
 
 use serde::{Deserialize, Serialize};
 
-use crate::correlogram::{BandRule, Correlogram, CorrelogramScratch};
-use crate::criteria::InformationCriteria;
-use crate::error::{Error, Result};
-use crate::estimate::{self, Coefs, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
-use crate::forecast::{FilterState, Forecast, ForecastModel, Monitor};
-use crate::lag::{self, Complex};
-use crate::linalg;
-use crate::spec::{Blueprint, Estimator, Term};
-use crate::whiteness::PortmanteauScan;
+use crate::base::error::{Error, Result};
+use crate::base::linalg;
+use crate::estimate::{self, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
+use crate::filter::forecasting::{FilterState, ForecastModel};
+use crate::model::blueprint::{Blueprint, Estimator, Term};
+use crate::model::coefficients::{Coefs, FACTORS};
+use crate::model::lag::{self, Complex};
+use crate::stats::correlogram::{BandRule, Correlogram, CorrelogramScratch};
+use crate::stats::criteria::InformationCriteria;
+use crate::stats::portmanteau::PortmanteauScan;
 
 /// Modulus of an inverse root above which a fit carries a near-unit-root warning
 /// (common practice: roots within about 2% of the unit circle).
@@ -157,7 +158,7 @@ fn factor_label(t: Term) -> &'static str {
 /// A fitted model: estimates, uncertainty, likelihood, residuals and diagnostics.
 ///
 /// Serialisable with serde; deserialising validates the content (see
-/// [`crate::persist`] for the versioned file format).
+/// [`model_to_json`](crate::model_to_json) for the versioned file format).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(try_from = "FittedRecord")]
 pub struct FittedModel {
@@ -169,9 +170,9 @@ pub struct FittedModel {
     pub(crate) log_likelihood: LogLikelihood,
     pub(crate) counts: ReadingCounts,
     pub(crate) stages: Vec<StageRecord>,
-    #[serde(with = "crate::persist::nan_as_null")]
+    #[serde(with = "crate::base::nan_as_null")]
     pub(crate) residuals: Vec<f64>,
-    #[serde(with = "crate::persist::nan_as_null")]
+    #[serde(with = "crate::base::nan_as_null")]
     pub(crate) standardized: Vec<f64>,
     pub(crate) roots: Vec<FactorRoots>,
     pub(crate) warnings: Vec<FitWarning>,
@@ -191,9 +192,9 @@ struct FittedRecord {
     log_likelihood: LogLikelihood,
     counts: ReadingCounts,
     stages: Vec<StageRecord>,
-    #[serde(with = "crate::persist::nan_as_null")]
+    #[serde(with = "crate::base::nan_as_null")]
     residuals: Vec<f64>,
-    #[serde(with = "crate::persist::nan_as_null")]
+    #[serde(with = "crate::base::nan_as_null")]
     standardized: Vec<f64>,
     roots: Vec<FactorRoots>,
     warnings: Vec<FitWarning>,
@@ -271,7 +272,7 @@ impl TryFrom<FittedRecord> for FittedModel {
             if !ok {
                 return Err(format!(
                     "the {} coefficients are not {}",
-                    factor_label(estimate::FACTORS[fi]),
+                    factor_label(FACTORS[fi]),
                     if fi % 2 == 0 {
                         "stationary"
                     } else {
@@ -295,9 +296,7 @@ impl TryFrom<FittedRecord> for FittedModel {
         if expected != model.forecaster {
             return Err("the stored forecasting state does not match the coefficients".into());
         }
-        let monitor = Monitor::new(model.forecaster.clone(), model.terminal.clone(), 0.5)
-            .map_err(|e| e.to_string())?;
-        monitor.validate()?;
+        model.terminal.validate_for(&model.forecaster)?;
         Ok(model)
     }
 }
@@ -406,7 +405,7 @@ pub(crate) fn complete_candidate(
     };
     let hess = estimate::hessian(&prep, &bp, &layout, kind, &mut workspace.inner, &coefs);
     attach_covariance(model, &layout, &prep, hess, deferred.beta_cov);
-    model.terminal = crate::forecast::terminal_state(&model.forecaster, series, &[])?;
+    model.terminal = crate::filter::forecasting::terminal_state(&model.forecaster, series, &[])?;
     Ok(())
 }
 
@@ -627,7 +626,7 @@ fn fit_prepared(
     }
     // Roots per factor.
     let mut roots = Vec::new();
-    for (fi, factor) in estimate::FACTORS.iter().enumerate() {
+    for (fi, factor) in FACTORS.iter().enumerate() {
         let c = &coefs.f[fi];
         if c.is_empty() {
             continue;
@@ -663,9 +662,9 @@ fn fit_prepared(
         .collect();
     let forecaster = ForecastModel::new(bp, &coefs, ev.innovation_variance, regression);
     let terminal = if complete {
-        crate::forecast::terminal_state(&forecaster, series, regressors)?
+        crate::filter::forecasting::terminal_state(&forecaster, series, regressors)?
     } else {
-        crate::forecast::FilterState::pending()
+        FilterState::pending()
     };
     let log_likelihood = match kind {
         ObjectiveKind::Exact => LogLikelihood::Exact(-ev.neg_log_likelihood),
@@ -860,59 +859,6 @@ impl FittedModel {
             alpha,
             white,
         })
-    }
-
-    /// Forecast `horizon` readings past the end of the fitted series with prediction
-    /// intervals at `levels` (e.g. `&[0.8, 0.95]`). Means and variances are exact given
-    /// the readings (filter-based), integrated back through the differencing, and
-    /// account for missing readings at the end of the series. Models with exogenous
-    /// regressors need [`FittedModel::forecast_with`].
-    ///
-    /// ```
-    /// use lagwise::{Blueprint, Simulator};
-    /// # fn main() -> Result<(), lagwise::Error> {
-    /// let x = Simulator::builder().autoregressive(&[0.8]).level(60.0).build()?.generate(500, 5);
-    /// let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x)?;
-    /// let fc = fit.forecast(96, &[0.8, 0.95])?;
-    /// let (s1, s96) = (&fc.steps[0], &fc.steps[95]);
-    /// assert!(s96.sd > s1.sd);                       // wider further out
-    /// assert!(s1.bounds[0].1 - s1.bounds[0].0 < s1.bounds[1].1 - s1.bounds[1].0); // 80% inside 95%
-    /// # Ok(()) }
-    /// ```
-    pub fn forecast(&self, horizon: usize, levels: &[f64]) -> Result<Forecast> {
-        crate::forecast::forecast_from(&self.forecaster, &self.terminal, horizon, levels, &[])
-    }
-
-    /// [`FittedModel::forecast`] with future values of the exogenous regressors (one
-    /// column per regressor, at least `horizon` values each).
-    pub fn forecast_with(
-        &self,
-        horizon: usize,
-        levels: &[f64],
-        future: &[&[f64]],
-    ) -> Result<Forecast> {
-        crate::forecast::forecast_from(&self.forecaster, &self.terminal, horizon, levels, future)
-    }
-
-    /// A monitor that continues from the end of the fitted series, flagging readings
-    /// outside the two-sided interval at `alarm_level` (e.g. 0.99).
-    pub fn monitor(&self, alarm_level: f64) -> Result<Monitor> {
-        Monitor::new(self.forecaster.clone(), self.terminal.clone(), alarm_level)
-    }
-
-    /// A monitor positioned after `history` (any series on the same time axis, starting
-    /// at index 0), using this model's coefficients without refitting — e.g. after a
-    /// restart with recent readings from the historian.
-    pub fn monitor_from_history(
-        &self,
-        history: &[f64],
-        regressors: &[&[f64]],
-        alarm_level: f64,
-    ) -> Result<Monitor> {
-        crate::series::screen(history, "monitor", 1, crate::series::ConstantPolicy::Allow)?;
-        estimate::check_regressors(&self.blueprint, history.len(), regressors, "monitor")?;
-        let st = crate::forecast::terminal_state(&self.forecaster, history, regressors)?;
-        Monitor::new(self.forecaster.clone(), st, alarm_level)
     }
 
     /// Fingerprint of the data the model was fitted to (used to refuse comparisons of
@@ -1164,7 +1110,7 @@ impl LikelihoodSurface {
         let mut slots = std::mem::take(&mut inner.batch_slots);
         let mut vals = std::mem::take(&mut inner.batch_values);
         if coefs.len() < count {
-            coefs.resize(count, estimate::Coefs::default());
+            coefs.resize(count, Coefs::default());
         }
         slots.clear();
         let mut m = 0;

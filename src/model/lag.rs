@@ -1,22 +1,7 @@
 //! Lag polynomials: products, ψ- and π-weights, inverse roots, admissibility checks and
 //! the partial-autocorrelation reparameterisation.
-//!
-//! # Conventions
-//! An autoregressive factor is `φ(B) = 1 − φ₁B − … − φ_pB^p` and a moving-average factor
-//! is `θ(B) = 1 + θ₁B + … + θ_qB^q`; the model is `φ(B)(x_t − μ) = θ(B)e_t`. Functions
-//! here take the coefficient lists `[φ₁…φ_p]` / `[θ₁…θ_q]` in those conventions.
-//!
-//! A factor is *admissible* (stationary for AR, invertible for MA) when every root of the
-//! polynomial lies strictly outside the unit circle; equivalently every *inverse* root has
-//! modulus below one. The check used here is the step-down (reverse Durbin–Levinson,
-//! Schur–Cohn) recursion: the coefficients map one-to-one to partial autocorrelations
-//! `κ₁…κ_p`, and the factor is admissible exactly when every `|κ_k| < 1`.
-//!
-//! The optimisers work on unconstrained reals `u_k`, mapped to `κ_k = tanh(u_k)` and then
-//! to coefficients by the Durbin–Levinson recursion (Barndorff-Nielsen & Schou 1973;
-//! Jones 1980; Monahan 1984), so every trial point is an admissible model.
 
-use crate::error::{Error, Result};
+use crate::base::error::{Error, Result};
 
 /// Expand `1 − Σ a_i B^{i·stride}` into the full coefficient vector `[1, c₁, c₂, …]`
 /// of a polynomial in `B`; `sign` is −1 for AR factors and +1 for MA factors.
@@ -33,7 +18,7 @@ pub(crate) fn expand_factor(coefs: &[f64], stride: usize, sign: f64) -> Vec<f64>
 ///
 /// ```
 /// // (1 − 0.5B)(1 − 0.8B¹²) = 1 − 0.5B − 0.8B¹² + 0.4B¹³
-/// let p = lagwise::lag::multiply(&[1.0, -0.5], &[1.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, -0.8]);
+/// let p = lagwise::multiply(&[1.0, -0.5], &[1.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, -0.8]);
 /// assert_eq!(p.len(), 14);
 /// assert!((p[13] - 0.4).abs() < 1e-15 && p[12] == -0.8 && p[1] == -0.5);
 /// ```
@@ -182,7 +167,7 @@ pub(crate) fn pull_inside(phi: &[f64], limit: f64) -> Vec<f64> {
 ///
 /// ```
 /// // AR(1), φ = 0.5: ψ_j = 0.5^j
-/// let psi = lagwise::lag::psi_weights(&[0.5], &[], 4);
+/// let psi = lagwise::psi_weights(&[0.5], &[], 4);
 /// assert_eq!(psi, vec![1.0, 0.5, 0.25, 0.125]);
 /// ```
 pub fn psi_weights(phi: &[f64], theta: &[f64], count: usize) -> Vec<f64> {
@@ -209,7 +194,7 @@ pub fn psi_weights(phi: &[f64], theta: &[f64], count: usize) -> Vec<f64> {
 ///
 /// ```
 /// // MA(1), θ = 0.5: π_j = (−0.5)^j
-/// let pi = lagwise::lag::pi_weights(&[], &[0.5], 4);
+/// let pi = lagwise::pi_weights(&[], &[0.5], 4);
 /// assert_eq!(pi, vec![1.0, -0.5, 0.25, -0.125]);
 /// ```
 pub fn pi_weights(phi: &[f64], theta: &[f64], count: usize) -> Vec<f64> {
@@ -278,9 +263,24 @@ impl Complex {
 ///
 /// ```
 /// // 1 − 0.5B has the inverse root 0.5.
-/// let r = lagwise::lag::inverse_roots(&[-0.5]).unwrap();
+/// let r = lagwise::inverse_roots(&[-0.5]).unwrap();
 /// assert!((r[0].re - 0.5).abs() < 1e-12 && r[0].im.abs() < 1e-12);
 /// ```
+///
+/// # Conventions
+/// An autoregressive factor is `φ(B) = 1 − φ₁B − … − φ_pB^p` and a moving-average factor
+/// is `θ(B) = 1 + θ₁B + … + θ_qB^q`; the model is `φ(B)(x_t − μ) = θ(B)e_t`. Functions
+/// here take the coefficient lists `[φ₁…φ_p]` / `[θ₁…θ_q]` in those conventions.
+///
+/// A factor is *admissible* (stationary for AR, invertible for MA) when every root of the
+/// polynomial lies strictly outside the unit circle; equivalently every *inverse* root has
+/// modulus below one. The check used here is the step-down (reverse Durbin–Levinson,
+/// Schur–Cohn) recursion: the coefficients map one-to-one to partial autocorrelations
+/// `κ₁…κ_p`, and the factor is admissible exactly when every `|κ_k| < 1`.
+///
+/// The optimisers work on unconstrained reals `u_k`, mapped to `κ_k = tanh(u_k)` and then
+/// to coefficients by the Durbin–Levinson recursion (Barndorff-Nielsen & Schou 1973;
+/// Jones 1980; Monahan 1984), so every trial point is an admissible model.
 pub fn inverse_roots(c: &[f64]) -> Result<Vec<Complex>> {
     // Trim trailing zeros: they are roots at zero of the reversed polynomial.
     let mut k = c.len();

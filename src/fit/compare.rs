@@ -1,15 +1,10 @@
 //! Comparing fitted models: ranking by an information criterion (nested or not) and the
 //! likelihood-ratio test for nested models.
-//!
-//! Both refuse, with [`ErrorKind::NotComparable`] and a
-//! reason, what would be meaningless: conditional (CSS) likelihoods, models fitted to
-//! different readings, or models with different differencing (their likelihoods describe
-//! different data).
 
-use crate::criteria::Criterion;
-use crate::error::{Error, ErrorKind, Result};
-use crate::fitted::{FittedModel, LogLikelihood};
-use crate::whiteness::chi_square_upper;
+use crate::base::dist::chi_square_upper;
+use crate::base::error::{Error, ErrorKind, Result};
+use crate::fit::fitted::{FittedModel, LogLikelihood};
+use crate::stats::criteria::Criterion;
 
 fn refuse(what: &'static str, message: impl Into<String>) -> Error {
     Error::new(ErrorKind::NotComparable {
@@ -83,6 +78,11 @@ pub struct RankedModel<'a> {
 /// assert_eq!(ranked[0].delta, 0.0);
 /// # Ok(()) }
 /// ```
+///
+/// Both refuse, with [`ErrorKind::NotComparable`] and a
+/// reason, what would be meaningless: conditional (CSS) likelihoods, models fitted to
+/// different readings, or models with different differencing (their likelihoods describe
+/// different data).
 pub fn rank_by_criterion<'a>(
     models: &[&'a FittedModel],
     criterion: Criterion,

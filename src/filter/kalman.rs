@@ -1,46 +1,7 @@
 //! State-space form of an ARMA model and its exact Kalman filter.
-//!
-//! # Form
-//! An ARMA(p, q) (seasonal factors already multiplied out) with `r = max(p, q + 1)` has
-//! the state `α_t` of length `r`, observation `w_t = α_t[0]`, and
-//!
-//! ```text
-//! α_{t+1} = T α_t + R e_{t+1},   T = [φ | I_{r−1} over 0],   R = (1, θ₁, …, θ_{r−1})ᵀ
-//! ```
-//!
-//! with no observation noise (Harvey 1989, §3.4). The filter works with σ² = 1; the
-//! innovation variance is concentrated out of the likelihood by the estimators.
-//!
-//! # Stationary start in O(r²)
-//! The initial covariance `P₀` solves `P = TPTᵀ + RRᵀ`. Its first row is built from the
-//! theoretical autocovariances `γ(h)` and ψ-weights (`P₀[0][j] = Σ_{k>j} φ_k γ(k−j) +
-//! Σ_{k≥j} θ_k ψ_{k−j}`), and the rest follows from the same equation read diagonally:
-//! `P[i+1][j+1] = P[i][j] − R_iR_j − φ_{i+1}φ_{j+1}P[0][0] − φ_{i+1}P[0][j+1] −
-//! φ_{j+1}P[0][i+1]` (0-based `i, j`, 1-based `φ`). The autocovariances come from the partial autocorrelations of the
-//! AR factor (step-down, then Durbin–Levinson forward), filtered by the MA factor's own
-//! autocovariances — never from an r²×r² solve (Gardner, Harvey & Phillips 1980 use such
-//! a solve; r reaches ~100 for seasonal models).
-//!
-//! # Three phases per pass
-//! 1. **Full**: from the stationary start the covariance moves by a rank-one step per
-//!    reading, so the Chandrasekhar recursions (Morf, Sidhu & Kailath 1974) carry the
-//!    gain in O(r) per step. After a missing reading (NaN: no measurement update) the
-//!    covariance recursion takes over, exploiting the companion structure, O(r²) per step.
-//! 2. **Steady**: once the gain has converged to `R` (for an invertible MA part: the
-//!    Chandrasekhar step `|w|²/F` below 1e-16, or the trace of the updated covariance
-//!    `P⁺_t` below 1e-14 in the covariance recursion) the state is updated in O(r) for
-//!    `r` steps.
-//! 3. **Direct**: the filter is then exactly the innovations recursion
-//!    `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` over the non-zero coefficients only
-//!    (4 terms for an AR(1)×seasonal MA(1) at r = 97). A missing reading rebuilds the
-//!    state from the last r readings and innovations and returns to phase 1.
-//!
-//! Several columns (the series and regression columns) share one pass: the covariance
-//! and gain are computed once, the state means once per column, which is how regression
-//! coefficients are profiled out by GLS inside the likelihood.
 
-use crate::error::{Error, Result};
-use crate::lag;
+use crate::base::error::{Error, Result};
+use crate::model::lag;
 
 /// Largest state dimension with the fixed-size full-covariance step.
 const SMALL_STATE: usize = 4;
@@ -96,8 +57,8 @@ pub(crate) struct KalmanWorkspace {
     pub(crate) full_steps: usize,
     /// The phase the last complete pass ended in.
     ended_in: Phase,
-    /// Tests only: force a route through the full-covariance phase.
-    #[cfg(test)]
+    /// Which recursions run the full-covariance phase (the usual route except in the
+    /// equivalence tests, which compare the routes).
     route: Route,
 }
 
@@ -128,8 +89,9 @@ struct GapFactors {
 /// rather than the covariance recursion (at small sizes the O(r²) recursion is as cheap).
 const GAPPY_MIN_STATE: usize = 8;
 
-/// Which code runs the full-covariance phase (tests compare them).
-#[cfg(test)]
+/// Which code runs the full-covariance phase. Every route gives the same likelihood to
+/// rounding; the equivalence tests compare them.
+#[cfg_attr(not(test), allow(dead_code))]
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
 enum Route {
     /// Chandrasekhar recursions, fixed-size for small states.
@@ -151,7 +113,7 @@ pub(crate) struct PassTotals {
 }
 
 impl KalmanWorkspace {
-    /// Set the model (expanded φ and θ, conventions of [`crate::lag`]) and compute the
+    /// Set the model (expanded φ and θ, conventions of [`inverse_roots`](crate::inverse_roots)) and compute the
     /// stationary initial covariance. Errors if the AR part is not stationary.
     pub(crate) fn set_model(&mut self, phi: &[f64], theta: &[f64]) -> Result<()> {
         let p = phi.len();
@@ -428,10 +390,7 @@ impl KalmanWorkspace {
             let missing = data[t].is_nan();
             match phase {
                 Phase::Full => {
-                    #[cfg(test)]
                     let riccati = self.route == Route::Riccati;
-                    #[cfg(not(test))]
-                    let riccati = false;
                     if t == 0 && !missing && !riccati {
                         // From the stationary start the covariance moves by a rank-one
                         // step each reading: O(r) Chandrasekhar recursions until the
@@ -541,9 +500,9 @@ impl KalmanWorkspace {
                     while end < n && !data[end].is_nan() {
                         end += 1;
                     }
-                    if crate::lanes::fits(self.p_len, self.q_len, ncols) {
+                    if crate::filter::lanes::fits(self.p_len, self.q_len, ncols) {
                         let mut lane = [self.lane_at(n, usize::MAX, ncols, start)];
-                        crate::lanes::run(
+                        crate::filter::lanes::run(
                             data,
                             n,
                             ncols,
@@ -663,11 +622,7 @@ impl KalmanWorkspace {
 
     /// Whether gaps go through [`Self::gappy`] (large states, not forced off by a test).
     fn gappy_allowed(&self) -> bool {
-        #[cfg(test)]
-        let forced_off = self.route == Route::Riccati;
-        #[cfg(not(test))]
-        let forced_off = false;
-        self.r > GAPPY_MIN_STATE && !forced_off
+        self.r > GAPPY_MIN_STATE && self.route != Route::Riccati
     }
 
     /// A gap met in the steady state at time `t` (the state means are current): the
@@ -919,10 +874,7 @@ impl KalmanWorkspace {
         // F₁ = P₀[0][0], G₁ = T P₀ e₁, w₁ = G₁, predicted states zero.
         let f0 = self.gain_from_covariance();
         self.ch_w.copy_from_slice(&self.ch_g);
-        #[cfg(test)]
         let fixed = self.route == Route::Usual;
-        #[cfg(not(test))]
-        let fixed = true;
         let fvar = if keep_fvar {
             Some(&mut self.fvar[..n])
         } else {
@@ -993,8 +945,8 @@ impl KalmanWorkspace {
         mask: usize,
         ncols: usize,
         t: usize,
-    ) -> crate::lanes::Lane {
-        let mut lane = crate::lanes::Lane::default();
+    ) -> crate::filter::lanes::Lane {
+        let mut lane = crate::filter::lanes::Lane::default();
         lane.phi[..self.p_len].copy_from_slice(&self.phi[..self.p_len]);
         lane.theta[..self.q_len].copy_from_slice(&self.rvec[1..=self.q_len]);
         for c in 0..ncols {
@@ -1245,7 +1197,7 @@ fn dense_kernel<const P: usize, const Q: usize>(
 }
 
 /// Add a lane's sums to the upper triangle of `cross` (`ncols ≤ 2`).
-pub(crate) fn add_lane_sums(lane: &crate::lanes::Lane, ncols: usize, cross: &mut [f64]) {
+pub(crate) fn add_lane_sums(lane: &crate::filter::lanes::Lane, ncols: usize, cross: &mut [f64]) {
     cross[0] += lane.acc[0];
     if ncols == 2 {
         cross[1] += lane.acc[1];
@@ -1385,9 +1337,9 @@ pub(crate) fn open_side_by_side(
     cross: &mut [f64],
     out: &mut [(usize, bool, PassTotals)],
 ) {
-    let mut idx_all = [0usize; crate::lanes::MAX_LANES];
+    let mut idx_all = [0usize; crate::filter::lanes::MAX_LANES];
     let mut count = 0;
-    for l in (0..filters.len().min(crate::lanes::MAX_LANES)).filter(|&l| active[l]) {
+    for l in (0..filters.len().min(crate::filter::lanes::MAX_LANES)).filter(|&l| active[l]) {
         idx_all[count] = l;
         count += 1;
     }
@@ -1557,7 +1509,7 @@ fn resize(v: &mut Vec<f64>, len: usize) {
 /// innovation variance, by the Kalman filter.
 ///
 /// `phi` and `theta` are the expanded coefficient lists in the conventions of
-/// [`crate::lag`] (`1 − Σφ_iB^i`, `1 + Σθ_jB^j`); multiply seasonal factors out first with
+/// [`inverse_roots`](crate::inverse_roots) (`1 − Σφ_iB^i`, `1 + Σθ_jB^j`); multiply seasonal factors out first with
 /// [`lag::expand_autoregressive`] / [`lag::expand_moving_average`]. Errors if the AR part is
 /// not stationary, the MA part is not invertible, σ² is not positive, the series is empty,
 /// all missing, or holds ±inf.
@@ -1565,11 +1517,50 @@ fn resize(v: &mut Vec<f64>, len: usize) {
 /// ```
 /// # fn main() -> Result<(), lagwise::Error> {
 /// // AR(1), φ = 0.5, σ² = 1, one reading x: log L = −½(ln 2π + ln γ₀ + x²/γ₀), γ₀ = 4/3.
-/// let ll = lagwise::kalman::exact_log_likelihood(&[0.5], &[], 1.0, &[1.0])?;
+/// let ll = lagwise::exact_log_likelihood(&[0.5], &[], 1.0, &[1.0])?;
 /// let g0: f64 = 4.0 / 3.0;
 /// assert!((ll + 0.5 * ((2.0 * std::f64::consts::PI).ln() + g0.ln() + 1.0 / g0)).abs() < 1e-14);
 /// # Ok(()) }
 /// ```
+///
+/// # Form
+/// An ARMA(p, q) (seasonal factors already multiplied out) with `r = max(p, q + 1)` has
+/// the state `α_t` of length `r`, observation `w_t = α_t[0]`, and
+///
+/// ```text
+/// α_{t+1} = T α_t + R e_{t+1},   T = [φ | I_{r−1} over 0],   R = (1, θ₁, …, θ_{r−1})ᵀ
+/// ```
+///
+/// with no observation noise (Harvey 1989, §3.4). The filter works with σ² = 1; the
+/// innovation variance is concentrated out of the likelihood by the estimators.
+///
+/// # Stationary start in O(r²)
+/// The initial covariance `P₀` solves `P = TPTᵀ + RRᵀ`. Its first row is built from the
+/// theoretical autocovariances `γ(h)` and ψ-weights (`P₀[0][j] = Σ_{k>j} φ_k γ(k−j) +
+/// Σ_{k≥j} θ_k ψ_{k−j}`), and the rest follows from the same equation read diagonally:
+/// `P[i+1][j+1] = P[i][j] − R_iR_j − φ_{i+1}φ_{j+1}P[0][0] − φ_{i+1}P[0][j+1] −
+/// φ_{j+1}P[0][i+1]` (0-based `i, j`, 1-based `φ`). The autocovariances come from the partial autocorrelations of the
+/// AR factor (step-down, then Durbin–Levinson forward), filtered by the MA factor's own
+/// autocovariances — never from an r²×r² solve (Gardner, Harvey & Phillips 1980 use such
+/// a solve; r reaches ~100 for seasonal models).
+///
+/// # Three phases per pass
+/// 1. **Full**: from the stationary start the covariance moves by a rank-one step per
+///    reading, so the Chandrasekhar recursions (Morf, Sidhu & Kailath 1974) carry the
+///    gain in O(r) per step. After a missing reading (NaN: no measurement update) the
+///    covariance recursion takes over, exploiting the companion structure, O(r²) per step.
+/// 2. **Steady**: once the gain has converged to `R` (for an invertible MA part: the
+///    Chandrasekhar step `|w|²/F` below 1e-16, or the trace of the updated covariance
+///    `P⁺_t` below 1e-14 in the covariance recursion) the state is updated in O(r) for
+///    `r` steps.
+/// 3. **Direct**: the filter is then exactly the innovations recursion
+///    `v_t = w_t − Σφ_i w_{t−i} − Σθ_j v_{t−j}` over the non-zero coefficients only
+///    (4 terms for an AR(1)×seasonal MA(1) at r = 97). A missing reading rebuilds the
+///    state from the last r readings and innovations and returns to phase 1.
+///
+/// Several columns (the series and regression columns) share one pass: the covariance
+/// and gain are computed once, the state means once per column, which is how regression
+/// coefficients are profiled out by GLS inside the likelihood.
 pub fn exact_log_likelihood(
     phi: &[f64],
     theta: &[f64],
@@ -1577,7 +1568,7 @@ pub fn exact_log_likelihood(
     series: &[f64],
 ) -> Result<f64> {
     const WHAT: &str = "exact log-likelihood";
-    crate::series::screen(series, WHAT, 1, crate::series::ConstantPolicy::Allow)?;
+    crate::base::screen::screen(series, WHAT, 1, crate::base::screen::ConstantPolicy::Allow)?;
     if !(innovation_variance > 0.0 && innovation_variance.is_finite()) {
         return Err(Error::invalid(
             WHAT,

@@ -3,7 +3,7 @@
 //! A series is a slice of `f64`. NaN means a missing reading and is handled by each
 //! routine; ±inf is refused. Screening never copies or mutates the caller's data.
 
-use crate::error::{Error, ErrorKind, Result};
+use crate::base::error::{Error, ErrorKind, Result};
 
 /// Facts about a screened series, computed in two passes without overflow.
 #[derive(Debug, Clone, Copy)]

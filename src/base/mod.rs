@@ -1,0 +1,8 @@
+//! Layer 1, the base: errors, screening of input series, small dense linear algebra and
+//! the probability helpers every layer above uses.
+
+pub(crate) mod dist;
+pub(crate) mod error;
+pub(crate) mod linalg;
+pub(crate) mod nan_as_null;
+pub(crate) mod screen;

@@ -1,0 +1,7 @@
+//! Layer 4, filters: the exact Kalman filter of the ARMA state-space form (stationary
+//! start, Chandrasekhar and gap steps, steady state), side-by-side innovations recursions
+//! (lanes), and the forecasting filter on the original scale.
+
+pub(crate) mod forecasting;
+pub(crate) mod kalman;
+pub(crate) mod lanes;
