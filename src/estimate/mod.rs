@@ -13,7 +13,7 @@ use crate::base::error::{Error, ErrorKind, Result};
 use crate::base::linalg;
 use crate::filter::kalman::{KalmanWorkspace, PassTotals, direct_recursion};
 use crate::model::blueprint::{Blueprint, Term};
-use crate::model::coefficients::{Coefs, FACTORS, expand_into};
+use crate::model::coefficients::{Factor, FactorCoefficients};
 use crate::model::lag;
 
 /// The differenced data of one fit, with its regression columns.
@@ -228,11 +228,11 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
 
 #[derive(Debug, Clone)]
 struct FactorLayout {
+    factor: Factor,
     len: usize,
     transformed: bool,
     held: Vec<Option<f64>>,
     offset: usize,
-    is_ma: bool,
 }
 
 /// Where the optimiser's free parameters go.
@@ -247,19 +247,16 @@ impl Layout {
         let lens = [bp.p, bp.q, bp.seasonal_p, bp.seasonal_q];
         let mut offset = 0;
         let mut factors = Vec::with_capacity(4);
-        for (k, &factor) in FACTORS.iter().enumerate() {
-            let len = lens[k];
-            let held: Vec<Option<f64>> = (1..=len)
-                .map(|i| bp.held_value(crate::model::blueprint::same_kind(factor, i)))
-                .collect();
+        for (factor, len) in Factor::ALL.into_iter().zip(lens) {
+            let held: Vec<Option<f64>> = (1..=len).map(|i| bp.held_value(factor.term(i))).collect();
             let nheld = held.iter().filter(|h| h.is_some()).count();
             let transformed = nheld == 0;
             factors.push(FactorLayout {
+                factor,
                 len,
                 transformed,
                 held,
                 offset,
-                is_ma: k % 2 == 1,
             });
             offset += len - nheld;
         }
@@ -273,13 +270,13 @@ impl Layout {
     fn natural(
         &self,
         x: &[f64],
-        out: &mut Coefs,
+        out: &mut FactorCoefficients,
         kappa: &mut Vec<f64>,
         tmp: &mut Vec<f64>,
     ) -> bool {
         let mut ok = true;
-        for (k, fl) in self.factors.iter().enumerate() {
-            let c = &mut out.f[k];
+        for fl in &self.factors {
+            let c = out.of_mut(fl.factor);
             c.clear();
             c.resize(fl.len, 0.0);
             if fl.len == 0 {
@@ -294,7 +291,7 @@ impl Layout {
                     kappa,
                     tmp,
                 );
-                if fl.is_ma {
+                if fl.factor.is_moving_average() {
                     c.iter_mut().for_each(|v| *v = -*v);
                 }
             } else {
@@ -308,8 +305,7 @@ impl Layout {
                         }
                     };
                 }
-                let sign = if fl.is_ma { -1.0 } else { 1.0 };
-                ok &= admissible_with(c, sign, kappa, tmp);
+                ok &= admissible_with(c, fl.factor.step_down_sign(), kappa, tmp);
             }
         }
         ok
@@ -317,11 +313,16 @@ impl Layout {
 
     /// Fill natural coefficients from raw free values (held entries from the blueprint).
     /// `false` if inadmissible. Allocation-free once `out` has grown.
-    pub(crate) fn natural_raw(&self, z: &[f64], out: &mut Coefs, ws: &mut EvalWorkspace) -> bool {
+    pub(crate) fn natural_raw(
+        &self,
+        z: &[f64],
+        out: &mut FactorCoefficients,
+        ws: &mut EvalWorkspace,
+    ) -> bool {
         let mut j = 0;
         let mut ok = true;
-        for (k, fl) in self.factors.iter().enumerate() {
-            let c = &mut out.f[k];
+        for fl in &self.factors {
+            let c = out.of_mut(fl.factor);
             c.clear();
             for i in 0..fl.len {
                 c.push(match fl.held[i] {
@@ -332,31 +333,28 @@ impl Layout {
                     }
                 });
             }
-            let sign = if fl.is_ma { -1.0 } else { 1.0 };
-            ok &= admissible_with(c, sign, &mut ws.kappa, &mut ws.tmp);
+            ok &= admissible_with(c, fl.factor.step_down_sign(), &mut ws.kappa, &mut ws.tmp);
         }
         ok
     }
 
     /// Optimiser coordinates from natural coefficients (which must be admissible).
-    fn coordinates(&self, c: &Coefs) -> Option<Vec<f64>> {
+    fn coordinates(&self, c: &FactorCoefficients) -> Option<Vec<f64>> {
         let mut x = vec![0.0; self.free_len];
-        for (k, fl) in self.factors.iter().enumerate() {
+        for fl in &self.factors {
             if fl.len == 0 {
                 continue;
             }
             if fl.transformed {
-                let ar: Vec<f64> = c.f[k]
-                    .iter()
-                    .map(|v| if fl.is_ma { -v } else { *v })
-                    .collect();
+                let sign = fl.factor.step_down_sign();
+                let ar: Vec<f64> = c.of(fl.factor).iter().map(|v| sign * v).collect();
                 let u = lag::unconstrained_from_admissible(&ar)?;
                 x[fl.offset..fl.offset + fl.len].copy_from_slice(&u);
             } else {
                 let mut j = 0;
                 for i in 0..fl.len {
                     if fl.held[i].is_none() {
-                        x[fl.offset + j] = c.f[k][i];
+                        x[fl.offset + j] = c.of(fl.factor)[i];
                         j += 1;
                     }
                 }
@@ -366,12 +364,12 @@ impl Layout {
     }
 
     /// Natural free coefficients (for the Hessian), in factor order.
-    fn natural_free(&self, c: &Coefs) -> Vec<f64> {
+    fn natural_free(&self, c: &FactorCoefficients) -> Vec<f64> {
         let mut z = Vec::with_capacity(self.free_len);
-        for (k, fl) in self.factors.iter().enumerate() {
+        for fl in &self.factors {
             for i in 0..fl.len {
                 if fl.held[i].is_none() {
-                    z.push(c.f[k][i]);
+                    z.push(c.of(fl.factor)[i]);
                 }
             }
         }
@@ -379,13 +377,13 @@ impl Layout {
     }
 
     /// Natural coefficients with free entries replaced by `z` (inverse of natural_free).
-    fn with_natural_free(&self, base: &Coefs, z: &[f64]) -> Coefs {
+    fn with_natural_free(&self, base: &FactorCoefficients, z: &[f64]) -> FactorCoefficients {
         let mut out = base.clone();
         let mut j = 0;
-        for (k, fl) in self.factors.iter().enumerate() {
+        for fl in &self.factors {
             for i in 0..fl.len {
                 if fl.held[i].is_none() {
-                    out.f[k][i] = z[j];
+                    out.of_mut(fl.factor)[i] = z[j];
                     j += 1;
                 }
             }
@@ -396,10 +394,10 @@ impl Layout {
     /// Terms of the free coefficients, in the order of `natural_free`.
     pub(crate) fn free_terms(&self) -> Vec<Term> {
         let mut out = Vec::new();
-        for (k, fl) in self.factors.iter().enumerate() {
+        for fl in &self.factors {
             for i in 0..fl.len {
                 if fl.held[i].is_none() {
-                    out.push(crate::model::blueprint::same_kind(FACTORS[k], i + 1));
+                    out.push(fl.factor.term(i + 1));
                 }
             }
         }
@@ -407,29 +405,13 @@ impl Layout {
     }
 }
 
-/// Allocation-free admissibility check of `1 − Σ(sign·c_i)B^i` via the step-down recursion.
+/// Allocation-free admissibility check of `1 − Σ(sign·c_i)B^i` by the step-down
+/// recursion ([`lag::step_down_in_place`]).
 fn admissible_with(c: &[f64], sign: f64, a: &mut Vec<f64>, b: &mut Vec<f64>) -> bool {
-    let p = c.len();
-    a.resize(p, 0.0);
-    b.resize(p, 0.0);
-    for i in 0..p {
-        a[i] = sign * c[i];
-        if !a[i].is_finite() {
-            return false;
-        }
-    }
-    for k in (1..=p).rev() {
-        let kk = a[k - 1];
-        if !(kk.abs() < 1.0) {
-            return false;
-        }
-        let denom = 1.0 - kk * kk;
-        for j in 1..k {
-            b[j - 1] = (a[j - 1] + kk * a[k - j - 1]) / denom;
-        }
-        a[..k - 1].copy_from_slice(&b[..k - 1]);
-    }
-    true
+    a.clear();
+    a.extend(c.iter().map(|v| sign * v));
+    b.resize(c.len(), 0.0);
+    lag::step_down_in_place(a, b)
 }
 
 /// Which objective.
@@ -443,7 +425,7 @@ pub(crate) enum ObjectiveKind {
 #[derive(Debug, Default, Clone)]
 pub(crate) struct EvalWorkspace {
     pub kalman: KalmanWorkspace,
-    coefs: Coefs,
+    coefs: FactorCoefficients,
     phi: Vec<f64>,
     theta: Vec<f64>,
     ar_nz: Vec<(usize, f64)>,
@@ -455,13 +437,13 @@ pub(crate) struct EvalWorkspace {
     tmp: Vec<f64>,
     fill: Vec<f64>,
     pub css_innov: Vec<f64>,
-    pub scratch_coefs: Coefs,
+    pub scratch_coefs: FactorCoefficients,
     pub scratch_eval: Evaluation,
     /// Batch evaluation: one filter per lane (run up to its direct phase), per-lane
     /// cross-products, and points/values scratch.
     lane_filters: Vec<KalmanWorkspace>,
     lane_cross: Vec<f64>,
-    pub batch_coefs: Vec<Coefs>,
+    pub batch_coefs: Vec<FactorCoefficients>,
     pub batch_values: Vec<Option<(f64, usize)>>,
     pub batch_slots: Vec<Option<usize>>,
 }
@@ -487,11 +469,10 @@ pub(crate) struct Evaluation {
 }
 
 impl EvalWorkspace {
-    fn expand(&mut self, c: &Coefs, period: usize) {
-        expand_into(&c.f[0], &c.f[2], period, false, &mut self.phi);
-        expand_into(&c.f[1], &c.f[3], period, true, &mut self.theta);
-        crate::filter::kalman::nonzero_lags(&self.phi, &mut self.ar_nz);
-        crate::filter::kalman::nonzero_lags(&self.theta, &mut self.ma_nz);
+    fn expand(&mut self, c: &FactorCoefficients, period: usize) {
+        c.expand_into(period, &mut self.phi, &mut self.theta);
+        lag::nonzero_lags(&self.phi, &mut self.ar_nz);
+        lag::nonzero_lags(&self.theta, &mut self.ma_nz);
     }
 
     /// Evaluate the objective at natural coefficients `c`. With `beta` given, the
@@ -500,7 +481,7 @@ impl EvalWorkspace {
         &mut self,
         prep: &Prepared,
         bp: &Blueprint,
-        c: &Coefs,
+        c: &FactorCoefficients,
         kind: ObjectiveKind,
         beta: Option<&[f64]>,
         out: &mut Evaluation,
@@ -528,7 +509,7 @@ impl EvalWorkspace {
         &mut self,
         prep: &Prepared,
         bp: &Blueprint,
-        points: &[Coefs],
+        points: &[FactorCoefficients],
         kind: ObjectiveKind,
         values: &mut Vec<Option<(f64, usize)>>,
     ) {
@@ -560,7 +541,7 @@ impl EvalWorkspace {
         &mut self,
         prep: &Prepared,
         bp: &Blueprint,
-        chunk: &[Coefs],
+        chunk: &[FactorCoefficients],
         kind: ObjectiveKind,
         values: &mut Vec<Option<(f64, usize)>>,
     ) {
@@ -998,7 +979,7 @@ impl Objective<'_> {
         let mut coefs = std::mem::take(&mut ws.batch_coefs);
         let mut vals = std::mem::take(&mut ws.batch_values);
         if coefs.len() < points.len() {
-            coefs.resize(points.len(), Coefs::default());
+            coefs.resize(points.len(), FactorCoefficients::default());
         }
         // Admissible points go to the batch; `place[i]` is point i's batch slot.
         let mut place = vec![None; points.len()];
@@ -1314,7 +1295,7 @@ pub(crate) fn minimise(
 
 /// Hannan–Rissanen starting values (long AR, then least squares on lagged readings and
 /// lagged long-AR residuals), pulled inside the admissible region.
-pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
+pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoefficients {
     let n = prep.n;
     let k = prep.ncols;
     // Remove the regression part by least squares on present readings.
@@ -1341,18 +1322,15 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
         }
     }
     let (p, q, sp, sq, s) = (bp.p, bp.q, bp.seasonal_p, bp.seasonal_q, bp.period);
-    let mut out = Coefs::default();
-    out.f[0] = vec![0.0; p];
-    out.f[1] = vec![0.0; q];
-    out.f[2] = vec![0.0; sp];
-    out.f[3] = vec![0.0; sq];
-    let ar_lags: Vec<(usize, usize, usize)> = (1..=p)
-        .map(|i| (0, i - 1, i))
-        .chain((1..=sp).map(|i| (2, i - 1, i * s)))
+    let mut out = FactorCoefficients::zeros(p, q, sp, sq);
+    // (factor, position from 0, lag) of every coefficient.
+    let ar_lags: Vec<(Factor, usize, usize)> = (1..=p)
+        .map(|i| (Factor::Ar, i - 1, i))
+        .chain((1..=sp).map(|i| (Factor::SeasonalAr, i - 1, i * s)))
         .collect();
-    let ma_lags: Vec<(usize, usize, usize)> = (1..=q)
-        .map(|i| (1, i - 1, i))
-        .chain((1..=sq).map(|i| (3, i - 1, i * s)))
+    let ma_lags: Vec<(Factor, usize, usize)> = (1..=q)
+        .map(|i| (Factor::Ma, i - 1, i))
+        .chain((1..=sq).map(|i| (Factor::SeasonalMa, i - 1, i * s)))
         .collect();
     if ar_lags.is_empty() && ma_lags.is_empty() {
         return out;
@@ -1402,10 +1380,10 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     // Held coefficients: subtract their contributions and leave their columns out.
     let mut y: Vec<f64> = w[start..].to_vec();
     let mut cols: Vec<Vec<f64>> = Vec::new();
-    let mut slots: Vec<(usize, usize)> = Vec::new();
+    let mut slots: Vec<(Factor, usize)> = Vec::new();
     for &(f, i, lagv) in &ar_lags {
         let col: Vec<f64> = (start..n).map(|t| w[t - lagv]).collect();
-        match bp.held_value(crate::model::blueprint::same_kind(FACTORS[f], i + 1)) {
+        match bp.held_value(f.term(i + 1)) {
             Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
             None => {
                 cols.push(col);
@@ -1415,7 +1393,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     }
     for &(f, i, lagv) in &ma_lags {
         let col: Vec<f64> = (start..n).map(|t| ehat[t - lagv]).collect();
-        match bp.held_value(crate::model::blueprint::same_kind(FACTORS[f], i + 1)) {
+        match bp.held_value(f.term(i + 1)) {
             Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
             None => {
                 cols.push(col);
@@ -1426,23 +1404,24 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> Coefs {
     if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
         for (b, &(f, i)) in beta.iter().zip(&slots) {
             if b.is_finite() {
-                out.f[f][i] = *b;
+                out.of_mut(f)[i] = *b;
             }
         }
     }
-    for (f, coefs) in out.f.iter_mut().enumerate() {
+    for f in Factor::ALL {
+        let coefs = out.of_mut(f);
         let held_all: Vec<Option<f64>> = (1..=coefs.len())
-            .map(|i| bp.held_value(crate::model::blueprint::same_kind(FACTORS[f], i)))
+            .map(|i| bp.held_value(f.term(i)))
             .collect();
         for (c, h) in coefs.iter_mut().zip(&held_all) {
             if let Some(v) = h {
                 *c = *v;
             }
         }
-        let is_ma = f % 2 == 1;
-        let as_ar: Vec<f64> = coefs.iter().map(|v| if is_ma { -v } else { *v }).collect();
+        let sign = f.step_down_sign();
+        let as_ar: Vec<f64> = coefs.iter().map(|v| sign * v).collect();
         let inside = lag::pull_inside(&as_ar, 0.95);
-        let pulled: Vec<f64> = inside.iter().map(|v| if is_ma { -v } else { *v }).collect();
+        let pulled: Vec<f64> = inside.iter().map(|v| sign * v).collect();
         // Keep held values exactly; if pulling changed them, fall back to the held set.
         if held_all.iter().all(|h| h.is_none()) {
             *coefs = pulled;
@@ -1460,7 +1439,7 @@ pub(crate) fn hessian(
     layout: &Layout,
     kind: ObjectiveKind,
     ws: &mut EvalWorkspace,
-    c: &Coefs,
+    c: &FactorCoefficients,
 ) -> Option<Vec<f64>> {
     let z = layout.natural_free(c);
     let k = z.len();
@@ -1469,11 +1448,10 @@ pub(crate) fn hessian(
     }
     let mut a = Vec::new();
     let mut b = Vec::new();
-    let mut admissible = |zz: &[f64]| -> Option<Coefs> {
+    let mut admissible = |zz: &[f64]| -> Option<FactorCoefficients> {
         let cc = layout.with_natural_free(c, zz);
-        for (fi, coefs) in cc.f.iter().enumerate() {
-            let sign = if fi % 2 == 1 { -1.0 } else { 1.0 };
-            if !admissible_with(coefs, sign, &mut a, &mut b) {
+        for f in Factor::ALL {
+            if !admissible_with(cc.of(f), f.step_down_sign(), &mut a, &mut b) {
                 return None;
             }
         }
@@ -1514,13 +1492,17 @@ pub(crate) fn hessian(
 }
 
 /// Coordinates for the optimiser from natural coefficients (None if inadmissible).
-pub(crate) fn coordinates(layout: &Layout, c: &Coefs) -> Option<Vec<f64>> {
+pub(crate) fn coordinates(layout: &Layout, c: &FactorCoefficients) -> Option<Vec<f64>> {
     layout.coordinates(c)
 }
 
 /// Natural coefficients from optimiser coordinates.
-pub(crate) fn natural(layout: &Layout, x: &[f64], ws: &mut EvalWorkspace) -> Option<Coefs> {
-    let mut c = Coefs::default();
+pub(crate) fn natural(
+    layout: &Layout,
+    x: &[f64],
+    ws: &mut EvalWorkspace,
+) -> Option<FactorCoefficients> {
+    let mut c = FactorCoefficients::default();
     let ok = layout.natural(x, &mut c, &mut ws.kappa, &mut ws.tmp);
     ok.then_some(c)
 }
@@ -1546,14 +1528,11 @@ mod batch_tests {
     use super::*;
     use crate::model::simulate::Simulator;
 
-    fn coefs(p: usize, q: usize, phi: f64, theta: f64) -> Coefs {
-        Coefs {
-            f: [
-                (0..p).map(|j| phi / (j + 1) as f64).collect(),
-                (0..q).map(|j| theta / (j + 1) as f64).collect(),
-                Vec::new(),
-                Vec::new(),
-            ],
+    fn coefs(p: usize, q: usize, phi: f64, theta: f64) -> FactorCoefficients {
+        FactorCoefficients {
+            ar: (0..p).map(|j| phi / (j + 1) as f64).collect(),
+            ma: (0..q).map(|j| theta / (j + 1) as f64).collect(),
+            ..Default::default()
         }
     }
 
@@ -1579,7 +1558,7 @@ mod batch_tests {
                     .build()
                     .unwrap();
                 let prep = prepare(&bp, &x, &[]).unwrap();
-                let mut points: Vec<Coefs> = (0..11)
+                let mut points: Vec<FactorCoefficients> = (0..11)
                     .map(|i| coefs(p, q, 0.5 - 0.04 * i as f64, 0.3 + 0.05 * i as f64))
                     .collect();
                 points.push(coefs(p, q, 0.2, -0.9995));

@@ -6,7 +6,7 @@ use serde::{Deserialize, Serialize};
 use crate::base::error::{Error, Result};
 use crate::filter::kalman::STEADY_TOLERANCE;
 use crate::model::blueprint::{Blueprint, Term};
-use crate::model::coefficients::{Coefs, expanded};
+use crate::model::coefficients::FactorCoefficients;
 
 /// Everything the forecasting filter needs about the model (serialisable).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -24,11 +24,11 @@ pub(crate) struct ForecastModel {
 impl ForecastModel {
     pub(crate) fn new(
         bp: &Blueprint,
-        coefs: &Coefs,
+        coefs: &FactorCoefficients,
         sigma2: f64,
         regression: Vec<(Term, f64)>,
     ) -> Self {
-        let (phi_e, theta_e) = expanded(coefs, bp.period);
+        let (phi_e, theta_e) = coefs.expanded(bp.period);
         let r = phi_e.len().max(theta_e.len() + 1);
         let mut phi = vec![0.0; r];
         phi[..phi_e.len()].copy_from_slice(&phi_e);

@@ -127,8 +127,8 @@ impl KalmanWorkspace {
         self.phi[..p].copy_from_slice(phi);
         self.rvec[0] = 1.0;
         self.rvec[1..=q].copy_from_slice(theta);
-        nonzero_lags(phi, &mut self.ar_nz);
-        nonzero_lags(theta, &mut self.ma_nz);
+        lag::nonzero_lags(phi, &mut self.ar_nz);
+        lag::nonzero_lags(theta, &mut self.ma_nz);
         resize(&mut self.p, r * r);
         resize(&mut self.pn, (r + 1) * (r + 1));
         resize(&mut self.kcol, r);
@@ -150,42 +150,21 @@ impl KalmanWorkspace {
         if p == 0 {
             self.gamma_u[0] = 1.0;
         } else {
-            // Step-down into κ (allocation-free variant of lag::step_down).
+            // Step-down into κ, then the forward recursion to ρ(0..=p).
             self.dl_a[..p].copy_from_slice(&self.phi[..p]);
-            for k in (1..=p).rev() {
-                let kk = self.dl_a[k - 1];
-                if !(kk.abs() < 1.0) {
-                    return Err(Error::numerical(
-                        "exact likelihood",
-                        "the AR part is not stationary",
-                    ));
-                }
-                self.kappa[k - 1] = kk;
-                let denom = 1.0 - kk * kk;
-                for j in 1..k {
-                    self.dl_b[j - 1] = (self.dl_a[j - 1] + kk * self.dl_a[k - j - 1]) / denom;
-                }
-                let (a, b) = (&mut self.dl_a, &self.dl_b);
-                a[..k - 1].copy_from_slice(&b[..k - 1]);
+            if !lag::step_down_in_place(&mut self.dl_a[..p], &mut self.dl_b[..p]) {
+                return Err(Error::numerical(
+                    "exact likelihood",
+                    "the AR part is not stationary",
+                ));
             }
-            // Forward Durbin–Levinson: autocorrelations ρ(1..p) from κ.
-            let mut v = 1.0;
-            self.gamma_u[0] = 1.0;
-            for k in 1..=p {
-                let kk = self.kappa[k - 1];
-                let mut rho = kk * v;
-                for j in 1..k {
-                    rho += self.dl_a[j - 1] * self.gamma_u[k - j];
-                }
-                self.gamma_u[k] = rho;
-                for j in 1..k {
-                    self.dl_b[j - 1] = self.dl_a[j - 1] - kk * self.dl_a[k - j - 1];
-                }
-                self.dl_b[k - 1] = kk;
-                let (a, b) = (&mut self.dl_a, &self.dl_b);
-                a[..k].copy_from_slice(&b[..k]);
-                v *= 1.0 - kk * kk;
-            }
+            self.kappa[..p].copy_from_slice(&self.dl_a[..p]);
+            let v = lag::autocorrelations_from_partials(
+                &self.kappa[..p],
+                &mut self.gamma_u[..=p],
+                &mut self.dl_a,
+                &mut self.dl_b,
+            );
             // γ(0) = 1/Π(1−κ²) = 1/v for unit innovations.
             let g0 = 1.0 / v;
             for h in 1..=p {
@@ -241,22 +220,7 @@ impl KalmanWorkspace {
         }
         // ψ-weights 0..r
         resize(&mut self.psi, r + 1);
-        for j in 0..=r {
-            let mut v = if j == 0 {
-                1.0
-            } else if j <= q {
-                self.rvec[j]
-            } else {
-                0.0
-            };
-            for &(i, c) in &self.ar_nz {
-                if i > j {
-                    break;
-                }
-                v += c * self.psi[j - i];
-            }
-            self.psi[j] = v;
-        }
+        lag::psi_weights_into(&self.ar_nz, &self.rvec[1..=q], &mut self.psi);
         // First row.
         let pm = &mut self.p;
         pm[0] = self.gamma_x[0];
@@ -1067,19 +1031,6 @@ enum Phase {
     Full,
     Steady(usize),
     Direct,
-}
-
-/// The non-zero coefficients of a lag polynomial as `(lag, coefficient)` pairs (1-based
-/// lags), written into `out` without allocating once it has grown.
-pub(crate) fn nonzero_lags(coefs: &[f64], out: &mut Vec<(usize, f64)>) {
-    out.clear();
-    out.extend(
-        coefs
-            .iter()
-            .enumerate()
-            .filter(|(_, v)| **v != 0.0)
-            .map(|(i, v)| (i + 1, *v)),
-    );
 }
 
 /// Dense small shapes (non-zero lags exactly `1..=p` and `1..=q`, `p, q ≤ 3`) as arrays,

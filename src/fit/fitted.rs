@@ -10,7 +10,7 @@ use crate::base::linalg;
 use crate::estimate::{self, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
 use crate::filter::forecasting::{FilterState, ForecastModel};
 use crate::model::blueprint::{Blueprint, Estimator, Term};
-use crate::model::coefficients::{Coefs, FACTORS};
+use crate::model::coefficients::{Factor, FactorCoefficients};
 use crate::model::lag::{self, Complex};
 use crate::stats::correlogram::{BandRule, Correlogram, CorrelogramScratch};
 use crate::stats::criteria::InformationCriteria;
@@ -145,14 +145,9 @@ impl fmt::Display for FitWarning {
     }
 }
 
+/// The factor name of an ARMA term (`"regression"` for the others).
 fn factor_label(t: Term) -> &'static str {
-    match t {
-        Term::Ar(_) => "AR",
-        Term::Ma(_) => "MA",
-        Term::SeasonalAr(_) => "seasonal AR",
-        Term::SeasonalMa(_) => "seasonal MA",
-        Term::Mean | Term::Drift | Term::Exogenous(_) => "regression",
-    }
+    Factor::of(t).map_or("regression", |(f, _)| f.label())
 }
 
 /// A fitted model: estimates, uncertainty, likelihood, residuals and diagnostics.
@@ -263,21 +258,12 @@ impl TryFrom<FittedRecord> for FittedModel {
         // The coefficients must be admissible and the stored forecaster must be the one
         // they imply (same expanded polynomials, σ² and regression).
         let coefs = model.factor_coefficients();
-        for (fi, c) in coefs.f.iter().enumerate() {
-            let ok = if fi % 2 == 0 {
-                lag::is_stationary(c)
-            } else {
-                lag::is_invertible(c)
-            };
-            if !ok {
+        for factor in Factor::ALL {
+            if !factor.is_admissible(coefs.of(factor)) {
                 return Err(format!(
                     "the {} coefficients are not {}",
-                    factor_label(FACTORS[fi]),
-                    if fi % 2 == 0 {
-                        "stationary"
-                    } else {
-                        "invertible"
-                    }
+                    factor.label(),
+                    factor.admissible_word()
                 ));
             }
         }
@@ -604,10 +590,9 @@ fn fit_prepared(
     for term in bp.terms() {
         let held = bp.held_value(term);
         let value = match term {
-            Term::Ar(i) => coefs.f[0][i - 1],
-            Term::Ma(i) => coefs.f[1][i - 1],
-            Term::SeasonalAr(i) => coefs.f[2][i - 1],
-            Term::SeasonalMa(i) => coefs.f[3][i - 1],
+            Term::Ar(_) | Term::Ma(_) | Term::SeasonalAr(_) | Term::SeasonalMa(_) => {
+                coefs.value(term).unwrap_or(f64::NAN)
+            }
             Term::Mean | Term::Drift | Term::Exogenous(_) => match held {
                 Some(v) => v,
                 None => prep
@@ -626,25 +611,23 @@ fn fit_prepared(
     }
     // Roots per factor.
     let mut roots = Vec::new();
-    for (fi, factor) in FACTORS.iter().enumerate() {
-        let c = &coefs.f[fi];
+    for factor in Factor::ALL {
+        let c = coefs.of(factor);
         if c.is_empty() {
             continue;
         }
-        let poly: Vec<f64> = if fi % 2 == 0 {
-            c.iter().map(|v| -v).collect()
-        } else {
-            c.clone()
-        };
+        // inverse_roots reads `1 + Σc_iB^i`: AR factors enter with their signs flipped.
+        let sign = -factor.step_down_sign();
+        let poly: Vec<f64> = c.iter().map(|v| sign * v).collect();
         let inverse_roots = lag::inverse_roots(&poly)?;
         let fr = FactorRoots {
-            factor: *factor,
+            factor: factor.term(0),
             inverse_roots,
         };
         let m = fr.largest_modulus();
         if m > NEAR_UNIT_MODULUS {
             warnings.push(FitWarning::NearUnitRoot {
-                factor: *factor,
+                factor: factor.term(0),
                 modulus: m,
             });
         }
@@ -868,15 +851,11 @@ impl FittedModel {
     }
 
     /// Natural coefficients by factor (crate-internal).
-    pub(crate) fn factor_coefficients(&self) -> Coefs {
-        let mut c = Coefs::default();
+    pub(crate) fn factor_coefficients(&self) -> FactorCoefficients {
+        let mut c = FactorCoefficients::default();
         for e in &self.coefficients {
-            match e.term {
-                Term::Ar(_) => c.f[0].push(e.value),
-                Term::Ma(_) => c.f[1].push(e.value),
-                Term::SeasonalAr(_) => c.f[2].push(e.value),
-                Term::SeasonalMa(_) => c.f[3].push(e.value),
-                _ => {}
+            if let Some((factor, _)) = Factor::of(e.term) {
+                c.of_mut(factor).push(e.value);
             }
         }
         c
@@ -1110,7 +1089,7 @@ impl LikelihoodSurface {
         let mut slots = std::mem::take(&mut inner.batch_slots);
         let mut vals = std::mem::take(&mut inner.batch_values);
         if coefs.len() < count {
-            coefs.resize(count, Coefs::default());
+            coefs.resize(count, FactorCoefficients::default());
         }
         slots.clear();
         let mut m = 0;

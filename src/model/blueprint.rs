@@ -3,6 +3,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::base::error::{Error, ErrorKind, Result};
+use crate::model::coefficients::Factor;
 
 /// Largest seasonal period accepted (10 days of minute readings).
 pub const MAX_PERIOD: usize = 14_400;
@@ -375,54 +376,24 @@ impl BlueprintBuilder {
             tolerance,
             max_iterations,
         };
-        for (factor, len, is_ar) in [
-            (Term::Ar(0), p, true),
-            (Term::Ma(0), q, false),
-            (Term::SeasonalAr(0), sp, true),
-            (Term::SeasonalMa(0), sq, false),
-        ] {
+        for (factor, len) in Factor::ALL.into_iter().zip([p, q, sp, sq]) {
             if len > 0 && bp.factor_fully_held(factor, len) {
                 let coefs: Vec<f64> = (1..=len)
-                    .map(|i| bp.held_value(same_kind(factor, i)).unwrap_or(0.0))
+                    .map(|i| bp.held_value(factor.term(i)).unwrap_or(0.0))
                     .collect();
-                let ok = if is_ar {
-                    crate::model::lag::is_stationary(&coefs)
-                } else {
-                    crate::model::lag::is_invertible(&coefs)
-                };
-                if !ok {
+                if !factor.is_admissible(&coefs) {
                     return bad(
                         "hold",
                         format!(
                             "the held {} coefficients are not {}",
-                            factor_name(factor),
-                            if is_ar { "stationary" } else { "invertible" }
+                            factor.label(),
+                            factor.admissible_word()
                         ),
                     );
                 }
             }
         }
         Ok(bp)
-    }
-}
-
-pub(crate) fn same_kind(factor: Term, i: usize) -> Term {
-    match factor {
-        Term::Ar(_) => Term::Ar(i),
-        Term::Ma(_) => Term::Ma(i),
-        Term::SeasonalAr(_) => Term::SeasonalAr(i),
-        Term::SeasonalMa(_) => Term::SeasonalMa(i),
-        other => other,
-    }
-}
-
-fn factor_name(factor: Term) -> &'static str {
-    match factor {
-        Term::Ar(_) => "AR",
-        Term::Ma(_) => "MA",
-        Term::SeasonalAr(_) => "seasonal AR",
-        Term::SeasonalMa(_) => "seasonal MA",
-        _ => "regression",
     }
 }
 
@@ -531,8 +502,8 @@ impl Blueprint {
             exogenous: u32::try_from(self.exogenous).unwrap_or(u32::MAX),
         }
     }
-    pub(crate) fn factor_fully_held(&self, factor: Term, len: usize) -> bool {
-        (1..=len).all(|i| self.held_value(same_kind(factor, i)).is_some())
+    pub(crate) fn factor_fully_held(&self, factor: Factor, len: usize) -> bool {
+        (1..=len).all(|i| self.held_value(factor.term(i)).is_some())
     }
 }
 

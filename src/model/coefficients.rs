@@ -1,64 +1,152 @@
-//! The natural coefficients of a model's four lag-polynomial factors and their expansion
-//! into the full AR and MA polynomials.
+//! The natural coefficients of a model's four lag-polynomial factors, by name, and their
+//! expansion into the full AR and MA polynomials.
 
 use crate::model::blueprint::Term;
+use crate::model::lag::{self, expand_into};
 
-/// The four polynomial factors in canonical order.
-pub(crate) const FACTORS: [Term; 4] = [
-    Term::Ar(0),
-    Term::Ma(0),
-    Term::SeasonalAr(0),
-    Term::SeasonalMa(0),
-];
+/// One of the four lag-polynomial factors of a seasonal ARMA model
+/// `φ(B)Φ(B^s)(x_t − μ) = θ(B)Θ(B^s)e_t`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Factor {
+    /// φ(B), non-seasonal autoregressive.
+    Ar,
+    /// θ(B), non-seasonal moving average.
+    Ma,
+    /// Φ(B^s), seasonal autoregressive.
+    SeasonalAr,
+    /// Θ(B^s), seasonal moving average.
+    SeasonalMa,
+}
 
-/// Natural coefficients of the four factors.
+impl Factor {
+    /// The factors in canonical order (the order of the optimiser's coordinates).
+    pub(crate) const ALL: [Factor; 4] = [
+        Factor::Ar,
+        Factor::Ma,
+        Factor::SeasonalAr,
+        Factor::SeasonalMa,
+    ];
+
+    /// Whether the factor is a moving-average one (`1 + Σθ_jB^j`, plus signs).
+    pub(crate) fn is_moving_average(self) -> bool {
+        matches!(self, Factor::Ma | Factor::SeasonalMa)
+    }
+
+    /// The sign that puts the factor's coefficients into the `1 − Σa_iB^i` form the
+    /// step-down recursion reads: +1 for AR factors, −1 for MA factors.
+    pub(crate) fn step_down_sign(self) -> f64 {
+        if self.is_moving_average() { -1.0 } else { 1.0 }
+    }
+
+    /// The term of coefficient `i` (1-based) of this factor.
+    pub(crate) fn term(self, i: usize) -> Term {
+        match self {
+            Factor::Ar => Term::Ar(i),
+            Factor::Ma => Term::Ma(i),
+            Factor::SeasonalAr => Term::SeasonalAr(i),
+            Factor::SeasonalMa => Term::SeasonalMa(i),
+        }
+    }
+
+    /// The factor and 1-based position of an ARMA term (`None` for regression terms).
+    pub(crate) fn of(term: Term) -> Option<(Factor, usize)> {
+        match term {
+            Term::Ar(i) => Some((Factor::Ar, i)),
+            Term::Ma(i) => Some((Factor::Ma, i)),
+            Term::SeasonalAr(i) => Some((Factor::SeasonalAr, i)),
+            Term::SeasonalMa(i) => Some((Factor::SeasonalMa, i)),
+            Term::Mean | Term::Drift | Term::Exogenous(_) => None,
+        }
+    }
+
+    /// The factor's name in messages and reports.
+    pub(crate) fn label(self) -> &'static str {
+        match self {
+            Factor::Ar => "AR",
+            Factor::Ma => "MA",
+            Factor::SeasonalAr => "seasonal AR",
+            Factor::SeasonalMa => "seasonal MA",
+        }
+    }
+
+    /// What admissibility means for the factor: "stationary" or "invertible".
+    pub(crate) fn admissible_word(self) -> &'static str {
+        if self.is_moving_average() {
+            "invertible"
+        } else {
+            "stationary"
+        }
+    }
+
+    /// Whether `coefs` make this factor admissible (stationary or invertible).
+    pub(crate) fn is_admissible(self, coefs: &[f64]) -> bool {
+        if self.is_moving_average() {
+            lag::is_invertible(coefs)
+        } else {
+            lag::is_stationary(coefs)
+        }
+    }
+}
+
+/// Natural coefficients of the four factors, in the sign convention of the crate
+/// (`φ(B) = 1 − Σφ_iB^i`, `θ(B) = 1 + Σθ_jB^j`).
 #[derive(Debug, Clone, Default, PartialEq)]
-pub(crate) struct Coefs {
-    pub f: [Vec<f64>; 4],
+pub(crate) struct FactorCoefficients {
+    pub(crate) ar: Vec<f64>,
+    pub(crate) ma: Vec<f64>,
+    pub(crate) seasonal_ar: Vec<f64>,
+    pub(crate) seasonal_ma: Vec<f64>,
 }
 
-/// Expand `(1 ∓ Σa_iB^i)(1 ∓ Σb_jB^{js})` into `out` (coefficient list, sign convention of
-/// the factor kind); allocation-free once `out` has capacity.
-pub(crate) fn expand_into(a: &[f64], b: &[f64], period: usize, is_ma: bool, out: &mut Vec<f64>) {
-    let len = a.len() + b.len() * period;
-    out.clear();
-    out.resize(len, 0.0);
-    for (i, &ai) in a.iter().enumerate() {
-        out[i] += ai;
-    }
-    for (j, &bj) in b.iter().enumerate() {
-        let lag = (j + 1) * period;
-        out[lag - 1] += bj;
-        for (i, &ai) in a.iter().enumerate() {
-            // AR: −(−a)(−b) = −ab in "1 − Σc" form; MA: +ab.
-            out[lag + i] += if is_ma { ai * bj } else { -ai * bj };
+impl FactorCoefficients {
+    /// Zero coefficients of the given lengths `[p, q, P, Q]`.
+    pub(crate) fn zeros(p: usize, q: usize, seasonal_p: usize, seasonal_q: usize) -> Self {
+        FactorCoefficients {
+            ar: vec![0.0; p],
+            ma: vec![0.0; q],
+            seasonal_ar: vec![0.0; seasonal_p],
+            seasonal_ma: vec![0.0; seasonal_q],
         }
     }
-}
 
-/// Expanded (φ, θ) of natural coefficients.
-pub(crate) fn expanded(c: &Coefs, period: usize) -> (Vec<f64>, Vec<f64>) {
-    let mut phi = Vec::new();
-    let mut theta = Vec::new();
-    expand_into(&c.f[0], &c.f[2], period, false, &mut phi);
-    expand_into(&c.f[1], &c.f[3], period, true, &mut theta);
-    (phi, theta)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::model::lag;
-
-    #[test]
-    fn expansion_matches_polynomial_product() {
-        let mut out = Vec::new();
-        expand_into(&[0.5, -0.2], &[0.3], 4, false, &mut out);
-        assert_eq!(out, lag::expand_autoregressive(&[0.5, -0.2], &[0.3], 4));
-        expand_into(&[0.4], &[0.6, 0.1], 3, true, &mut out);
-        let want = lag::expand_moving_average(&[0.4], &[0.6, 0.1], 3);
-        for (a, b) in out.iter().zip(&want) {
-            assert!((a - b).abs() < 1e-15);
+    /// The coefficients of one factor.
+    pub(crate) fn of(&self, factor: Factor) -> &Vec<f64> {
+        match factor {
+            Factor::Ar => &self.ar,
+            Factor::Ma => &self.ma,
+            Factor::SeasonalAr => &self.seasonal_ar,
+            Factor::SeasonalMa => &self.seasonal_ma,
         }
+    }
+
+    /// The coefficients of one factor, to change.
+    pub(crate) fn of_mut(&mut self, factor: Factor) -> &mut Vec<f64> {
+        match factor {
+            Factor::Ar => &mut self.ar,
+            Factor::Ma => &mut self.ma,
+            Factor::SeasonalAr => &mut self.seasonal_ar,
+            Factor::SeasonalMa => &mut self.seasonal_ma,
+        }
+    }
+
+    /// The value of an ARMA term (`None` for regression terms or a position beyond the
+    /// factor's length).
+    pub(crate) fn value(&self, term: Term) -> Option<f64> {
+        let (factor, i) = Factor::of(term)?;
+        self.of(factor).get(i.checked_sub(1)?).copied()
+    }
+
+    /// The expanded AR and MA polynomials `(φ, θ)` into caller buffers (allocation-free
+    /// once they have grown).
+    pub(crate) fn expand_into(&self, period: usize, phi: &mut Vec<f64>, theta: &mut Vec<f64>) {
+        expand_into(&self.ar, &self.seasonal_ar, period, false, phi);
+        expand_into(&self.ma, &self.seasonal_ma, period, true, theta);
+    }
+
+    /// The expanded AR and MA polynomials `(φ, θ)`.
+    pub(crate) fn expanded(&self, period: usize) -> (Vec<f64>, Vec<f64>) {
+        let (mut phi, mut theta) = (Vec::new(), Vec::new());
+        self.expand_into(period, &mut phi, &mut theta);
+        (phi, theta)
     }
 }

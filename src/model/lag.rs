@@ -3,15 +3,38 @@
 
 use crate::base::error::{Error, Result};
 
-/// Expand `1 − Σ a_i B^{i·stride}` into the full coefficient vector `[1, c₁, c₂, …]`
-/// of a polynomial in `B`; `sign` is −1 for AR factors and +1 for MA factors.
-pub(crate) fn expand_factor(coefs: &[f64], stride: usize, sign: f64) -> Vec<f64> {
-    let mut out = vec![0.0; coefs.len() * stride + 1];
-    out[0] = 1.0;
-    for (i, &c) in coefs.iter().enumerate() {
-        out[(i + 1) * stride] = sign * c;
+/// Expand `(1 ∓ Σa_iB^i)(1 ∓ Σb_jB^{js})` into `out` as a coefficient list in the sign
+/// convention of the factor kind (`is_ma`: `1 + Σθ_jB^j`; otherwise `1 − Σφ_iB^i`);
+/// allocation-free once `out` has capacity. The one seasonal expansion of the crate.
+pub(crate) fn expand_into(a: &[f64], b: &[f64], period: usize, is_ma: bool, out: &mut Vec<f64>) {
+    let period = period.max(1);
+    let len = a.len() + b.len() * period;
+    out.clear();
+    out.resize(len, 0.0);
+    for (i, &ai) in a.iter().enumerate() {
+        out[i] += ai;
     }
-    out
+    for (j, &bj) in b.iter().enumerate() {
+        let lag = (j + 1) * period;
+        out[lag - 1] += bj;
+        for (i, &ai) in a.iter().enumerate() {
+            // AR: −(−a)(−b) = −ab in "1 − Σc" form; MA: +ab.
+            out[lag + i] += if is_ma { ai * bj } else { -ai * bj };
+        }
+    }
+}
+
+/// The non-zero coefficients of `[c₁, c₂, …]` as `(lag, c)` pairs in lag order (seasonal
+/// polynomials are mostly zeros; the recursions run over these pairs only).
+pub(crate) fn nonzero_lags(coefs: &[f64], out: &mut Vec<(usize, f64)>) {
+    out.clear();
+    out.extend(
+        coefs
+            .iter()
+            .enumerate()
+            .filter(|(_, v)| **v != 0.0)
+            .map(|(i, v)| (i + 1, *v)),
+    );
 }
 
 /// Product of two polynomials given as full coefficient vectors (lowest power first).
@@ -40,45 +63,78 @@ pub fn multiply(a: &[f64], b: &[f64]) -> Vec<f64> {
 
 /// AR coefficients `[φ₁…]` of the product `φ(B)Φ(B^s)`, in the `1 − Σφ_iB^i` convention.
 pub fn expand_autoregressive(nonseasonal: &[f64], seasonal: &[f64], period: usize) -> Vec<f64> {
-    let full = multiply(
-        &expand_factor(nonseasonal, 1, -1.0),
-        &expand_factor(seasonal, period.max(1), -1.0),
-    );
-    full[1..].iter().map(|c| -c).collect()
+    let mut out = Vec::new();
+    expand_into(nonseasonal, seasonal, period, false, &mut out);
+    out
 }
 
 /// MA coefficients `[θ₁…]` of the product `θ(B)Θ(B^s)`, in the `1 + Σθ_iB^i` convention.
 pub fn expand_moving_average(nonseasonal: &[f64], seasonal: &[f64], period: usize) -> Vec<f64> {
-    let full = multiply(
-        &expand_factor(nonseasonal, 1, 1.0),
-        &expand_factor(seasonal, period.max(1), 1.0),
-    );
-    full[1..].to_vec()
+    let mut out = Vec::new();
+    expand_into(nonseasonal, seasonal, period, true, &mut out);
+    out
 }
 
 /// Step-down recursion: partial autocorrelations `κ₁…κ_p` of the AR factor with
 /// coefficients `phi` (`1 − Σφ_iB^i`). Returns `None` as soon as some `|κ_k| ≥ 1`
 /// (the factor is not stationary) or the coefficients are not finite.
 pub fn step_down(phi: &[f64]) -> Option<Vec<f64>> {
-    if phi.iter().any(|v| !v.is_finite()) {
-        return None;
-    }
     let mut a = phi.to_vec();
-    let mut kappa = vec![0.0; phi.len()];
-    let mut prev = vec![0.0; phi.len()];
-    for k in (1..=phi.len()).rev() {
+    let mut b = vec![0.0; phi.len()];
+    step_down_in_place(&mut a, &mut b).then_some(a)
+}
+
+/// The step-down recursion, allocation-free and the one copy of it in the crate: on entry
+/// `a` holds `[φ₁…φ_p]` of `1 − Σφ_iB^i`; on success it holds the partial
+/// autocorrelations `[κ₁…κ_p]` (step k reads κ_k = a[k−1] and rewrites only a[..k−1]).
+/// `b` is scratch of at least `p − 1` entries. `false` if an entry is not finite or a
+/// partial autocorrelation is not strictly inside (−1, 1) (then `a` holds no meaning).
+pub(crate) fn step_down_in_place(a: &mut [f64], b: &mut [f64]) -> bool {
+    if a.iter().any(|v| !v.is_finite()) {
+        return false;
+    }
+    for k in (1..=a.len()).rev() {
         let kk = a[k - 1];
         if !(kk.abs() < 1.0) {
-            return None;
+            return false;
         }
-        kappa[k - 1] = kk;
         let denom = 1.0 - kk * kk;
         for j in 1..k {
-            prev[j - 1] = (a[j - 1] + kk * a[k - j - 1]) / denom;
+            b[j - 1] = (a[j - 1] + kk * a[k - j - 1]) / denom;
         }
-        a[..k - 1].copy_from_slice(&prev[..k - 1]);
+        a[..k - 1].copy_from_slice(&b[..k - 1]);
     }
-    Some(kappa)
+    true
+}
+
+/// Forward Durbin–Levinson from partial autocorrelations `κ₁…κ_p` to the autocorrelations
+/// `ρ(0..=p)` of the AR process they define, written into `rho` (at least `p + 1`
+/// entries); `a` and `b` are scratch of at least `p` entries. Returns `Π(1 − κ_k²)`, the
+/// innovation variance of a unit-variance process (so `γ(0) = 1/` it for unit
+/// innovations). Allocation-free.
+pub(crate) fn autocorrelations_from_partials(
+    kappa: &[f64],
+    rho: &mut [f64],
+    a: &mut [f64],
+    b: &mut [f64],
+) -> f64 {
+    let mut v = 1.0;
+    rho[0] = 1.0;
+    for k in 1..=kappa.len() {
+        let kk = kappa[k - 1];
+        let mut r = kk * v;
+        for j in 1..k {
+            r += a[j - 1] * rho[k - j];
+        }
+        rho[k] = r;
+        for j in 1..k {
+            b[j - 1] = a[j - 1] - kk * a[k - j - 1];
+        }
+        b[k - 1] = kk;
+        a[..k].copy_from_slice(&b[..k]);
+        v *= 1.0 - kk * kk;
+    }
+    v
 }
 
 /// Whether `1 − Σφ_iB^i` has all roots outside the unit circle.
@@ -88,8 +144,9 @@ pub fn is_stationary(phi: &[f64]) -> bool {
 
 /// Whether `1 + Σθ_iB^i` has all roots outside the unit circle.
 pub fn is_invertible(theta: &[f64]) -> bool {
-    let neg: Vec<f64> = theta.iter().map(|t| -t).collect();
-    step_down(&neg).is_some()
+    let mut a: Vec<f64> = theta.iter().map(|t| -t).collect();
+    let mut b = vec![0.0; theta.len()];
+    step_down_in_place(&mut a, &mut b)
 }
 
 /// Durbin–Levinson forward map from partial autocorrelations `κ` (each in (−1, 1)) to AR
@@ -171,22 +228,30 @@ pub(crate) fn pull_inside(phi: &[f64], limit: f64) -> Vec<f64> {
 /// assert_eq!(psi, vec![1.0, 0.5, 0.25, 0.125]);
 /// ```
 pub fn psi_weights(phi: &[f64], theta: &[f64], count: usize) -> Vec<f64> {
+    let mut ar = Vec::new();
+    nonzero_lags(phi, &mut ar);
     let mut psi = vec![0.0; count];
-    for j in 0..count {
+    psi_weights_into(&ar, theta, &mut psi);
+    psi
+}
+
+/// ψ-weights `ψ_0..ψ_{len−1}` into `psi`, over the non-zero AR terms `ar` (from
+/// [`nonzero_lags`]); allocation-free, the one ψ recursion of the crate.
+pub(crate) fn psi_weights_into(ar: &[(usize, f64)], theta: &[f64], psi: &mut [f64]) {
+    for j in 0..psi.len() {
         let mut v = if j == 0 {
             1.0
         } else {
             theta.get(j - 1).copied().unwrap_or(0.0)
         };
-        for (i, &p) in phi.iter().enumerate() {
-            if i + 1 > j {
+        for &(i, c) in ar {
+            if i > j {
                 break;
             }
-            v += p * psi[j - i - 1];
+            v += c * psi[j - i];
         }
         psi[j] = v;
     }
-    psi
 }
 
 /// π-weights `π₀…π_{count−1}` of `φ(B)/θ(B)` (the AR(∞) representation), so that
@@ -365,6 +430,41 @@ pub fn inverse_roots(c: &[f64]) -> Result<Vec<Complex>> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// `[1, sign·c₁, …]` at the given stride: a factor as a full coefficient vector.
+    fn expand_factor(coefs: &[f64], stride: usize, sign: f64) -> Vec<f64> {
+        let mut out = vec![0.0; coefs.len() * stride + 1];
+        out[0] = 1.0;
+        for (i, &c) in coefs.iter().enumerate() {
+            out[(i + 1) * stride] = sign * c;
+        }
+        out
+    }
+
+    /// The seasonal expansion equals the product of the two factors (by `multiply`).
+    #[test]
+    fn expansion_matches_polynomial_product() {
+        let cases: [(&[f64], &[f64], usize); 4] = [
+            (&[0.5, -0.2], &[0.3], 4),
+            (&[0.4], &[0.6, 0.1], 3),
+            (&[], &[0.7], 12),
+            (&[0.2, 0.1, 0.05], &[], 1),
+        ];
+        for (a, b, s) in cases {
+            for (is_ma, sign) in [(false, -1.0), (true, 1.0)] {
+                let mut out = Vec::new();
+                expand_into(a, b, s, is_ma, &mut out);
+                let full = multiply(&expand_factor(a, 1, sign), &expand_factor(b, s, sign));
+                assert_eq!(out.len() + 1, full.len());
+                for (k, v) in out.iter().enumerate() {
+                    assert!(
+                        (sign * v - full[k + 1]).abs() < 1e-15,
+                        "{a:?} {b:?} {s} {is_ma}"
+                    );
+                }
+            }
+        }
+    }
 
     #[test]
     fn step_down_round_trips_durbin_levinson() {
