@@ -134,7 +134,7 @@ pub use model::lag::{
 };
 pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use select::search::{
-    Candidate, SearchOutcome, SearchSettings, choose_differencing, gate_lag, search_orders,
+    Candidate, SearchOutcome, SearchSettings, choose_differencing, search_orders,
     search_orders_with,
 };
 pub use stats::correlogram::{

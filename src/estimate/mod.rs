@@ -11,7 +11,9 @@ use argmin::solver::quasinewton::BFGS;
 
 use crate::base::error::{Error, ErrorKind, Result};
 use crate::base::linalg;
-use crate::filter::kalman::{KalmanWorkspace, PassTotals, direct_recursion};
+use crate::filter::innovations::{direct_recursion, segment_dot};
+use crate::filter::kalman::{KalmanWorkspace, PassTotals};
+use crate::filter::lanes::add_lane_sums;
 use crate::model::blueprint::{Blueprint, Term};
 use crate::model::coefficients::{Factor, FactorCoefficients};
 use crate::model::lag;
@@ -651,7 +653,7 @@ impl EvalWorkspace {
         for (j, lane) in set[..count].iter().enumerate() {
             let l = slot[j];
             let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
-            crate::filter::kalman::add_lane_sums(lane, k, cross);
+            add_lane_sums(lane, k, cross);
             used[l] += n - start[l];
         }
         let mut out = std::mem::take(&mut self.scratch_eval);
@@ -780,7 +782,7 @@ impl EvalWorkspace {
                 &mut lane,
                 Some(&mut self.css_innov[..k * n]),
             );
-            crate::filter::kalman::add_lane_sums(&lane[0], k, &mut self.cross);
+            add_lane_sums(&lane[0], k, &mut self.cross);
             return n - cond;
         }
         let max_ma = self.ma_nz.last().map_or(0, |e| e.0);
@@ -821,7 +823,7 @@ impl EvalWorkspace {
         if !prep.has_missing {
             for i in 0..k {
                 for j in i..k {
-                    self.cross[i * k + j] += crate::filter::kalman::segment_dot(
+                    self.cross[i * k + j] += segment_dot(
                         &self.css_innov[i * n + cond..(i + 1) * n],
                         &self.css_innov[j * n + cond..(j + 1) * n],
                     );

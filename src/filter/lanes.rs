@@ -249,6 +249,15 @@ fn kernel<const L: usize, const C: usize, const S: bool, const P: usize, const Q
     }
 }
 
+/// Add a lane's sums to the upper triangle of `cross` (`ncols ≤ 2`).
+pub(crate) fn add_lane_sums(lane: &Lane, ncols: usize, cross: &mut [f64]) {
+    cross[0] += lane.acc[0];
+    if ncols == 2 {
+        cross[1] += lane.acc[1];
+        cross[3] += lane.acc[2];
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

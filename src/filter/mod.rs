@@ -3,5 +3,6 @@
 //! (lanes), and the forecasting filter on the original scale.
 
 pub(crate) mod forecasting;
+pub(crate) mod innovations;
 pub(crate) mod kalman;
 pub(crate) mod lanes;

@@ -137,13 +137,6 @@ pub struct SearchOutcome {
     pub explanation: String,
 }
 
-/// Lag of the whiteness gate (common practice): `min(2s, n/5)` for seasonal models,
-/// `min(10, n/5)` otherwise, at least one more than the estimated ARMA coefficients.
-pub fn gate_lag(period: usize, readings: usize, arma_coefficients: usize) -> usize {
-    let base = if period > 1 { 2 * period } else { 10 };
-    base.min(readings / 5).max(arma_coefficients + 1)
-}
-
 fn difference_plain(x: &[f64], d: usize, sd: usize, s: usize) -> Vec<f64> {
     crate::estimate::difference(x, d, sd, s)
 }
@@ -249,9 +242,9 @@ pub fn choose_differencing(series: &[f64], period: usize) -> Result<(usize, usiz
 /// (confirmatory use of the two tests, common practice; at most d = 2). Then the stepwise search of Hyndman &
 /// Khandakar (2008, Journal of Statistical Software 27(3)): four starting models, then
 /// neighbours (each of p, q, P, Q by ±1, p and q together, the constant toggled) while the
-/// criterion improves. Every candidate's residuals get a Ljung–Box test at lag
-/// `H = min(2s, n/5)` for seasonal models, `min(10, n/5)` otherwise (common practice);
-/// candidates that fail are kept in the account as inadequate and never chosen over an
+/// criterion improves. Every candidate's residuals get a Ljung–Box test at the lag of
+/// [`FittedModel::default_check_lags`] (`min(2s, n/5)` for seasonal models, `min(10, n/5)`
+/// otherwise, common practice); candidates that fail are kept in the account as inadequate and never chosen over an
 /// adequate one.
 pub fn search_orders(series: &[f64], settings: &SearchSettings) -> Result<SearchOutcome> {
     search_orders_with(series, settings, &mut FitWorkspace::new())
@@ -349,8 +342,7 @@ pub fn search_orders_with(
                     .criteria()
                     .ok()
                     .and_then(|ic| ic.value(settings.criterion));
-                let n = m.reading_counts().in_likelihood;
-                let h = gate_lag(s, n, m.blueprint().estimated_arma_coefficients());
+                let h = m.default_check_lags();
                 match m.residual_check(h, settings.alpha) {
                     Ok(check) => {
                         cand.whiteness_p =
