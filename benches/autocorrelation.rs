@@ -7,7 +7,7 @@
 use std::hint::black_box;
 
 use criterion::{BenchmarkId, Criterion, Throughput, criterion_group, criterion_main};
-use lagwise::{Correlogram, CorrelogramScratch, Simulator};
+use lagwise::{Correlogram, CorrelogramWorkspace, Simulator};
 
 fn correlogram(c: &mut Criterion) {
     let sim = Simulator::builder()
@@ -27,7 +27,7 @@ fn correlogram(c: &mut Criterion) {
         group.throughput(Throughput::Elements(n as u64));
         for &lag in &[40usize, 200] {
             let x = &longest[..n];
-            let mut scratch = CorrelogramScratch::new();
+            let mut scratch = CorrelogramWorkspace::new();
             group.bench_with_input(BenchmarkId::new(format!("lag{lag}"), n), &n, |b, _| {
                 b.iter(|| Correlogram::compute_with(black_box(x), lag, &mut scratch).expect("ok"))
             });
@@ -38,7 +38,7 @@ fn correlogram(c: &mut Criterion) {
     let mut pacf = c.benchmark_group("pacf_only");
     let cg = Correlogram::compute(&longest[..100_000], 200).expect("ok");
     for &lag in &[40usize, 200] {
-        let r = &cg.autocorrelations()[..=lag];
+        let r = &cg.autocorrelations().values()[..=lag];
         pacf.bench_function(BenchmarkId::new("durbin_levinson", lag), |b| {
             b.iter(|| lagwise::partial_from_autocorrelations(black_box(r)).expect("ok"))
         });

@@ -103,7 +103,7 @@ fn likelihood(c: &mut Criterion) {
         let x = sim.generate(case.n, 5);
         let bp = Blueprint::builder()
             .nonseasonal(case.ar.len(), 0, case.ma.len())
-            .periodic(0, case.seasonal_d, case.sma.len(), case.period)
+            .seasonal(0, case.seasonal_d, case.sma.len(), case.period)
             .mean_term(case.seasonal_d == 0)
             .build()
             .expect("blueprint");
@@ -223,7 +223,7 @@ fn fits(c: &mut Criterion) {
         .generate(10_000, 11);
     let bp = Blueprint::builder()
         .nonseasonal(1, 0, 1)
-        .periodic(0, 1, 1, 96)
+        .seasonal(0, 1, 1, 96)
         .build()
         .expect("blueprint");
     let mut ws = FitWorkspace::new();
@@ -258,7 +258,7 @@ fn monitoring(c: &mut Criterion) {
         .generate(6000, 14);
     let fit_seasonal = Blueprint::builder()
         .nonseasonal(1, 0, 1)
-        .periodic(0, 1, 1, 96)
+        .seasonal(0, 1, 1, 96)
         .build()
         .expect("bp")
         .fit(&seasonal[..4000])

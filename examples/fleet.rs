@@ -91,7 +91,7 @@ fn search_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
     let report = Fleet::builder()
         .threads(2)
         .build()?
-        .search_slices(&lagwise::SearchSettings::new(1), &refs);
+        .search_slices(&lagwise::SearchSettings::default(), &refs);
     let secs = report.elapsed.as_secs_f64();
     let summaries: Vec<_> = report
         .outcomes

@@ -7,7 +7,7 @@
 
 use lagwise::search_orders_with;
 use lagwise::{
-    BandRule, Blueprint, Correlogram, Dropouts, FitWorkspace, FittedModel, Innovations,
+    BandRule, Blueprint, Correlogram, Dropouts, FitWorkspace, FittedModel, Innovations, LagValues,
     PortmanteauScan, SearchOutcome, SearchSettings, Simulator,
 };
 
@@ -131,11 +131,11 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
 
 /// A one-line picture of the first `lags` autocorrelations: `#` outside the band,
 /// `+`/`-` inside it.
-fn sparkline(cg: &Correlogram, band: &[f64], lags: usize) -> String {
+fn sparkline(cg: &Correlogram, band: &LagValues, lags: usize) -> String {
     (1..=lags)
         .map(|h| {
-            let r = cg.autocorrelations()[h];
-            if r.abs() > band[h - 1] {
+            let r = cg.autocorrelation(h).unwrap_or(0.0);
+            if r.abs() > band.at(h).unwrap_or(f64::INFINITY) {
                 '#'
             } else if r >= 0.0 {
                 '+'
@@ -159,13 +159,13 @@ fn fit_tag(
     if tag.ends_with("-TR") || tag.ends_with("-FL") {
         let bp = Blueprint::builder()
             .nonseasonal(1, 0, 1)
-            .periodic(0, 1, 1, PER_DAY)
+            .seasonal(0, 1, 1, PER_DAY)
             .build()?;
         return Ok((bp.fit_with(history, ws)?, None));
     }
     let outcome = search_orders_with(
         history,
-        &SearchSettings::new(1).with_max_orders(3, 3, 0, 0),
+        &SearchSettings::builder().max_orders(3, 3, 0, 0).build()?,
         ws,
     )?;
     Ok((outcome.model.clone(), Some(outcome)))
@@ -185,7 +185,7 @@ fn morning_report() -> Result<(), lagwise::Error> {
         println!("\n=== Substation {id:04} — morning report ===");
         println!(
             "{:<14} {:<30} {:>8} {:>13}  {:<9} overnight alarms (99.9%)",
-            "tag", "model", "σ", "smallest p", "residuals"
+            "tag", "model", "σ", "LB p at H", "residuals"
         );
         let mut day_ahead = Vec::new();
         let mut account = None;
@@ -199,7 +199,13 @@ fn morning_report() -> Result<(), lagwise::Error> {
                 account = Some((tag.name.clone(), s));
             }
             let check = fit.residual_check(fit.default_check_lags(), 0.05)?;
-            let p = check.portmanteau.smallest_ljung_box_p_value();
+            // The verdict reads the Ljung–Box p-value at the check lag H (white when ≥ 0.05).
+            let h = check.portmanteau.rows().len();
+            let p = check
+                .portmanteau
+                .row(h)
+                .and_then(|r| r.ljung_box_p_value)
+                .map(|p| (h, p));
             let mut monitor = fit.monitor(0.999)?;
             let alarms: Vec<String> = monitor
                 .observe_batch(night)?
@@ -220,7 +226,7 @@ fn morning_report() -> Result<(), lagwise::Error> {
                 tag.name,
                 fit.blueprint().shape_label(),
                 fit.innovation_variance().sqrt(),
-                p.map_or("—".to_string(), |(lag, p)| format!("{p:.3} @ {lag}")),
+                p.map_or("—".to_string(), |(h, p)| format!("{p:.3} @ {h}")),
                 if check.white { "white" } else { "NOT white" },
                 if alarms.is_empty() {
                     "none".to_string()
@@ -249,10 +255,10 @@ fn morning_report() -> Result<(), lagwise::Error> {
                         "  {}  {:>7.2}  ({:>6.2} – {:>6.2})  [{:>6.2} – {:>6.2}]",
                         clock(st.index),
                         st.mean,
-                        st.bounds[0].0,
-                        st.bounds[0].1,
-                        st.bounds[1].0,
-                        st.bounds[1].1
+                        st.intervals[0].lower,
+                        st.intervals[0].upper,
+                        st.intervals[1].lower,
+                        st.intervals[1].upper
                     );
                 }
             }
@@ -293,9 +299,9 @@ fn main() -> Result<(), lagwise::Error> {
                 "{:<14} {:>7} {:>8.3} {:>8.3} {:>8.3}  {:<24} {:>10}  {} [{}]",
                 tag.name,
                 format!("{}/{}", cg.readings_present(), cg.readings_total()),
-                cg.autocorrelations()[1],
-                cg.autocorrelations()[PER_DAY],
-                cg.partial_autocorrelations()[1],
+                cg.autocorrelation(1).unwrap_or(f64::NAN),
+                cg.autocorrelation(PER_DAY).unwrap_or(f64::NAN),
+                cg.partial_autocorrelation(2).unwrap_or(f64::NAN),
                 sparkline(&cg, &band, 24),
                 verdict,
                 tag.story,
@@ -318,10 +324,10 @@ fn main() -> Result<(), lagwise::Error> {
             println!(
                 "{:>5} {:>8.3} {:>8.3} {:>9.3} {:>9.3}",
                 h,
-                cg.autocorrelations()[h],
-                cg.partial_autocorrelations()[h - 1],
-                white[h - 1],
-                bart[h - 1]
+                cg.autocorrelation(h).unwrap_or(f64::NAN),
+                cg.partial_autocorrelation(h).unwrap_or(f64::NAN),
+                white.at(h).unwrap_or(f64::NAN),
+                bart.at(h).unwrap_or(f64::NAN)
             );
         }
         println!(

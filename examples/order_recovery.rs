@@ -73,7 +73,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             reps_divisor: 1,
         },
         Case {
-            name: "SARIMA(1,0,0)(0,1,1)[12] φ=0.6 Θ=−0.6",
+            name: "SARIMA(1,0,0)×(0,1,1)₁₂ φ=0.6 Θ=−0.6",
             sim: Simulator::builder()
                 .autoregressive(&[0.6])
                 .seasonal(&[], &[-0.6], 12)
@@ -89,13 +89,27 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     for case in &cases {
         let t = Instant::now();
         let n_reps = (reps / case.reps_divisor).max(1);
-        let stepwise = SearchSettings::new(case.period);
-        let ties = SearchSettings::new(case.period).near_tie_exploration(true);
-        let mut schwarz = SearchSettings::new(case.period);
-        schwarz.criterion = lagwise::Criterion::Schwarz;
-        let mut exhaustive = SearchSettings::new(case.period);
-        exhaustive.exhaustive = true;
-        exhaustive.max_orders = case.grid;
+        let stepwise = SearchSettings::builder()
+            .period(case.period)
+            .build()
+            .unwrap();
+        let ties = SearchSettings::builder()
+            .period(case.period)
+            .explore_near_ties(true)
+            .build()
+            .unwrap();
+        let schwarz = SearchSettings::builder()
+            .period(case.period)
+            .criterion(lagwise::Criterion::Schwarz)
+            .build()
+            .unwrap();
+        let (gp, gq, gsp, gsq) = case.grid;
+        let exhaustive = SearchSettings::builder()
+            .period(case.period)
+            .exhaustive(true)
+            .max_orders(gp, gq, gsp, gsq)
+            .build()
+            .unwrap();
         // Two workers over the replications.
         let results: Vec<(bool, bool, bool, String, bool, bool)> = std::thread::scope(|scope| {
             let handles: Vec<_> = (0..2u64)
@@ -123,9 +137,14 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                                             .unwrap_or(f64::INFINITY)
                                             .total_cmp(&v.criterion.unwrap_or(f64::INFINITY))
                                     })?;
-                                let ceiling = best.orders == case.truth.0
-                                    && (best.periodic.0, best.periodic.1, best.periodic.2)
-                                        == case.truth.1;
+                                let sh = best.shape;
+                                let ceiling = (sh.p as usize, sh.d as usize, sh.q as usize)
+                                    == case.truth.0
+                                    && (
+                                        sh.seasonal_p as usize,
+                                        sh.seasonal_d as usize,
+                                        sh.seasonal_q as usize,
+                                    ) == case.truth.1;
                                 Some((
                                     step_hit,
                                     full_hit,

@@ -13,7 +13,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         .generate(120, 2024);
     let fit = Blueprint::builder()
         .nonseasonal(1, 0, 0)
-        .periodic(0, 1, 1, 4)
+        .seasonal(0, 1, 1, 4)
         .build()?
         .fit(&x)?;
     std::fs::write(

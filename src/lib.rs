@@ -22,7 +22,7 @@
 //!
 //! let cg = Correlogram::compute(&readings, 24)?;
 //! let band = cg.bands(0.95, BandRule::WhiteNoise)?;
-//! assert!(cg.autocorrelations()[1] > band[0]); // strongly autocorrelated
+//! assert!(cg.autocorrelation(1).unwrap() > band.at(1).unwrap()); // strongly autocorrelated
 //!
 //! // The raw readings are far from white noise:
 //! let scan = PortmanteauScan::compute(&readings, 24, 0)?;
@@ -77,7 +77,7 @@
 //!
 //! ## Performance
 //! Correlograms cost `O(n·H)` multiply-adds over cache-sized blocks and allocate only a
-//! block buffer (reusable through [`CorrelogramScratch`]): 10⁷ readings to lag 200 in well
+//! block buffer (reusable through [`CorrelogramWorkspace`]): 10⁷ readings to lag 200 in well
 //! under a second on one core. Building with `RUSTFLAGS="-C target-cpu=native"` enables
 //! wider vector units and FMA; numbers in the README give both builds where it matters.
 //!
@@ -123,7 +123,7 @@ pub use fit::fitted::{
 pub use fleet::{
     FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, WhitenessDigest,
 };
-pub use forecast::{Forecast, ForecastStep, Monitor, ReadingCheck};
+pub use forecast::{Forecast, ForecastStep, Monitor, PredictionInterval, ReadingCheck};
 pub use model::blueprint::{
     Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
     Term,
@@ -134,11 +134,11 @@ pub use model::lag::{
 };
 pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use select::search::{
-    Candidate, SearchOutcome, SearchSettings, choose_differencing, search_orders,
-    search_orders_with,
+    Candidate, DifferencingChoice, OrderBounds, SearchOutcome, SearchSettings,
+    SearchSettingsBuilder, choose_differencing, search_orders, search_orders_with,
 };
 pub use stats::correlogram::{
-    BandRule, Correlogram, CorrelogramScratch, CrossCorrelogram, cross_correlogram,
+    BandRule, Correlogram, CorrelogramWorkspace, CrossCorrelogram, LagValues, cross_correlogram,
     cross_correlogram_with, partial_from_autocorrelations,
 };
 pub use stats::criteria::{Criterion, InformationCriteria};

@@ -66,7 +66,7 @@ fn likelihood_evaluations_do_not_allocate() {
         (
             Blueprint::builder()
                 .nonseasonal(1, 0, 1)
-                .periodic(0, 1, 1, 24)
+                .seasonal(0, 1, 1, 24)
                 .build()
                 .unwrap(),
             {

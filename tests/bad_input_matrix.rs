@@ -122,7 +122,7 @@ fn matrix() {
         (
             "inf",
             "search",
-            variant(search_orders(&with_inf, &SearchSettings::new(1))),
+            variant(search_orders(&with_inf, &SearchSettings::default())),
             "NonFiniteReading",
         ),
         (
@@ -160,7 +160,7 @@ fn matrix() {
         (
             "empty",
             "search",
-            variant(search_orders(&[], &SearchSettings::new(1))),
+            variant(search_orders(&[], &SearchSettings::default())),
             "EmptySeries",
         ),
         // one reading
@@ -195,7 +195,7 @@ fn matrix() {
             "seasonal fit",
             variant(
                 Blueprint::builder()
-                    .periodic(0, 1, 1, 12)
+                    .seasonal(0, 1, 1, 12)
                     .build()
                     .unwrap()
                     .fit(&good[..12]),
@@ -230,7 +230,7 @@ fn matrix() {
         (
             "constant",
             "search",
-            variant(search_orders(&constant, &SearchSettings::new(1))),
+            variant(search_orders(&constant, &SearchSettings::default())),
             "ConstantSeries",
         ),
         // all missing
@@ -309,19 +309,19 @@ fn matrix() {
         (
             "absurd orders",
             "blueprint",
-            variant(Blueprint::builder().periodic(1, 0, 0, 1_000_000).build()),
+            variant(Blueprint::builder().seasonal(1, 0, 0, 1_000_000).build()),
             "InvalidSpecification",
         ),
         (
             "period 0",
             "blueprint",
-            variant(Blueprint::builder().periodic(1, 0, 0, 0).build()),
+            variant(Blueprint::builder().seasonal(1, 0, 0, 0).build()),
             "InvalidSpecification",
         ),
         (
             "period 1",
             "blueprint",
-            variant(Blueprint::builder().periodic(0, 1, 1, 1).build()),
+            variant(Blueprint::builder().seasonal(0, 1, 1, 1).build()),
             "InvalidSpecification",
         ),
         (

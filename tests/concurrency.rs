@@ -22,7 +22,7 @@ fn public_types_are_send_and_sync() {
     shareable::<lagwise::FleetReport<String>>();
     shareable::<lagwise::LikelihoodSurface>();
     shareable::<lagwise::FitWorkspace>();
-    shareable::<lagwise::CorrelogramScratch>();
+    shareable::<lagwise::CorrelogramWorkspace>();
     shareable::<lagwise::SearchOutcome>();
     shareable::<lagwise::Error>();
 }

@@ -112,7 +112,7 @@ fn conditioning_convention_is_documented_one() {
         .generate(200, 3);
     let fit = Blueprint::builder()
         .nonseasonal(1, 0, 0)
-        .periodic(1, 0, 0, 4)
+        .seasonal(1, 0, 0, 4)
         .estimator(Estimator::ConditionalSumOfSquares)
         .build()
         .unwrap()
@@ -147,7 +147,7 @@ fn bad_input_gets_typed_errors() {
     ));
     let big = Blueprint::builder()
         .nonseasonal(3, 1, 2)
-        .periodic(0, 1, 1, 12)
+        .seasonal(0, 1, 1, 12)
         .build()
         .unwrap();
     let x: Vec<f64> = (0..20).map(|t| (t as f64).sin()).collect();
@@ -171,7 +171,7 @@ fn bad_input_gets_typed_errors() {
     );
     // Specification errors surface at build time.
     for b in [
-        Blueprint::builder().periodic(1, 0, 0, 1).clone(),
+        Blueprint::builder().seasonal(1, 0, 0, 1).clone(),
         Blueprint::builder()
             .nonseasonal(1, 0, 0)
             .hold(Term::Ar(1), f64::INFINITY)
@@ -355,4 +355,53 @@ fn residuals_are_readings_minus_fit() {
         let m = arma.residuals().iter().sum::<f64>() / 300.0;
         assert!(m.abs() < 0.05, "level {level}: residual mean {m}");
     }
+}
+
+/// Coefficient tests and the residual verdict read off the report: `z = value / s.e.`,
+/// `p = 2(1 − Φ(|z|))` checked against the handbook approximation of erfc (Abramowitz &
+/// Stegun 7.1.26, absolute error below 1.5e-7; formula from memory), and a verdict line
+/// whose printed p-value, level and verdict agree with each other.
+#[test]
+fn coefficient_tests_and_verdict_line_are_checkable() {
+    let x = Simulator::builder()
+        .autoregressive(&[0.6])
+        .level(20.0)
+        .build()
+        .unwrap()
+        .generate(600, 77);
+    let mut ws = FitWorkspace::new();
+    let fit = fit_ar1(&x, &mut ws);
+    let erfc = |x: f64| {
+        let t = 1.0 / (1.0 + 0.3275911 * x);
+        let poly = t
+            * (0.254829592
+                + t * (-0.284496736 + t * (1.421413741 + t * (-1.453152027 + t * 1.061405429))));
+        poly * (-x * x).exp()
+    };
+    for c in fit.coefficients() {
+        let se = c.std_error.expect("standard error");
+        let z = c.z_statistic().unwrap();
+        assert_eq!(z, c.value / se);
+        let want = erfc(z.abs() / std::f64::consts::SQRT_2);
+        assert!((c.p_value().unwrap() - want).abs() < 2e-7, "{:?}", c.term);
+    }
+    let report = fit.to_string();
+    assert!(report.contains(" z ") && report.contains(" p"), "{report}");
+    let h = fit.default_check_lags();
+    let check = fit.residual_check(h, 0.05).unwrap();
+    let line = check.verdict_line();
+    let p = check.portmanteau.row(h).unwrap().ljung_box_p_value.unwrap();
+    assert!(line.contains(&format!("lag H = {h}")), "{line}");
+    assert!(line.contains(&format!("p = {p:.4}")), "{line}");
+    let (sign, verdict) = if p >= 0.05 {
+        ("≥", "→ white")
+    } else {
+        ("<", "→ NOT white")
+    };
+    assert!(
+        line.contains(&format!("{sign} α = 0.05 {verdict}")),
+        "{line}"
+    );
+    assert_eq!(check.white, p >= 0.05);
+    assert!(report.contains(&line), "{report}");
 }

@@ -14,7 +14,7 @@ fn blueprint(spec: &serde_json::Value, estimator: Estimator) -> Blueprint {
     let u = |k: &str| spec[k].as_u64().unwrap() as usize;
     Blueprint::builder()
         .nonseasonal(u("p"), u("d"), u("q"))
-        .periodic(u("P"), u("D"), u("Q"), u("s"))
+        .seasonal(u("P"), u("D"), u("Q"), u("s"))
         .mean_term(spec["mean"].as_bool().unwrap())
         .drift_term(spec["drift"].as_bool().unwrap())
         .estimator(estimator)
@@ -101,7 +101,7 @@ fn airline_model_published_values() {
         .collect();
     let fit = Blueprint::builder()
         .nonseasonal(0, 1, 1)
-        .periodic(0, 1, 1, 12)
+        .seasonal(0, 1, 1, 12)
         .build()
         .unwrap()
         .fit(&x)

@@ -172,7 +172,7 @@ fn order_search_per_series() {
         .threads(2)
         .build()
         .unwrap()
-        .search_slices(&lagwise::SearchSettings::new(1), &refs);
+        .search_slices(&lagwise::SearchSettings::default(), &refs);
     assert_eq!(report.fitted(), 6);
     for (_, r) in &report.outcomes {
         let s = r.as_ref().unwrap();

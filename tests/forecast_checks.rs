@@ -38,7 +38,7 @@ fn interval_coverage_monte_carlo() {
             .unwrap(),
         blueprint: Blueprint::builder()
             .nonseasonal(1, 0, 0)
-            .periodic(0, 1, 1, 12)
+            .seasonal(0, 1, 1, 12)
             .hold(Term::Ar(1), 0.5)
             .hold(Term::SeasonalMa(1), -0.6)
             .estimator(Estimator::ExactLikelihood)
@@ -96,12 +96,17 @@ fn future_regressors_are_required_and_checked() {
         .fit_regression(&y, &[&x])
         .unwrap();
     assert!(fit.forecast(5, &[0.9]).is_err());
-    assert!(fit.forecast_with(5, &[0.9], &[&x[..4]]).is_err());
-    let fc = fit.forecast_with(5, &[0.9], &[&x[..5]]).unwrap();
+    assert!(
+        fit.forecast_given_regressors(5, &[0.9], &[&x[..4]])
+            .is_err()
+    );
+    let fc = fit
+        .forecast_given_regressors(5, &[0.9], &[&x[..5]])
+        .unwrap();
     assert_eq!(fc.steps.len(), 5);
     let mut bad = x[..5].to_vec();
     bad[2] = f64::INFINITY;
-    assert!(fit.forecast_with(5, &[0.9], &[&bad]).is_err());
+    assert!(fit.forecast_given_regressors(5, &[0.9], &[&bad]).is_err());
     assert!(fit.forecast(5, &[1.5]).is_err());
 }
 
@@ -133,7 +138,7 @@ fn blueprint(kind: usize) -> Blueprint {
         1 => Blueprint::builder().nonseasonal(0, 1, 1).build(),
         _ => Blueprint::builder()
             .nonseasonal(1, 0, 0)
-            .periodic(0, 1, 1, 6)
+            .seasonal(0, 1, 1, 6)
             .build(),
     }
     .unwrap()

@@ -16,7 +16,7 @@ fn forecasts_equal_dense_best_linear_predictor() {
         let u = |k: &str| case[k].as_u64().unwrap() as usize;
         let mut b = Blueprint::builder();
         b.nonseasonal(ar.len(), u("d"), ma.len())
-            .periodic(sar.len(), u("D"), sma.len(), u("s"))
+            .seasonal(sar.len(), u("D"), sma.len(), u("s"))
             .mean_term(false)
             .estimator(Estimator::ExactLikelihood);
         for (i, v) in ar.iter().enumerate() {
@@ -53,7 +53,8 @@ fn forecasts_equal_dense_best_linear_predictor() {
                 j + 1,
                 sds[j]
             );
-            let half = 0.5 * (step.bounds[0].1 - step.bounds[0].0);
+            let band = step.intervals[0];
+            let half = 0.5 * (band.upper - band.lower);
             assert!((half - 1.959963984540054 * step.sd).abs() < 1e-9 * half);
         }
     }

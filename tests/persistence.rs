@@ -48,7 +48,7 @@ fn sample_fit(kind: usize, seed: u64) -> FittedModel {
                 .generate(300, seed);
             Blueprint::builder()
                 .nonseasonal(1, 0, 0)
-                .periodic(0, 1, 1, 8)
+                .seasonal(0, 1, 1, 8)
                 .build()
                 .unwrap()
                 .fit(&x)

@@ -105,7 +105,7 @@ fn differencing_decisions() {
         .filter(|s| {
             choose_differencing(&rw.generate(500, 70_000 + s), 1)
                 .unwrap()
-                .0
+                .d
                 == 1
         })
         .count();
@@ -114,7 +114,7 @@ fn differencing_decisions() {
         .filter(|s| {
             choose_differencing(&wn.generate(500, 80_000 + s), 1)
                 .unwrap()
-                .0
+                .d
                 == 0
         })
         .count();
@@ -189,13 +189,16 @@ fn order_recovery_rates() {
                 .build()
                 .unwrap(),
             period: 12,
-            want: "SARIMA(1,0,0)(0,1,1)[12]",
+            want: "SARIMA(1,0,0)×(0,1,1)₁₂",
             reps: 40,
             floor: 0.25,
         },
     ];
     for case in cases {
-        let settings = SearchSettings::new(case.period);
+        let settings = SearchSettings::builder()
+            .period(case.period)
+            .build()
+            .unwrap();
         let hits = (0..case.reps)
             .into_par_iter()
             .filter(|s| {
@@ -230,9 +233,9 @@ fn airline_search_passes_the_gate() {
         .iter()
         .map(|v| v.ln())
         .collect();
-    let out = search_orders(&y, &SearchSettings::new(12)).unwrap();
+    let out = search_orders(&y, &SearchSettings::builder().period(12).build().unwrap()).unwrap();
     assert!(out.adequate, "{out}");
-    assert_eq!(out.differencing.1, 1, "{out}");
+    assert_eq!(out.differencing.seasonal_d, 1, "{out}");
     assert!(out.candidates.len() >= 5);
     assert!(out.explanation.contains("chose"));
     // The search computes standard errors for the chosen candidate only; they are those
@@ -283,6 +286,6 @@ fn strength_and_bad_input() {
             .kind(),
         ErrorKind::TooShort { .. }
     ));
-    assert!(search_orders(&short, &SearchSettings::new(1)).is_err());
-    assert!(search_orders(&[5.0; 100], &SearchSettings::new(1)).is_err());
+    assert!(search_orders(&short, &SearchSettings::default()).is_err());
+    assert!(search_orders(&[5.0; 100], &SearchSettings::default()).is_err());
 }

@@ -16,10 +16,10 @@ pub(crate) fn correlogram(data: &[u8]) {
         .map(|c| f64::from_le_bytes([c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7]]))
         .collect();
     if let Ok(cg) = lagwise::Correlogram::compute(&values, max_lag) {
-        for r in cg.autocorrelations() {
+        for r in cg.autocorrelations().values() {
             assert!(r.abs() <= 1.0, "autocorrelation outside [-1, 1]: {r}");
         }
-        for p in cg.partial_autocorrelations() {
+        for p in cg.partial_autocorrelations().values() {
             assert!(
                 p.abs() <= 1.0,
                 "partial autocorrelation outside [-1, 1]: {p}"
@@ -99,7 +99,7 @@ fn blueprint(b: &mut Bytes<'_>) -> Option<lagwise::Blueprint> {
     let mut builder = lagwise::Blueprint::builder();
     builder
         .nonseasonal(p, d, q)
-        .periodic(sp, sd, sq, period)
+        .seasonal(sp, sd, sq, period)
         .estimator(match flags % 3 {
             0 => lagwise::Estimator::ConditionalSumOfSquares,
             1 => lagwise::Estimator::ExactLikelihood,

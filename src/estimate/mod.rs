@@ -1355,6 +1355,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
         // inside ±0.999) by the Durbin–Levinson map.
         let kappa: Vec<f64> = cg
             .partial_autocorrelations()
+            .values()
             .iter()
             .map(|k| k.clamp(-0.999, 0.999))
             .collect();

@@ -5,6 +5,7 @@ use std::fmt;
 
 use serde::{Deserialize, Serialize};
 
+use crate::base::dist::normal_two_sided_p;
 use crate::base::error::{Error, Result};
 use crate::base::linalg;
 use crate::estimate::{self, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
@@ -12,7 +13,7 @@ use crate::filter::forecasting::{FilterState, ForecastModel};
 use crate::model::blueprint::{Blueprint, Estimator, Term};
 use crate::model::coefficients::{Factor, FactorCoefficients};
 use crate::model::lag::{self, Complex};
-use crate::stats::correlogram::{BandRule, Correlogram, CorrelogramScratch};
+use crate::stats::correlogram::{BandRule, Correlogram, CorrelogramWorkspace, LagValues};
 use crate::stats::criteria::InformationCriteria;
 use crate::stats::portmanteau::PortmanteauScan;
 
@@ -71,6 +72,22 @@ pub struct CoefficientEstimate {
     pub std_error: Option<f64>,
     /// Whether the value was held (not estimated).
     pub held: bool,
+}
+
+impl CoefficientEstimate {
+    /// The Wald statistic `value / std_error` for the hypothesis that the coefficient is
+    /// zero (`None` without a standard error).
+    pub fn z_statistic(&self) -> Option<f64> {
+        self.std_error
+            .filter(|se| *se > 0.0)
+            .map(|se| self.value / se)
+    }
+    /// The two-sided p-value of [`CoefficientEstimate::z_statistic`] under the
+    /// asymptotic normal distribution of the estimate, `2·(1 − Φ(|z|))`. Trust it only
+    /// once the residual check says the residuals are white.
+    pub fn p_value(&self) -> Option<f64> {
+        self.z_statistic().map(normal_two_sided_p)
+    }
 }
 
 /// How the readings were used.
@@ -708,8 +725,8 @@ pub(crate) fn fingerprint(series: &[f64]) -> u64 {
 pub struct ResidualCheck {
     /// Correlogram (ACF and PACF) of the standardized residuals.
     pub correlogram: Correlogram,
-    /// 95% white-noise band half-width per lag (index 0 = lag 1).
-    pub band: Vec<f64>,
+    /// White-noise band half-width per lag at level `1 − alpha`, keyed by lag (from 1).
+    pub band: LagValues,
     /// Portmanteau statistics for lags 1..=H.
     pub portmanteau: PortmanteauScan,
     /// Significance level used for `white`.
@@ -719,6 +736,37 @@ pub struct ResidualCheck {
     /// per-lag p-values of the scan are for inspection — requiring every one of them to
     /// pass would reject about three times as many adequate models at H = 10.)
     pub white: bool,
+}
+
+impl ResidualCheck {
+    /// The check in one line a reader can verify: the Ljung–Box statistic at the check
+    /// lag `H`, its degrees of freedom and p-value against `alpha`, the verdict that
+    /// follows, and, for inspection only, the smallest p-value over lags `1..=H`. The
+    /// rule: **white when the p-value at lag `H` is at least `alpha`** (see
+    /// [`ResidualCheck::white`]).
+    pub fn verdict_line(&self) -> String {
+        let h = self.portmanteau.rows().len();
+        let at_h = self.portmanteau.row(h);
+        let head = match at_h.and_then(|r| r.ljung_box_p_value.map(|p| (r, p))) {
+            Some((r, p)) => format!(
+                "residuals: Ljung–Box at lag H = {h}: Q = {:.2} on {} df, p = {p:.4} {} α = {} → {}",
+                r.ljung_box,
+                r.degrees_of_freedom.unwrap_or(0),
+                if p >= self.alpha { "≥" } else { "<" },
+                self.alpha,
+                if self.white { "white" } else { "NOT white" }
+            ),
+            None => format!(
+                "residuals: no degrees of freedom left at lag H = {h} → no verdict (treated as white)"
+            ),
+        };
+        match self.portmanteau.smallest_ljung_box_p_value() {
+            Some((lag, p)) => {
+                format!("{head} (smallest p over lags 1..{h}: {p:.4} at lag {lag}, for inspection)")
+            }
+            None => head,
+        }
+    }
 }
 
 impl FittedModel {
@@ -820,7 +868,7 @@ impl FittedModel {
                 format!("alpha {alpha} must be in (0, 1)"),
             ));
         }
-        let mut scratch = CorrelogramScratch::new();
+        let mut scratch = CorrelogramWorkspace::new();
         // Standardized innovations: each divided by its own filter standard deviation, so
         // early innovations (large variance before the filter settles) do not swamp the
         // autocorrelations.
@@ -875,36 +923,23 @@ impl fmt::Display for FittedModel {
         )?;
         writeln!(
             f,
-            "   {:<20} {:>12} {:>11} {:>9}",
-            "term", "value", "± 1 sd", "value/sd"
+            "   {:<20} {:>12} {:>11} {:>8} {:>8}",
+            "term", "value", "± 1 sd", "z", "p"
         )?;
         for e in &self.coefficients {
-            match (e.held, e.std_error) {
-                (true, _) => writeln!(
-                    f,
-                    "   {:<20} {:>12.6} {:>11} {:>9}",
-                    e.term.to_string(),
-                    e.value,
-                    "held",
-                    ""
-                )?,
-                (false, Some(se)) => writeln!(
-                    f,
-                    "   {:<20} {:>12.6} {:>11.6} {:>9.2}",
-                    e.term.to_string(),
-                    e.value,
-                    se,
-                    e.value / se
-                )?,
-                (false, None) => writeln!(
-                    f,
-                    "   {:<20} {:>12.6} {:>11} {:>9}",
-                    e.term.to_string(),
-                    e.value,
-                    "n/a",
-                    ""
-                )?,
-            }
+            let (sd, z, p) = match (e.held, e.std_error, e.z_statistic(), e.p_value()) {
+                (true, ..) => ("held".to_string(), String::new(), String::new()),
+                (false, Some(se), Some(z), Some(p)) => {
+                    (format!("{se:.6}"), format!("{z:.2}"), format!("{p:.4}"))
+                }
+                _ => ("n/a".to_string(), String::new(), String::new()),
+            };
+            writeln!(
+                f,
+                "   {:<20} {:>12.6} {sd:>11} {z:>8} {p:>8}",
+                e.term.to_string(),
+                e.value,
+            )?;
         }
         writeln!(
             f,
@@ -957,22 +992,7 @@ impl fmt::Display for FittedModel {
             )?;
         }
         if let Ok(check) = self.residual_check(self.default_check_lags(), 0.05) {
-            let p = check.portmanteau.smallest_ljung_box_p_value();
-            match p {
-                Some((lag, p)) => writeln!(
-                    f,
-                    "   residuals over lags 1..{}: smallest Ljung–Box p = {:.4} at lag {} → {}",
-                    check.portmanteau.rows().len(),
-                    p,
-                    lag,
-                    if check.white {
-                        "white at 5%"
-                    } else {
-                        "NOT white at 5%"
-                    }
-                )?,
-                None => writeln!(f, "   residuals: too few lags for a portmanteau test")?,
-            }
+            writeln!(f, "   {}", check.verdict_line())?;
         }
         for w in &self.warnings {
             writeln!(f, "   ! {w}")?;

@@ -21,8 +21,30 @@ pub struct ForecastStep {
     pub mean: f64,
     /// Forecast standard deviation.
     pub sd: f64,
-    /// `(lower, upper)` bounds, one pair per requested level, in the order requested.
-    pub bounds: Vec<(f64, f64)>,
+    /// The prediction intervals, one per requested level, in the order requested; read
+    /// one by its level with [`ForecastStep::interval`].
+    pub intervals: Vec<PredictionInterval>,
+}
+
+impl ForecastStep {
+    /// The interval at `level` (as requested, e.g. 0.95), if it was requested.
+    pub fn interval(&self, level: f64) -> Option<&PredictionInterval> {
+        self.intervals
+            .iter()
+            .find(|i| (i.level - level).abs() <= 1e-12)
+    }
+}
+
+/// A two-sided prediction interval `mean ± z·sd` at one level.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct PredictionInterval {
+    /// Coverage level (e.g. 0.95).
+    pub level: f64,
+    /// Lower bound.
+    pub lower: f64,
+    /// Upper bound.
+    pub upper: f64,
 }
 
 /// Forecasts `1..=h` steps ahead with intervals at the requested levels.
@@ -113,13 +135,21 @@ pub(crate) fn forecast_from(
         let (zm, f) = st.predict(m);
         let mean = zm + m.regression_at(st.next_index, &x);
         let sd = (m.sigma2 * f.max(0.0)).sqrt();
-        let bounds = zq.iter().map(|q| (mean - q * sd, mean + q * sd)).collect();
+        let intervals = levels
+            .iter()
+            .zip(&zq)
+            .map(|(&level, q)| PredictionInterval {
+                level,
+                lower: mean - q * sd,
+                upper: mean + q * sd,
+            })
+            .collect();
         steps.push(ForecastStep {
             step: h + 1,
             index: st.next_index,
             mean,
             sd,
-            bounds,
+            intervals,
         });
         st.advance(m);
     }
@@ -136,7 +166,7 @@ impl FittedModel {
     /// intervals at `levels` (e.g. `&[0.8, 0.95]`). Means and variances are exact given
     /// the readings (filter-based), integrated back through the differencing, and
     /// account for missing readings at the end of the series. Models with exogenous
-    /// regressors need [`FittedModel::forecast_with`].
+    /// regressors need [`FittedModel::forecast_given_regressors`].
     ///
     /// ```
     /// use lagwise::{Blueprint, Simulator};
@@ -146,7 +176,8 @@ impl FittedModel {
     /// let fc = fit.forecast(96, &[0.8, 0.95])?;
     /// let (s1, s96) = (&fc.steps[0], &fc.steps[95]);
     /// assert!(s96.sd > s1.sd);                       // wider further out
-    /// assert!(s1.bounds[0].1 - s1.bounds[0].0 < s1.bounds[1].1 - s1.bounds[1].0); // 80% inside 95%
+    /// let (i80, i95) = (s1.interval(0.8).unwrap(), s1.interval(0.95).unwrap());
+    /// assert!(i95.lower < i80.lower && i80.upper < i95.upper); // 80% inside 95%
     /// # Ok(()) }
     /// ```
     pub fn forecast(&self, horizon: usize, levels: &[f64]) -> Result<Forecast> {
@@ -155,7 +186,7 @@ impl FittedModel {
 
     /// [`FittedModel::forecast`] with future values of the exogenous regressors (one
     /// column per regressor, at least `horizon` values each).
-    pub fn forecast_with(
+    pub fn forecast_given_regressors(
         &self,
         horizon: usize,
         levels: &[f64],
@@ -284,13 +315,17 @@ impl Monitor {
     }
 
     /// Take one reading (NaN = missing: time advances without an update).
-    /// For models with exogenous regressors use [`Monitor::observe_with`].
+    /// For models with exogenous regressors use [`Monitor::observe_given_regressors`].
     pub fn observe(&mut self, reading: f64) -> Result<ReadingCheck> {
-        self.observe_with(reading, &[])
+        self.observe_given_regressors(reading, &[])
     }
 
     /// Take one reading with the current values of the exogenous regressors.
-    pub fn observe_with(&mut self, reading: f64, regressors: &[f64]) -> Result<ReadingCheck> {
+    pub fn observe_given_regressors(
+        &mut self,
+        reading: f64,
+        regressors: &[f64],
+    ) -> Result<ReadingCheck> {
         const WHAT: &str = "monitor";
         let k = self.model.exogenous();
         if regressors.len() != k {
@@ -352,7 +387,7 @@ impl Monitor {
 
     /// Forecast with future values of the exogenous regressors (one column per
     /// regressor, at least `horizon` values each).
-    pub fn forecast_with(
+    pub fn forecast_given_regressors(
         &self,
         horizon: usize,
         levels: &[f64],
@@ -412,7 +447,7 @@ mod tests {
             (
                 Blueprint::builder()
                     .nonseasonal(1, 0, 1)
-                    .periodic(0, 1, 1, 12)
+                    .seasonal(0, 1, 1, 12)
                     .build()
                     .unwrap(),
                 sim(&[0.5], &[0.2], &[-0.6], 12, 0, 1),

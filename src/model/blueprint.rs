@@ -109,14 +109,14 @@ impl std::fmt::Display for Estimator {
 /// // Return temperature: SARIMA(1,0,1)(0,1,1) with a daily period of 96 readings.
 /// let bp = Blueprint::builder()
 ///     .nonseasonal(1, 0, 1)
-///     .periodic(0, 1, 1, 96)
+///     .seasonal(0, 1, 1, 96)
 ///     .estimator(Estimator::StagedLikelihood)
 ///     .build()?;
 /// assert_eq!(bp.expanded_degrees(), (1, 97));
 /// assert!(!bp.has_mean()); // differenced: no mean by default
 ///
 /// // Bad settings fail at build time with a typed error:
-/// let err = Blueprint::builder().periodic(1, 0, 0, 1).build().unwrap_err();
+/// let err = Blueprint::builder().seasonal(1, 0, 0, 1).build().unwrap_err();
 /// assert!(err.to_string().contains("period"));
 /// let err = Blueprint::builder().nonseasonal(1, 0, 0).hold(Term::Ma(1), 0.3).build().unwrap_err();
 /// assert!(err.to_string().contains("theta.1"));
@@ -169,7 +169,7 @@ impl TryFrom<BlueprintRecord> for Blueprint {
     fn try_from(r: BlueprintRecord) -> std::result::Result<Self, String> {
         let mut b = Blueprint::builder();
         b.nonseasonal(r.p, r.d, r.q)
-            .periodic(r.seasonal_p, r.seasonal_d, r.seasonal_q, r.period)
+            .seasonal(r.seasonal_p, r.seasonal_d, r.seasonal_q, r.period)
             .mean_term(r.mean)
             .drift_term(r.drift)
             .exogenous(r.exogenous)
@@ -204,7 +204,7 @@ impl BlueprintBuilder {
         self
     }
     /// Seasonal orders `P`, `D`, `Q` at period `s` readings (`s ≥ 2` when any is non-zero).
-    pub fn periodic(&mut self, p: usize, d: usize, q: usize, period: usize) -> &mut Self {
+    pub fn seasonal(&mut self, p: usize, d: usize, q: usize, period: usize) -> &mut Self {
         self.seasonal = (p, d, q, period);
         self
     }
@@ -407,7 +407,7 @@ impl Blueprint {
         (self.p, self.d, self.q)
     }
     /// `(P, D, Q, s)`; `s = 1` when there are no seasonal terms.
-    pub fn periodic_orders(&self) -> (usize, usize, usize, usize) {
+    pub fn seasonal_orders(&self) -> (usize, usize, usize, usize) {
         (
             self.seasonal_p,
             self.seasonal_d,
@@ -482,25 +482,22 @@ impl Blueprint {
             .filter(|t| t.is_arma() && self.held_value(**t).is_none())
             .count()
     }
-    /// A short name of the model shape, e.g. `SARIMA(1,0,1)(0,1,1)[96] + mean`.
+    /// A short name of the model shape, e.g. `SARIMA(1,0,1)×(0,1,1)₉₆ + mean` (see
+    /// [`ModelShape`]).
     pub fn shape_label(&self) -> String {
         self.shape().to_string()
     }
     /// The model shape as a small copyable value (its `Display` is [`Self::shape_label`]).
     pub fn shape(&self) -> ModelShape {
-        let small = |v: usize| u8::try_from(v).unwrap_or(u8::MAX);
-        ModelShape {
-            p: small(self.p),
-            d: small(self.d),
-            q: small(self.q),
-            seasonal_p: small(self.seasonal_p),
-            seasonal_d: small(self.seasonal_d),
-            seasonal_q: small(self.seasonal_q),
-            period: u16::try_from(self.period).unwrap_or(u16::MAX),
-            mean: self.mean,
-            drift: self.drift,
-            exogenous: u32::try_from(self.exogenous).unwrap_or(u32::MAX),
-        }
+        let mut shape = ModelShape::of_orders(
+            [self.p, self.d, self.q],
+            [self.seasonal_p, self.seasonal_d, self.seasonal_q],
+            self.period,
+            self.mean,
+            self.drift,
+        );
+        shape.exogenous = u32::try_from(self.exogenous).unwrap_or(u32::MAX);
+        shape
     }
     pub(crate) fn factor_fully_held(&self, factor: Factor, len: usize) -> bool {
         (1..=len).all(|i| self.held_value(factor.term(i)).is_some())
@@ -508,8 +505,18 @@ impl Blueprint {
 }
 
 /// A model's orders and regression terms in 16 bytes (orders are at most
-/// [`MAX_ORDER`], periods at most 14,400). `Display` gives the label, e.g.
-/// `SARIMA(1,0,1)(0,1,1)[96] + mean`.
+/// [`MAX_ORDER`], periods at most 14,400). `Display` gives the one label the crate uses
+/// everywhere (reports, search accounts, fleet tables), in the textbook notation with the
+/// period as a subscript: `ARMA(2,0)`, `ARIMA(0,1,1) + drift`,
+/// `SARIMA(1,0,1)×(0,1,1)₉₆ + mean`.
+///
+/// ```
+/// use lagwise::Blueprint;
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let bp = Blueprint::builder().nonseasonal(1, 0, 1).seasonal(0, 1, 1, 96).build()?;
+/// assert_eq!(bp.shape().to_string(), "SARIMA(1,0,1)×(0,1,1)₉₆");
+/// # Ok(()) }
+/// ```
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[non_exhaustive]
 pub struct ModelShape {
@@ -535,19 +542,46 @@ pub struct ModelShape {
     pub exogenous: u32,
 }
 
+impl ModelShape {
+    /// The shape of `(p, d, q)×(P, D, Q)ₛ` with an optional mean or drift and no
+    /// regressors (orders saturate at 255, periods at 65,535: blueprints never get there).
+    pub(crate) fn of_orders(
+        [p, d, q]: [usize; 3],
+        [seasonal_p, seasonal_d, seasonal_q]: [usize; 3],
+        period: usize,
+        mean: bool,
+        drift: bool,
+    ) -> Self {
+        let small = |v: usize| u8::try_from(v).unwrap_or(u8::MAX);
+        ModelShape {
+            p: small(p),
+            d: small(d),
+            q: small(q),
+            seasonal_p: small(seasonal_p),
+            seasonal_d: small(seasonal_d),
+            seasonal_q: small(seasonal_q),
+            period: u16::try_from(period).unwrap_or(u16::MAX),
+            mean,
+            drift,
+            exogenous: 0,
+        }
+    }
+}
+
 impl std::fmt::Display for ModelShape {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         if self.period > 1 {
+            const SUBSCRIPTS: [char; 10] = ['₀', '₁', '₂', '₃', '₄', '₅', '₆', '₇', '₈', '₉'];
+            let period: String = self
+                .period
+                .to_string()
+                .chars()
+                .map(|c| c.to_digit(10).map_or(c, |d| SUBSCRIPTS[d as usize]))
+                .collect();
             write!(
                 f,
-                "SARIMA({},{},{})({},{},{})[{}]",
-                self.p,
-                self.d,
-                self.q,
-                self.seasonal_p,
-                self.seasonal_d,
-                self.seasonal_q,
-                self.period
+                "SARIMA({},{},{})×({},{},{}){period}",
+                self.p, self.d, self.q, self.seasonal_p, self.seasonal_d, self.seasonal_q,
             )?;
         } else if self.d > 0 {
             write!(f, "ARIMA({},{},{})", self.p, self.d, self.q)?;
@@ -590,7 +624,7 @@ mod tests {
     #[test]
     fn refusals_name_the_field() {
         let cases: Vec<(BlueprintBuilder, &str)> = vec![
-            (Blueprint::builder().periodic(0, 1, 1, 0).clone(), "period"),
+            (Blueprint::builder().seasonal(0, 1, 1, 0).clone(), "period"),
             (
                 Blueprint::builder()
                     .nonseasonal(0, 1, 0)

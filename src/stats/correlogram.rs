@@ -1,6 +1,8 @@
 //! Sample autocovariance, autocorrelation, partial autocorrelation, cross-correlation and
 //! their confidence bands.
 
+use serde::{Deserialize, Serialize};
+
 use crate::base::dist::two_sided_quantile;
 use crate::base::error::{Error, ErrorKind, Result};
 use crate::base::screen::{ConstantPolicy, Screened, screen};
@@ -13,13 +15,13 @@ const BLOCK: usize = 2048;
 /// Create it once per worker and pass it to every call; it grows to the largest lag asked
 /// for and is then reused without allocating.
 #[derive(Debug, Default, Clone)]
-pub struct CorrelogramScratch {
+pub struct CorrelogramWorkspace {
     left: Vec<f64>,
     right: Vec<f64>,
 }
 
-impl CorrelogramScratch {
-    /// An empty scratch buffer; it sizes itself on first use.
+impl CorrelogramWorkspace {
+    /// An empty workspace; it sizes itself on first use.
     pub fn new() -> Self {
         Self::default()
     }
@@ -104,15 +106,15 @@ fn lag_sums(
     u: (f64, f64),
     w_values: Option<(&[f64], f64, f64)>,
     max_lag: usize,
-    scratch: &mut CorrelogramScratch,
+    workspace: &mut CorrelogramWorkspace,
     out: &mut [f64],
 ) {
     let need = BLOCK + max_lag + 3;
-    if scratch.left.len() < need {
-        scratch.left.resize(need, 0.0);
+    if workspace.left.len() < need {
+        workspace.left.resize(need, 0.0);
     }
-    if w_values.is_some() && scratch.right.len() < BLOCK {
-        scratch.right.resize(BLOCK, 0.0);
+    if w_values.is_some() && workspace.right.len() < BLOCK {
+        workspace.right.resize(BLOCK, 0.0);
     }
     for o in out.iter_mut() {
         *o = 0.0;
@@ -121,16 +123,16 @@ fn lag_sums(
     let mut start = 0;
     while start < n {
         let len = BLOCK.min(n - start);
-        fill_block(u_values, start, u.0, u.1, &mut scratch.left[..need]);
+        fill_block(u_values, start, u.0, u.1, &mut workspace.left[..need]);
         match w_values {
             None => {
-                let base = &scratch.left[..len];
-                accumulate_lags(base, &scratch.left, len, out);
+                let base = &workspace.left[..len];
+                accumulate_lags(base, &workspace.left, len, out);
             }
             Some((w, mean, inv)) => {
-                fill_block(w, start, mean, inv, &mut scratch.right[..BLOCK]);
-                let base = &scratch.right[..len];
-                accumulate_lags(base, &scratch.left, len, out);
+                fill_block(w, start, mean, inv, &mut workspace.right[..BLOCK]);
+                let base = &workspace.right[..len];
+                accumulate_lags(base, &workspace.left, len, out);
             }
         }
         start += len;
@@ -155,6 +157,71 @@ fn accumulate_lags(base: &[f64], shifted: &[f64], len: usize, out: &mut [f64]) {
     }
 }
 
+/// Values keyed by lag: autocorrelations and autocovariances (from lag 0), partial
+/// autocorrelations and band half-widths (from lag 1). [`LagValues::at`] takes the lag
+/// itself, whatever the first lag is, so reading lag `k` is the same call everywhere.
+///
+/// ```
+/// use lagwise::{BandRule, Correlogram};
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let cg = Correlogram::compute(&[1.0, 3.0, 2.0, 5.0, 4.0, 3.0, 5.0, 4.0], 3)?;
+/// let (acf, pacf) = (cg.autocorrelations(), cg.partial_autocorrelations());
+/// assert_eq!(acf.at(0), Some(1.0));
+/// assert_eq!(pacf.at(1), acf.at(1)); // the first partial autocorrelation is r(1)
+/// assert_eq!(pacf.at(0), None); // partial autocorrelations start at lag 1
+/// let band = cg.bands(0.95, BandRule::WhiteNoise)?;
+/// for (lag, r) in acf.iter().skip(1) {
+///     let _outside = r.abs() > band.at(lag).unwrap();
+/// }
+/// # Ok(()) }
+/// ```
+///
+/// Serialised as `{"first_lag": k, "values": [...]}` with undefined values as `null`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LagValues {
+    first_lag: usize,
+    #[serde(with = "crate::base::nan_as_null")]
+    values: Vec<f64>,
+}
+
+impl LagValues {
+    pub(crate) fn new(first_lag: usize, values: Vec<f64>) -> Self {
+        LagValues { first_lag, values }
+    }
+    /// The value at `lag`, or `None` outside `first_lag()..=last_lag()`.
+    pub fn at(&self, lag: usize) -> Option<f64> {
+        lag.checked_sub(self.first_lag)
+            .and_then(|i| self.values.get(i).copied())
+    }
+    /// The smallest lag held (0 or 1).
+    pub fn first_lag(&self) -> usize {
+        self.first_lag
+    }
+    /// The largest lag held (`None` when empty).
+    pub fn last_lag(&self) -> Option<usize> {
+        (!self.values.is_empty()).then(|| self.first_lag + self.values.len() - 1)
+    }
+    /// Number of lags held.
+    pub fn len(&self) -> usize {
+        self.values.len()
+    }
+    /// Whether no lag is held.
+    pub fn is_empty(&self) -> bool {
+        self.values.is_empty()
+    }
+    /// `(lag, value)` pairs in lag order.
+    pub fn iter(&self) -> impl Iterator<Item = (usize, f64)> + '_ {
+        self.values
+            .iter()
+            .enumerate()
+            .map(move |(i, &v)| (self.first_lag + i, v))
+    }
+    /// The values in lag order; the first one is at [`LagValues::first_lag`].
+    pub fn values(&self) -> &[f64] {
+        &self.values
+    }
+}
+
 /// Sample autocorrelation function of one series, with its partial autocorrelations.
 ///
 /// ```
@@ -162,9 +229,9 @@ fn accumulate_lags(base: &[f64], shifted: &[f64], len: usize, out: &mut [f64]) {
 /// # fn main() -> Result<(), lagwise::Error> {
 /// let readings = [1.0, 3.0, 2.0, f64::NAN, 4.0, 3.0, 5.0, 4.0];
 /// let cg = Correlogram::compute(&readings, 3)?;
-/// assert_eq!(cg.autocorrelations()[0], 1.0);
+/// assert_eq!(cg.autocorrelations().at(0), Some(1.0));
 /// assert_eq!(cg.readings_present(), 7);
-/// assert_eq!(cg.partial_autocorrelations()[0], cg.autocorrelations()[1]);
+/// assert_eq!(cg.partial_autocorrelation(1), cg.autocorrelation(1));
 /// # Ok(()) }
 /// ```
 ///
@@ -188,7 +255,7 @@ fn accumulate_lags(base: &[f64], shifted: &[f64], len: usize, out: &mut [f64]) {
 /// maximum lag `H`, over cache-sized blocks (2,048 readings plus `H` look-ahead) with
 /// eight independent accumulators so the compiler vectorises the inner product. The only
 /// allocation is the block buffer (`2,048 + H + 3` values), reusable through
-/// [`CorrelogramScratch`]; the caller's series is never copied. 10⁷ readings to lag 200
+/// [`CorrelogramWorkspace`]; the caller's series is never copied. 10⁷ readings to lag 200
 /// take about 0.2–0.4 s on one core (see `benches/autocorrelation.rs` and the README).
 /// Direct sums were chosen over an FFT because they are exact in the sense of plain
 /// floating-point summation (no spectral leakage of rounding error into small lags), need
@@ -201,9 +268,9 @@ pub struct Correlogram {
     length: usize,
     present: usize,
     mean: f64,
-    autocovariance: Vec<f64>,
-    autocorrelation: Vec<f64>,
-    partial: Vec<f64>,
+    autocovariance: LagValues,
+    autocorrelation: LagValues,
+    partial: LagValues,
 }
 
 impl Correlogram {
@@ -212,14 +279,14 @@ impl Correlogram {
     /// Errors: empty series, ±inf readings, all missing, fewer than two readings,
     /// a constant series, or `max_lag >= values.len()`.
     pub fn compute(values: &[f64], max_lag: usize) -> Result<Self> {
-        Self::compute_with(values, max_lag, &mut CorrelogramScratch::new())
+        Self::compute_with(values, max_lag, &mut CorrelogramWorkspace::new())
     }
 
-    /// [`Correlogram::compute`] on a caller-held scratch buffer.
+    /// [`Correlogram::compute`] on a caller-held workspace.
     pub fn compute_with(
         values: &[f64],
         max_lag: usize,
-        scratch: &mut CorrelogramScratch,
+        workspace: &mut CorrelogramWorkspace,
     ) -> Result<Self> {
         const WHAT: &str = "correlogram";
         let s = screen(values, WHAT, 2, ConstantPolicy::Refuse)?;
@@ -230,7 +297,7 @@ impl Correlogram {
             (s.mean, 1.0 / s.scale),
             None,
             max_lag,
-            scratch,
+            workspace,
             &mut sums,
         );
         Self::from_sums(values.len(), s, sums)
@@ -252,9 +319,9 @@ impl Correlogram {
             length,
             present: s.present,
             mean: s.mean,
-            autocovariance,
-            autocorrelation,
-            partial,
+            autocovariance: LagValues::new(0, autocovariance),
+            autocorrelation: LagValues::new(0, autocorrelation),
+            partial: LagValues::new(1, partial),
         })
     }
 
@@ -278,24 +345,32 @@ impl Correlogram {
     ///
     /// For readings near ±f64::MAX the squared units overflow and entries are ±inf; the
     /// autocorrelations are computed on rescaled values and stay exact.
-    pub fn autocovariances(&self) -> &[f64] {
+    pub fn autocovariances(&self) -> &LagValues {
         &self.autocovariance
     }
     /// Autocorrelations `r(0..=H)`; `r(0) = 1`.
-    pub fn autocorrelations(&self) -> &[f64] {
+    pub fn autocorrelations(&self) -> &LagValues {
         &self.autocorrelation
     }
-    /// Partial autocorrelations at lags `1..=H` (index 0 is lag 1), by Durbin–Levinson.
+    /// Partial autocorrelations at lags `1..=H`, by Durbin–Levinson.
     ///
-    /// The slice is shorter than `H` only when the sample autocorrelations describe an
-    /// exactly predictable series (the prediction-error variance reaches zero); the
-    /// partial autocorrelation is undefined beyond that lag.
-    pub fn partial_autocorrelations(&self) -> &[f64] {
+    /// They stop short of `H` only when the sample autocorrelations describe an exactly
+    /// predictable series (the prediction-error variance reaches zero); the partial
+    /// autocorrelation is undefined beyond that lag.
+    pub fn partial_autocorrelations(&self) -> &LagValues {
         &self.partial
+    }
+    /// The autocorrelation `r(lag)` (`None` beyond the largest lag).
+    pub fn autocorrelation(&self, lag: usize) -> Option<f64> {
+        self.autocorrelation.at(lag)
+    }
+    /// The partial autocorrelation at `lag ≥ 1` (`None` at lag 0 and where undefined).
+    pub fn partial_autocorrelation(&self, lag: usize) -> Option<f64> {
+        self.partial.at(lag)
     }
 
     /// Half-widths of the confidence band for `r(1..=H)` at `level` (e.g. 0.95) under
-    /// `rule`. Index 0 is lag 1.
+    /// `rule`, keyed by lag (from lag 1).
     ///
     /// ```
     /// use lagwise::{BandRule, Correlogram};
@@ -303,12 +378,12 @@ impl Correlogram {
     /// let x: Vec<f64> = (0..400).map(|t| ((t * 7919) % 101) as f64).collect();
     /// let cg = Correlogram::compute(&x, 10)?;
     /// let white = cg.bands(0.95, BandRule::WhiteNoise)?;
-    /// assert!((white[0] - 1.959964 / 20.0).abs() < 1e-6);
+    /// assert!((white.at(1).unwrap() - 1.959964 / 20.0).abs() < 1e-6);
     /// let bartlett = cg.bands(0.95, BandRule::Bartlett { ma_order: 2 })?;
-    /// assert!(bartlett[5] >= white[5]);
+    /// assert!(bartlett.at(6) >= white.at(6));
     /// # Ok(()) }
     /// ```
-    pub fn bands(&self, level: f64, rule: BandRule) -> Result<Vec<f64>> {
+    pub fn bands(&self, level: f64, rule: BandRule) -> Result<LagValues> {
         let z = two_sided_quantile(level, "correlogram bands")?;
         let m = self.present as f64;
         let cap = match rule {
@@ -323,11 +398,11 @@ impl Correlogram {
             let q = cap.min(k - 1);
             // cum holds Σ_{j=1}^{k-2}; add lag k-1 when q reaches it.
             if q == k - 1 && k >= 2 {
-                cum += self.autocorrelation[k - 1].powi(2);
+                cum += self.autocorrelation.values[k - 1].powi(2);
             }
             out.push(z * ((1.0 + 2.0 * cum) / m).sqrt());
         }
-        Ok(out)
+        Ok(LagValues::new(1, out))
     }
 
     /// Half-width of the white-noise band for the partial autocorrelations at `level`
@@ -470,15 +545,15 @@ impl CrossCorrelogram {
 /// # Ok(()) }
 /// ```
 pub fn cross_correlogram(x: &[f64], y: &[f64], max_lag: usize) -> Result<CrossCorrelogram> {
-    cross_correlogram_with(x, y, max_lag, &mut CorrelogramScratch::new())
+    cross_correlogram_with(x, y, max_lag, &mut CorrelogramWorkspace::new())
 }
 
-/// [`cross_correlogram`] on a caller-held scratch buffer.
+/// [`cross_correlogram`] on a caller-held workspace.
 pub fn cross_correlogram_with(
     x: &[f64],
     y: &[f64],
     max_lag: usize,
-    scratch: &mut CorrelogramScratch,
+    workspace: &mut CorrelogramWorkspace,
 ) -> Result<CrossCorrelogram> {
     const WHAT: &str = "cross-correlogram";
     if x.len() != y.len() {
@@ -495,18 +570,18 @@ pub fn cross_correlogram_with(
     check_lag(WHAT, max_lag, x.len())?;
     let (ux, uy) = ((sx.mean, 1.0 / sx.scale), (sy.mean, 1.0 / sy.scale));
     let mut s0 = [0.0];
-    lag_sums(x, ux, None, 0, scratch, &mut s0);
+    lag_sums(x, ux, None, 0, workspace, &mut s0);
     let sxx = s0[0];
-    lag_sums(y, uy, None, 0, scratch, &mut s0);
+    lag_sums(y, uy, None, 0, workspace, &mut s0);
     let syy = s0[0];
     let norm = (sxx * syy).sqrt();
     if !(norm > 0.0) {
         return Err(Error::numerical(WHAT, "zero variance after centring"));
     }
     let mut pos = vec![0.0; max_lag + 1]; // Σ x_{t+h} y_t
-    lag_sums(x, ux, Some((y, uy.0, uy.1)), max_lag, scratch, &mut pos);
+    lag_sums(x, ux, Some((y, uy.0, uy.1)), max_lag, workspace, &mut pos);
     let mut neg = vec![0.0; max_lag + 1]; // Σ y_{t+h} x_t  = lag −h of (x, y)
-    lag_sums(y, uy, Some((x, ux.0, ux.1)), max_lag, scratch, &mut neg);
+    lag_sums(y, uy, Some((x, ux.0, ux.1)), max_lag, workspace, &mut neg);
     let mut correlation = Vec::with_capacity(2 * max_lag + 1);
     correlation.extend(neg[1..].iter().rev().map(|v| (v / norm).clamp(-1.0, 1.0)));
     correlation.extend(pos.iter().map(|v| (v / norm).clamp(-1.0, 1.0)));
@@ -552,7 +627,7 @@ mod tests {
             for h in 0..=h_max {
                 let want = naive(&x, h);
                 assert!(
-                    (cg.autocorrelations()[h] - want).abs() < 1e-12,
+                    (cg.autocorrelations().values()[h] - want).abs() < 1e-12,
                     "n={n} h={h}"
                 );
             }
@@ -565,17 +640,20 @@ mod tests {
         let cg = Correlogram::compute(&x, 6).unwrap();
         let z = 1.959963984540054; // Φ⁻¹(0.975), from memory (A&S 26.2)
         let w = cg.bands(0.95, BandRule::WhiteNoise).unwrap();
-        assert!(w.iter().all(|v| (v - z / 10.0).abs() < 1e-12));
-        let r = cg.autocorrelations();
+        assert_eq!((w.first_lag(), w.last_lag()), (1, Some(6)));
+        assert!(w.iter().all(|(_, v)| (v - z / 10.0).abs() < 1e-12));
+        let r = cg.autocorrelations().values();
         let b = cg.bands(0.95, BandRule::Bartlett { ma_order: 2 }).unwrap();
+        let at = |v: &LagValues, lag| v.at(lag).unwrap();
         let q2 = z * ((1.0 + 2.0 * (r[1] * r[1] + r[2] * r[2])) / 100.0).sqrt();
-        assert!((b[5] - q2).abs() < 1e-12 && (b[2] - q2).abs() < 1e-12);
+        assert!((at(&b, 6) - q2).abs() < 1e-12 && (at(&b, 3) - q2).abs() < 1e-12);
         let q1 = z * ((1.0 + 2.0 * r[1] * r[1]) / 100.0).sqrt();
-        assert!((b[1] - q1).abs() < 1e-12);
-        assert!((b[0] - z / 10.0).abs() < 1e-12);
+        assert!((at(&b, 2) - q1).abs() < 1e-12);
+        assert!((at(&b, 1) - z / 10.0).abs() < 1e-12);
+        assert_eq!(b.at(0), None);
         let c = cg.bands(0.95, BandRule::BartlettCumulative).unwrap();
         let s: f64 = r[1..6].iter().map(|v| v * v).sum();
-        assert!((c[5] - z * ((1.0 + 2.0 * s) / 100.0).sqrt()).abs() < 1e-12);
+        assert!((at(&c, 6) - z * ((1.0 + 2.0 * s) / 100.0).sqrt()).abs() < 1e-12);
         assert!(cg.bands(1.0, BandRule::WhiteNoise).is_err());
         assert!(cg.bands(f64::NAN, BandRule::WhiteNoise).is_err());
     }

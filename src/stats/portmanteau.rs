@@ -3,7 +3,7 @@
 
 use crate::base::dist::chi_square_upper;
 use crate::base::error::{Error, Result};
-use crate::stats::correlogram::{Correlogram, CorrelogramScratch};
+use crate::stats::correlogram::{Correlogram, CorrelogramWorkspace};
 
 /// One lag of a [`PortmanteauScan`].
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -68,16 +68,16 @@ impl PortmanteauScan {
             values,
             max_lag,
             fitted_coefficients,
-            &mut CorrelogramScratch::new(),
+            &mut CorrelogramWorkspace::new(),
         )
     }
 
-    /// [`PortmanteauScan::compute`] on a caller-held scratch buffer.
+    /// [`PortmanteauScan::compute`] on a caller-held workspace.
     pub fn compute_with(
         values: &[f64],
         max_lag: usize,
         fitted_coefficients: usize,
-        scratch: &mut CorrelogramScratch,
+        workspace: &mut CorrelogramWorkspace,
     ) -> Result<Self> {
         if max_lag == 0 {
             return Err(Error::invalid(
@@ -85,7 +85,7 @@ impl PortmanteauScan {
                 "max lag must be at least 1",
             ));
         }
-        let cg = Correlogram::compute_with(values, max_lag, scratch)?;
+        let cg = Correlogram::compute_with(values, max_lag, workspace)?;
         Self::from_correlogram(&cg, max_lag, fitted_coefficients)
     }
 
@@ -112,7 +112,7 @@ impl PortmanteauScan {
                 format!("max lag {max_lag} must be less than the {m} non-missing readings"),
             ));
         }
-        let r = correlogram.autocorrelations();
+        let r = correlogram.autocorrelations().values();
         let mf = m as f64;
         let mut sum_lb = 0.0;
         let mut sum_bp = 0.0;
@@ -190,7 +190,7 @@ mod tests {
         let x: Vec<f64> = (0..50).map(|t| ((t * 17 + 3) % 23) as f64).collect();
         let cg = Correlogram::compute(&x, 5).unwrap();
         let scan = PortmanteauScan::from_correlogram(&cg, 5, 1).unwrap();
-        let r = cg.autocorrelations();
+        let r = cg.autocorrelations().values();
         let n = 50.0;
         let lb3 = n * (n + 2.0) * (1..=3).map(|k| r[k] * r[k] / (n - k as f64)).sum::<f64>();
         let bp3 = n * (1..=3).map(|k| r[k] * r[k]).sum::<f64>();
