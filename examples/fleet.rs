@@ -92,11 +92,11 @@ fn search_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
         .threads(2)
         .build()?
         .search_slices(&lagwise::SearchSettings::default(), &refs);
-    let secs = report.elapsed.as_secs_f64();
+    let secs = report.elapsed().as_secs_f64();
     let summaries: Vec<_> = report
-        .outcomes
+        .outcomes()
         .iter()
-        .filter_map(|o| o.1.as_ref().ok())
+        .filter_map(|o| o.result.as_ref().ok())
         .collect();
     let candidates: f64 = summaries
         .iter()
@@ -170,10 +170,10 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let (mut t1, mut t2) = (f64::INFINITY, f64::INFINITY);
     for _ in 0..3 {
         let one = Fleet::builder().threads(1).build()?.fit_slices(&bp, subset);
-        t1 = t1.min(one.elapsed.as_secs_f64());
+        t1 = t1.min(one.elapsed().as_secs_f64());
         drop(one);
         let two = Fleet::builder().threads(2).build()?.fit_slices(&bp, subset);
-        t2 = t2.min(two.elapsed.as_secs_f64());
+        t2 = t2.min(two.elapsed().as_secs_f64());
     }
     let efficiency = t1 / (2.0 * t2);
 
@@ -187,11 +187,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     // The whole fleet on 2 threads: the configuration (staged ML, standard
     // errors, residual check), summaries without monitors.
     let report = lean.fit_slices(&bp, &series);
-    let secs = report.elapsed.as_secs_f64();
+    let secs = report.elapsed().as_secs_f64();
     let fitted: Vec<_> = report
-        .outcomes
+        .outcomes()
         .iter()
-        .filter_map(|o| o.1.as_ref().ok())
+        .filter_map(|o| o.result.as_ref().ok())
         .collect();
     let evals =
         fitted.iter().map(|s| s.evaluations() as f64).sum::<f64>() / fitted.len().max(1) as f64;

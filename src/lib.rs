@@ -112,16 +112,19 @@ mod stats;
 mod store;
 
 // The public surface: every public item is reachable at exactly one path, the crate root.
+// ndarray is re-exported so that callers of `Fleet::fit_rows` use the version this crate
+// was built with.
 pub use base::error::{Error, ErrorKind, Result};
 pub use estimate::{StageRecord, StopReason};
-pub use filter::kalman::{exact_log_likelihood, full_phase_log_likelihood};
+pub use filter::kalman::{exact_log_likelihood, reference_log_likelihood};
 pub use fit::compare::{NestedTest, RankedModel, nested_likelihood_ratio, rank_by_criterion};
 pub use fit::fitted::{
     CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
     LogLikelihood, NEAR_UNIT_MODULUS, ReadingCounts, ResidualCheck,
 };
 pub use fleet::{
-    FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, WhitenessDigest,
+    FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, SeriesOutcome,
+    WhitenessDigest,
 };
 pub use forecast::{Forecast, ForecastStep, Monitor, PredictionInterval, ReadingCheck};
 pub use model::blueprint::{
@@ -133,6 +136,7 @@ pub use model::lag::{
     is_stationary, multiply, pi_weights, psi_weights, step_down,
 };
 pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
+pub use ndarray;
 pub use select::search::{
     Candidate, DifferencingChoice, OrderBounds, SearchOutcome, SearchSettings,
     SearchSettingsBuilder, choose_differencing, search_orders, search_orders_with,

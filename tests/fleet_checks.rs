@@ -52,16 +52,16 @@ fn batch_equals_single_fits_bitwise_for_any_thread_count() {
         .fit_slices(&bp, &refs);
     for i in 0..refs.len() {
         let single = bp.fit(refs[i]).unwrap();
-        let a = one.outcomes[i].1.as_ref().unwrap();
-        assert_eq!(one.outcomes[i].0, i);
+        let a = one.outcomes()[i].result.as_ref().unwrap();
+        assert_eq!(one.outcomes()[i].id, i);
         assert_eq!(
             bits(a),
-            bits(two.outcomes[i].1.as_ref().unwrap()),
+            bits(two.outcomes()[i].result.as_ref().unwrap()),
             "series {i}: 1 vs 2 threads"
         );
         assert_eq!(
             bits(a),
-            bits(four.outcomes[i].1.as_ref().unwrap()),
+            bits(four.outcomes()[i].result.as_ref().unwrap()),
             "series {i}: 1 vs 4 threads"
         );
         assert_eq!(
@@ -131,7 +131,7 @@ fn cancellation_stops_promptly_and_reports_what_finished() {
             &Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap(),
             &refs,
         );
-    assert!(report.cancelled);
+    assert!(report.cancelled());
     let fitted = report.fitted();
     // At most the series already in flight on the two workers finish after the flag.
     assert!((10..=14).contains(&fitted), "fitted {fitted}");
@@ -154,10 +154,10 @@ fn rows_of_an_ndarray() {
     // Column-major views work too (copied per row).
     let t = arr.t().to_owned();
     let report_t = Fleet::builder().build().unwrap().fit_rows(&bp, t.t());
-    for (a, b) in report.outcomes.iter().zip(&report_t.outcomes) {
+    for (a, b) in report.outcomes().iter().zip(report_t.outcomes()) {
         assert_eq!(
-            a.1.as_ref().unwrap().coefficients,
-            b.1.as_ref().unwrap().coefficients
+            a.result.as_ref().unwrap().coefficients,
+            b.result.as_ref().unwrap().coefficients
         );
     }
     assert!(Fleet::builder().threads(0).build().is_err());
@@ -168,16 +168,28 @@ fn order_search_per_series() {
     let sim = Simulator::builder().autoregressive(&[0.7]).build().unwrap();
     let data: Vec<Vec<f64>> = (0..6).map(|i| sim.generate(300, 40 + i)).collect();
     let refs: Vec<&[f64]> = data.iter().map(|s| s.as_slice()).collect();
-    let report = Fleet::builder()
-        .threads(2)
-        .build()
-        .unwrap()
-        .search_slices(&lagwise::SearchSettings::default(), &refs);
+    let fleet = Fleet::builder().threads(2).build().unwrap();
+    let settings = lagwise::SearchSettings::default();
+    let report = fleet.search_slices(&settings, &refs);
     assert_eq!(report.fitted(), 6);
-    for (_, r) in &report.outcomes {
+    for o in report.outcomes() {
+        let r = &o.result;
         let s = r.as_ref().unwrap();
         assert!(s.search_note.as_ref().unwrap().contains("chose"));
         assert!(s.shape.to_string().starts_with("AR"));
+    }
+    // Rows of a 2-D array and a ragged collection with ids give the same summaries.
+    let flat: Vec<f64> = data.iter().flatten().copied().collect();
+    let rows = lagwise::ndarray::ArrayView2::from_shape((6, 300), &flat).unwrap();
+    let by_rows = fleet.search_rows(&settings, rows);
+    let tagged: Vec<(String, &[f64])> =
+        refs.iter().enumerate().map(|(i, x)| (format!("T{i}"), *x)).collect();
+    let by_ids = fleet.search_ragged(&settings, &tagged);
+    for i in 0..6 {
+        let want = report.outcomes()[i].result.as_ref().unwrap();
+        assert_eq!(by_rows.outcomes()[i].result.as_ref().unwrap(), want);
+        assert_eq!(by_ids.outcomes()[i].id, format!("T{i}"));
+        assert_eq!(by_ids.outcomes()[i].result.as_ref().unwrap(), want);
     }
 }
 
@@ -199,7 +211,7 @@ fn whiteness_digest_and_monitors_match_single_fits() {
         let check = single
             .residual_check(single.default_check_lags(), 0.05)
             .unwrap();
-        let s = with.outcomes[i].1.as_ref().unwrap();
+        let s = with.outcomes()[i].result.as_ref().unwrap();
         let rows = check.portmanteau.rows();
         assert_eq!(s.whiteness.lags_checked, rows.len());
         assert_eq!(s.whiteness.white, check.white);
@@ -214,7 +226,7 @@ fn whiteness_digest_and_monitors_match_single_fits() {
         );
         assert_eq!(rows[lag - 1].ljung_box_p_value, Some(p));
         // Same next-reading forecast from the fleet's monitor and the single fit's.
-        let mut a = s.monitor.as_deref().unwrap().clone();
+        let mut a = s.monitor().unwrap().clone();
         let mut b = single.monitor(0.999).unwrap();
         let (fa, fb) = (
             a.forecast(1, &[0.9]).unwrap(),
@@ -222,6 +234,13 @@ fn whiteness_digest_and_monitors_match_single_fits() {
         );
         assert_eq!(fa.steps[0].mean.to_bits(), fb.steps[0].mean.to_bits());
         assert_eq!(a.observe(90.0).unwrap(), b.observe(90.0).unwrap());
-        assert!(without.outcomes[i].1.as_ref().unwrap().monitor.is_none());
+        assert!(
+            without.outcomes()[i]
+                .result
+                .as_ref()
+                .unwrap()
+                .monitor()
+                .is_none()
+        );
     }
 }

@@ -21,5 +21,11 @@ fn kalman_equals_dense_gaussian_density() {
             (got - want).abs() <= 1e-9 * want.abs(),
             "{label}: {got} vs {want}"
         );
+        // The plain covariance recursion, the public reference route, agrees too.
+        let plain = lagwise::reference_log_likelihood(&phi, &theta, s2, &x).unwrap();
+        assert!(
+            (plain - want).abs() <= 1e-9 * want.abs(),
+            "{label}: reference route {plain} vs {want}"
+        );
     }
 }

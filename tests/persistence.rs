@@ -88,7 +88,7 @@ proptest! {
 
 fn refused(text: &str) -> String {
     match lagwise::model_from_json(text).unwrap_err().into_kind() {
-        ErrorKind::CorruptStore { message } => message,
+        ErrorKind::CorruptStore { message, .. } => message,
         other => panic!("expected CorruptStore, got {other:?}"),
     }
 }

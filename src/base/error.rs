@@ -83,6 +83,7 @@ impl std::error::Error for Error {}
 pub enum ErrorKind {
     /// The series has no readings at all.
     #[error("{what}: the series is empty")]
+    #[non_exhaustive]
     EmptySeries {
         /// Routine that refused the input.
         what: &'static str,
@@ -91,6 +92,7 @@ pub enum ErrorKind {
     #[error(
         "{what}: reading {index} is {value}; readings must be finite, or NaN for a missing reading"
     )]
+    #[non_exhaustive]
     NonFiniteReading {
         /// Routine that refused the input.
         what: &'static str,
@@ -101,6 +103,7 @@ pub enum ErrorKind {
     },
     /// Every reading is missing (NaN).
     #[error("{what}: all {length} readings are missing (NaN)")]
+    #[non_exhaustive]
     AllMissing {
         /// Routine that refused the input.
         what: &'static str,
@@ -109,6 +112,7 @@ pub enum ErrorKind {
     },
     /// Too few non-missing readings for what was asked.
     #[error("{what}: {present} non-missing readings, but at least {needed} are needed")]
+    #[non_exhaustive]
     TooShort {
         /// Routine that refused the input.
         what: &'static str,
@@ -121,6 +125,7 @@ pub enum ErrorKind {
     #[error(
         "{what}: every non-missing reading equals {value}; a constant series has no autocorrelation or model"
     )]
+    #[non_exhaustive]
     ConstantSeries {
         /// Routine that refused the input.
         what: &'static str,
@@ -129,6 +134,7 @@ pub enum ErrorKind {
     },
     /// Two inputs that must have equal lengths do not.
     #[error("{what}: length mismatch, {left_name} has {left} entries but {right_name} has {right}")]
+    #[non_exhaustive]
     LengthMismatch {
         /// Routine that refused the input.
         what: &'static str,
@@ -143,6 +149,7 @@ pub enum ErrorKind {
     },
     /// An argument (lag, level, order, count…) is out of its allowed range.
     #[error("{what}: {message}")]
+    #[non_exhaustive]
     InvalidArgument {
         /// Routine or field that refused the input.
         what: &'static str,
@@ -151,6 +158,7 @@ pub enum ErrorKind {
     },
     /// A model specification is invalid (reported by the builder, never at fit time).
     #[error("model specification, {field}: {message}")]
+    #[non_exhaustive]
     InvalidSpecification {
         /// The setting at fault.
         field: &'static str,
@@ -160,6 +168,7 @@ pub enum ErrorKind {
     /// A computation failed for numerical reasons (singular system, overflow, no
     /// admissible estimate). The input itself was acceptable.
     #[error("{what}: numerical failure: {message}")]
+    #[non_exhaustive]
     NumericalFailure {
         /// Routine that failed.
         what: &'static str,
@@ -169,6 +178,7 @@ pub enum ErrorKind {
     /// Two fitted models cannot be compared the way that was asked (different data,
     /// not nested, conditional likelihoods, …).
     #[error("{what}: models not comparable: {message}")]
+    #[non_exhaustive]
     NotComparable {
         /// Routine that refused.
         what: &'static str,
@@ -177,12 +187,14 @@ pub enum ErrorKind {
     },
     /// A stored model or monitor could not be restored.
     #[error("stored model rejected: {message}")]
+    #[non_exhaustive]
     CorruptStore {
         /// What is wrong with the stored document.
         message: String,
     },
     /// A batch job was cancelled before this item was processed.
     #[error("{what}: cancelled before this series was processed")]
+    #[non_exhaustive]
     Cancelled {
         /// Routine that was cancelled.
         what: &'static str,

@@ -1377,28 +1377,13 @@ pub fn exact_log_likelihood(
     innovation_variance: f64,
     series: &[f64],
 ) -> Result<f64> {
-    const WHAT: &str = "exact log-likelihood";
-    crate::base::screen::screen(series, WHAT, 1, crate::base::screen::ConstantPolicy::Allow)?;
-    if !(innovation_variance > 0.0 && innovation_variance.is_finite()) {
-        return Err(Error::invalid(
-            WHAT,
-            format!("innovation variance {innovation_variance} must be positive"),
-        ));
-    }
-    if !lag::is_stationary(phi) {
-        return Err(Error::invalid(
-            WHAT,
-            "the AR coefficients are not stationary",
-        ));
-    }
-    if !lag::is_invertible(theta) {
-        return Err(Error::invalid(
-            WHAT,
-            "the MA coefficients are not invertible",
-        ));
-    }
-    let mut ws = KalmanWorkspace::default();
-    ws.set_model(phi, theta)?;
+    let mut ws = checked_workspace(
+        "exact log-likelihood",
+        phi,
+        theta,
+        innovation_variance,
+        series,
+    )?;
     let mut cross = [0.0];
     let totals = ws.pass(series, series.len(), 1, &mut cross);
     let n = totals.used as f64;
@@ -1408,13 +1393,23 @@ pub fn exact_log_likelihood(
             + cross[0] / innovation_variance))
 }
 
-/// Exact log-likelihood with the steady-state switch disabled (every step runs the
-/// full covariance update). For benchmarks and tests that compare the two phases; not
-/// part of the stable API.
-#[doc(hidden)]
-pub fn full_phase_log_likelihood(phi: &[f64], theta: &[f64], series: &[f64]) -> Result<f64> {
-    let mut ws = KalmanWorkspace::default();
-    ws.set_model(phi, theta)?;
+/// The exact log-likelihood by the plain covariance (Riccati) recursion at every reading,
+/// with no Chandrasekhar phase and no steady-state switch: O(r²) per reading, the
+/// reference that [`exact_log_likelihood`] is tested against and a way to time what the
+/// fast phases save. Same conventions and errors as [`exact_log_likelihood`].
+pub fn reference_log_likelihood(
+    phi: &[f64],
+    theta: &[f64],
+    innovation_variance: f64,
+    series: &[f64],
+) -> Result<f64> {
+    let mut ws = checked_workspace(
+        "reference log-likelihood",
+        phi,
+        theta,
+        innovation_variance,
+        series,
+    )?;
     let r = ws.r;
     let mut a = vec![0.0; r];
     let (mut ld, mut ss, mut m) = (0.0, 0.0, 0usize);
@@ -1439,8 +1434,42 @@ pub fn full_phase_log_likelihood(phi: &[f64], theta: &[f64], series: &[f64]) -> 
         a[r - 1] = ws.phi[r - 1] * a0;
     }
     let n = m as f64;
-    let s2 = ss / n;
-    Ok(-0.5 * (n * (2.0 * std::f64::consts::PI * s2).ln() + n + ld))
+    Ok(-0.5
+        * (n * (2.0 * std::f64::consts::PI * innovation_variance).ln()
+            + ld
+            + ss / innovation_variance))
+}
+
+/// The checks shared by the public likelihood functions, then a workspace set to the model.
+fn checked_workspace(
+    what: &'static str,
+    phi: &[f64],
+    theta: &[f64],
+    innovation_variance: f64,
+    series: &[f64],
+) -> Result<KalmanWorkspace> {
+    crate::base::screen::screen(series, what, 1, crate::base::screen::ConstantPolicy::Allow)?;
+    if !(innovation_variance > 0.0 && innovation_variance.is_finite()) {
+        return Err(Error::invalid(
+            what,
+            format!("innovation variance {innovation_variance} must be positive"),
+        ));
+    }
+    if !lag::is_stationary(phi) {
+        return Err(Error::invalid(
+            what,
+            "the AR coefficients are not stationary",
+        ));
+    }
+    if !lag::is_invertible(theta) {
+        return Err(Error::invalid(
+            what,
+            "the MA coefficients are not invertible",
+        ));
+    }
+    let mut ws = KalmanWorkspace::default();
+    ws.set_model(phi, theta)?;
+    Ok(ws)
 }
 
 #[cfg(test)]

@@ -196,9 +196,20 @@ pub struct FitSummary {
     pub shape: ModelShape,
     /// For order searches: the search's explanation of its choice.
     pub search_note: Option<String>,
+    /// A monitor positioned after the series (boxed: most of a summary's size).
+    monitor: Option<Box<Monitor>>,
+}
+
+impl FitSummary {
     /// A monitor positioned after the series, ready for new readings (absent when the
     /// fleet was built with [`FleetBuilder::ready_monitors`]`(false)`).
-    pub monitor: Option<Box<Monitor>>,
+    pub fn monitor(&self) -> Option<&Monitor> {
+        self.monitor.as_deref()
+    }
+    /// Take the ready monitor out of the summary (to keep watching the series).
+    pub fn take_monitor(&mut self) -> Option<Monitor> {
+        self.monitor.take().map(|m| *m)
+    }
 }
 
 /// The optimisation of one fleet series in brief.
@@ -310,26 +321,48 @@ impl FitSummary {
 
 /// Results of a batch, in input order.
 #[derive(Debug, Clone)]
-#[non_exhaustive]
 pub struct FleetReport<I> {
-    /// One entry per input series: its id and its summary or error.
-    pub outcomes: Vec<(I, Result<FitSummary>)>,
-    /// Whether the cancellation flag stopped the batch early.
-    pub cancelled: bool,
-    /// Wall-clock time of the batch.
-    pub elapsed: Duration,
+    outcomes: Vec<SeriesOutcome<I>>,
+    cancelled: bool,
+    elapsed: Duration,
+}
+
+/// The result for one series of a batch: its id and its summary or typed error.
+#[derive(Debug, Clone)]
+#[non_exhaustive]
+pub struct SeriesOutcome<I> {
+    /// The caller's id (the position for slices and rows).
+    pub id: I,
+    /// The summary, or why this series failed.
+    pub result: Result<FitSummary>,
 }
 
 impl<I> FleetReport<I> {
+    /// One outcome per input series, in input order.
+    pub fn outcomes(&self) -> &[SeriesOutcome<I>] {
+        &self.outcomes
+    }
+    /// The outcomes, owned (to move summaries and monitors out).
+    pub fn into_outcomes(self) -> Vec<SeriesOutcome<I>> {
+        self.outcomes
+    }
+    /// Whether the cancellation flag stopped the batch early.
+    pub fn cancelled(&self) -> bool {
+        self.cancelled
+    }
+    /// Wall-clock time of the batch.
+    pub fn elapsed(&self) -> Duration {
+        self.elapsed
+    }
     /// Number of series fitted successfully.
     pub fn fitted(&self) -> usize {
-        self.outcomes.iter().filter(|o| o.1.is_ok()).count()
+        self.outcomes.iter().filter(|o| o.result.is_ok()).count()
     }
     /// Ids and errors of the series that failed (cancelled ones included).
     pub fn failures(&self) -> impl Iterator<Item = (&I, &Error)> {
         self.outcomes
             .iter()
-            .filter_map(|(id, r)| r.as_ref().err().map(|e| (id, e)))
+            .filter_map(|o| o.result.as_ref().err().map(|e| (&o.id, e)))
     }
 }
 
@@ -367,21 +400,7 @@ impl Fleet {
         blueprint: &Blueprint,
         rows: ndarray::ArrayView2<'_, f64>,
     ) -> FleetReport<usize> {
-        let owned: Vec<Vec<f64>>;
-        let items: Vec<(usize, &[f64])> = if rows.is_standard_layout() {
-            rows.outer_iter()
-                .enumerate()
-                .map(|(i, r)| (i, r.to_slice().unwrap_or(&[])))
-                .collect()
-        } else {
-            owned = rows.outer_iter().map(|r| r.to_vec()).collect();
-            owned
-                .iter()
-                .enumerate()
-                .map(|(i, r)| (i, r.as_slice()))
-                .collect()
-        };
-        self.run(blueprint, &items)
+        with_rows(rows, |items| self.run(blueprint, items))
     }
 
     /// Fit `blueprint` to a ragged collection with the caller's ids.
@@ -393,15 +412,42 @@ impl Fleet {
         self.run(blueprint, series)
     }
 
-    /// Search orders for every series (see [`search_orders`](crate::search_orders)); each summary describes
-    /// the chosen model and carries the search's explanation. Ids are the positions.
+    /// Search orders for every series (see [`search_orders`](crate::search_orders)); each
+    /// summary describes the chosen model and carries the search's explanation. Ids are
+    /// the positions.
     pub fn search_slices(
         &self,
         settings: &SearchSettings,
         series: &[&[f64]],
     ) -> FleetReport<usize> {
         let items: Vec<(usize, &[f64])> = series.iter().copied().enumerate().collect();
-        self.run_with(&items, |x, ws| {
+        self.search(settings, &items)
+    }
+
+    /// [`Fleet::search_slices`] over the rows of a 2-D array; ids are row numbers.
+    pub fn search_rows(
+        &self,
+        settings: &SearchSettings,
+        rows: ndarray::ArrayView2<'_, f64>,
+    ) -> FleetReport<usize> {
+        with_rows(rows, |items| self.search(settings, items))
+    }
+
+    /// [`Fleet::search_slices`] over a ragged collection with the caller's ids.
+    pub fn search_ragged<I: Clone + Send + Sync>(
+        &self,
+        settings: &SearchSettings,
+        series: &[(I, &[f64])],
+    ) -> FleetReport<I> {
+        self.search(settings, series)
+    }
+
+    fn search<I: Clone + Send + Sync>(
+        &self,
+        settings: &SearchSettings,
+        items: &[(I, &[f64])],
+    ) -> FleetReport<I> {
+        self.run_with(items, |x, ws| {
             let out = crate::select::search::search_orders_with(x, settings, ws)?;
             let mut s =
                 FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm())?;
@@ -436,7 +482,7 @@ impl Fleet {
         let total = items.len();
         let done = AtomicUsize::new(0);
         let failed = AtomicUsize::new(0);
-        let work = || -> Vec<(I, Result<FitSummary>)> {
+        let work = || -> Vec<SeriesOutcome<I>> {
             items
                 .par_iter()
                 .map_init(FitWorkspace::new, |ws, (id, series)| {
@@ -462,7 +508,10 @@ impl Fleet {
                             total,
                         });
                     }
-                    (id.clone(), result)
+                    SeriesOutcome {
+                        id: id.clone(),
+                        result,
+                    }
                 })
                 .collect()
         };
@@ -482,5 +531,26 @@ impl Fleet {
             cancelled,
             elapsed: start.elapsed(),
         }
+    }
+}
+
+/// Run `f` over the rows of a 2-D array as `(row number, slice)` items, borrowing the rows
+/// in place when the array is in standard layout and copying them otherwise.
+fn with_rows<R>(rows: ndarray::ArrayView2<'_, f64>, f: impl FnOnce(&[(usize, &[f64])]) -> R) -> R {
+    if rows.is_standard_layout() {
+        let items: Vec<(usize, &[f64])> = rows
+            .outer_iter()
+            .enumerate()
+            .map(|(i, r)| (i, r.to_slice().unwrap_or(&[])))
+            .collect();
+        f(&items)
+    } else {
+        let owned: Vec<Vec<f64>> = rows.outer_iter().map(|r| r.to_vec()).collect();
+        let items: Vec<(usize, &[f64])> = owned
+            .iter()
+            .enumerate()
+            .map(|(i, r)| (i, r.as_slice()))
+            .collect();
+        f(&items)
     }
 }
