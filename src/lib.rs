@@ -126,7 +126,7 @@ pub use fleet::{
     FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, SeriesOutcome,
     WhitenessDigest,
 };
-pub use forecast::{Forecast, ForecastStep, Monitor, PredictionInterval, ReadingCheck};
+pub use forecast::{Forecast, ForecastStep, KnownModel, Monitor, PredictionInterval, ReadingCheck};
 pub use model::blueprint::{
     Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
     Term,
@@ -150,7 +150,7 @@ pub use stats::portmanteau::{PortmanteauRow, PortmanteauScan};
 pub use stats::unitroot::{RootTest, TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength};
 pub use store::persist::{
     FORMAT_VERSION, blueprint_from_json, blueprint_to_json, model_from_json, model_to_json,
-    monitor_from_json, monitor_to_json,
+    model_to_json_keeping_residuals, monitor_from_json, monitor_to_json,
 };
 
 // The README's Rust examples are compiled and run as doc tests, so they cannot go stale.

@@ -182,8 +182,11 @@ fn order_search_per_series() {
     let flat: Vec<f64> = data.iter().flatten().copied().collect();
     let rows = lagwise::ndarray::ArrayView2::from_shape((6, 300), &flat).unwrap();
     let by_rows = fleet.search_rows(&settings, rows);
-    let tagged: Vec<(String, &[f64])> =
-        refs.iter().enumerate().map(|(i, x)| (format!("T{i}"), *x)).collect();
+    let tagged: Vec<(String, &[f64])> = refs
+        .iter()
+        .enumerate()
+        .map(|(i, x)| (format!("T{i}"), *x))
+        .collect();
     let by_ids = fleet.search_ragged(&settings, &tagged);
     for i in 0..6 {
         let want = report.outcomes()[i].result.as_ref().unwrap();

@@ -1,6 +1,6 @@
 //! Forecast intervals by Monte Carlo, monotone widths, and monitor equivalence.
 
-use lagwise::{Blueprint, Estimator, FitWorkspace, Simulator, Term};
+use lagwise::{Blueprint, Estimator, FitWorkspace, KnownModel, Simulator, Term};
 use proptest::prelude::*;
 
 /// Empirical coverage of 80% and 95% intervals over 2000 simulated continuations, for a
@@ -205,4 +205,104 @@ fn monitor_flags_spikes_and_missing_readings() {
     assert!(spike.outside && spike.standardized.unwrap() > 5.0);
     assert!(m.observe(f64::INFINITY).is_err());
     assert_eq!(m.next_index(), 503);
+}
+
+/// A model written down rather than fitted: AR(1) forecasts follow the textbook formulas
+/// (Brockwell & Davis, Introduction to Time Series and Forecasting, §3.3; from memory):
+/// mean `μ + φ^h (x_n − μ)`, variance `σ² (1 − φ^{2h}) / (1 − φ²)`.
+#[test]
+fn known_model_forecasts_follow_the_ar1_formulas() {
+    let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
+    let (phi, mu, s2) = (0.8, 88.0, 0.04);
+    let model = KnownModel::new(&bp, &[(Term::Mean, mu), (Term::Ar(1), phi)], s2).unwrap();
+    assert_eq!(model.coefficients()[0], (Term::Ar(1), phi)); // canonical order
+    let history = [87.5, 88.3, f64::NAN, 88.9, 88.6];
+    let fc = model
+        .forecast_from_history(&history, &[], 6, &[0.95], &[])
+        .unwrap();
+    for (h, st) in fc.steps.iter().enumerate() {
+        let h = (h + 1) as i32;
+        let mean = mu + phi.powi(h) * (88.6 - mu);
+        let var = s2 * (1.0 - phi.powi(2 * h)) / (1.0 - phi * phi);
+        assert!((st.mean - mean).abs() < 1e-12, "step {h}");
+        assert!((st.sd * st.sd - var).abs() < 1e-12, "step {h}");
+    }
+}
+
+/// The coefficients and σ² of a fitted seasonal model, given back as a known model,
+/// monitor and forecast exactly like the fitted model positioned on the same history.
+#[test]
+fn known_model_matches_the_fitted_model_it_copies() {
+    let x = Simulator::builder()
+        .autoregressive(&[0.5])
+        .moving_average(&[0.3])
+        .seasonal(&[], &[-0.5], 24)
+        .differencing(0, 1)
+        .level(40.0)
+        .build()
+        .unwrap()
+        .generate(24 * 30, 5);
+    let bp = Blueprint::builder()
+        .nonseasonal(1, 0, 1)
+        .seasonal(0, 1, 1, 24)
+        .build()
+        .unwrap();
+    let fit = bp.fit(&x[..24 * 25]).unwrap();
+    let given: Vec<(Term, f64)> = fit
+        .coefficients()
+        .iter()
+        .map(|c| (c.term, c.value))
+        .collect();
+    let known = KnownModel::new(&bp, &given, fit.innovation_variance()).unwrap();
+    let a = fit.monitor_from_history(&x, &[], 0.99).unwrap();
+    let b = known.monitor_from_history(&x, &[], 0.99).unwrap();
+    assert_eq!(
+        a.forecast(48, &[0.8]).unwrap(),
+        b.forecast(48, &[0.8]).unwrap()
+    );
+}
+
+/// Every way a written-down model can be wrong is a typed error naming the problem.
+#[test]
+fn known_model_refuses_bad_coefficients() {
+    let bp = Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap();
+    let ok = [(Term::Ar(1), 0.5), (Term::Ma(1), 0.2), (Term::Mean, 3.0)];
+    assert!(KnownModel::new(&bp, &ok, 1.0).is_ok());
+    let cases: [(&[(Term, f64)], f64, &str); 7] = [
+        (&ok[..2], 1.0, "no value given for mean"),
+        (
+            &[ok[0], ok[1], ok[2], (Term::Ar(2), 0.1)],
+            1.0,
+            "is not a term",
+        ),
+        (
+            &[ok[0], ok[1], ok[2], (Term::Ar(1), 0.1)],
+            1.0,
+            "given twice",
+        ),
+        (
+            &[(Term::Ar(1), f64::NAN), ok[1], ok[2]],
+            1.0,
+            "must be finite",
+        ),
+        (
+            &[(Term::Ar(1), 1.0), ok[1], ok[2]],
+            1.0,
+            "AR coefficients are not stationary",
+        ),
+        (
+            &[ok[0], (Term::Ma(1), -1.5), ok[2]],
+            1.0,
+            "MA coefficients are not invertible",
+        ),
+        (&ok, 0.0, "innovation variance"),
+    ];
+    for (coefs, s2, want) in cases {
+        let e = KnownModel::new(&bp, coefs, s2).unwrap_err();
+        assert!(
+            matches!(e.kind(), lagwise::ErrorKind::InvalidArgument { .. }),
+            "{e}"
+        );
+        assert!(e.to_string().contains(want), "{e} (wanted: {want})");
+    }
 }

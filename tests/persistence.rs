@@ -86,6 +86,39 @@ proptest! {
     }
 }
 
+/// Stored without residuals (the default) a model is small and forecasts bit-exactly but
+/// cannot re-run its residual check, and says so; kept, the check is the original's.
+#[test]
+fn residuals_are_stored_only_when_asked() {
+    let fit = sample_fit(0, 9);
+    let light = lagwise::model_to_json(&fit).unwrap();
+    let full = lagwise::model_to_json_keeping_residuals(&fit).unwrap();
+    assert!(
+        light.len() * 4 < full.len(),
+        "{} vs {} bytes",
+        light.len(),
+        full.len()
+    );
+    let back = lagwise::model_from_json(&light).unwrap();
+    assert!(!back.has_residuals() && back.residuals().is_empty());
+    let e = back.residual_check(10, 0.05).unwrap_err();
+    assert!(
+        e.to_string().contains("model_to_json_keeping_residuals"),
+        "{e}"
+    );
+    assert!(back.to_string().contains("residuals: not stored"));
+    assert_eq!(
+        back.forecast(10, &[0.9]).unwrap(),
+        fit.forecast(10, &[0.9]).unwrap()
+    );
+    let kept = lagwise::model_from_json(&full).unwrap();
+    assert!(kept.has_residuals());
+    assert_eq!(
+        kept.residual_check(10, 0.05).unwrap(),
+        fit.residual_check(10, 0.05).unwrap()
+    );
+}
+
 fn refused(text: &str) -> String {
     match lagwise::model_from_json(text).unwrap_err().into_kind() {
         ErrorKind::CorruptStore { message, .. } => message,
@@ -96,7 +129,7 @@ fn refused(text: &str) -> String {
 #[test]
 fn corrupt_documents_are_refused_with_reasons() {
     let fit = sample_fit(0, 5);
-    let text = lagwise::model_to_json(&fit).unwrap();
+    let text = lagwise::model_to_json_keeping_residuals(&fit).unwrap();
     let mut doc: serde_json::Value = serde_json::from_str(&text).unwrap();
 
     assert!(

@@ -247,9 +247,11 @@ impl TryFrom<FittedRecord> for FittedModel {
                 k * k
             ));
         }
-        if r.residuals.len() != r.counts.total || r.standardized.len() != r.counts.total {
+        let kept = r.residuals.len() == r.counts.total && r.standardized.len() == r.counts.total;
+        let left_out = r.residuals.is_empty() && r.standardized.is_empty();
+        if !(kept || left_out) {
             return Err(format!(
-                "residuals have {} and {} entries, the reading count is {}",
+                "residuals have {} and {} entries, the reading count is {} (or none when not stored)",
                 r.residuals.len(),
                 r.standardized.len(),
                 r.counts.total
@@ -832,13 +834,40 @@ impl FittedModel {
         self.stages.iter().all(|s| s.converged())
     }
     /// One-step innovations on the original time axis (NaN where missing, lost to
-    /// differencing, or conditioned on).
+    /// differencing, or conditioned on). Empty for a model restored without its
+    /// residuals (see [`FittedModel::has_residuals`]).
     pub fn residuals(&self) -> &[f64] {
         &self.residuals
     }
-    /// Residuals divided by their standard deviation `σ·√F_t`.
+    /// Residuals divided by their standard deviation `σ·√F_t` (empty like
+    /// [`FittedModel::residuals`]).
     pub fn standardized_residuals(&self) -> &[f64] {
         &self.standardized
+    }
+    /// Whether the model holds its residuals: always after a fit; after restoring, only
+    /// when stored with [`model_to_json_keeping_residuals`](crate::model_to_json_keeping_residuals).
+    pub fn has_residuals(&self) -> bool {
+        self.counts.total == 0 || !self.residuals.is_empty()
+    }
+    /// The same model without its residual vectors (what [`model_to_json`](crate::model_to_json) stores).
+    pub(crate) fn without_residuals(&self) -> FittedModel {
+        FittedModel {
+            blueprint: self.blueprint.clone(),
+            coefficients: self.coefficients.clone(),
+            covariance_terms: self.covariance_terms.clone(),
+            covariance: self.covariance.clone(),
+            innovation_variance: self.innovation_variance,
+            log_likelihood: self.log_likelihood,
+            counts: self.counts,
+            stages: self.stages.clone(),
+            residuals: Vec::new(),
+            standardized: Vec::new(),
+            roots: self.roots.clone(),
+            warnings: self.warnings.clone(),
+            data_fingerprint: self.data_fingerprint,
+            forecaster: self.forecaster.clone(),
+            terminal: self.terminal.clone(),
+        }
     }
     /// Inverse roots per polynomial factor.
     pub fn roots(&self) -> &[FactorRoots] {
@@ -862,6 +891,13 @@ impl FittedModel {
 
     /// The residual check bundle over lags `1..=max_lag` at level `alpha` (e.g. 0.05).
     pub fn residual_check(&self, max_lag: usize, alpha: f64) -> Result<ResidualCheck> {
+        if !self.has_residuals() {
+            return Err(Error::invalid(
+                "residual check",
+                "this model was restored without its residuals; store it with \
+                 model_to_json_keeping_residuals to check them later",
+            ));
+        }
         if !(alpha > 0.0 && alpha < 1.0) {
             return Err(Error::invalid(
                 "residual check",
@@ -991,7 +1027,9 @@ impl fmt::Display for FittedModel {
                 mods.join(", ")
             )?;
         }
-        if let Ok(check) = self.residual_check(self.default_check_lags(), 0.05) {
+        if !self.has_residuals() {
+            writeln!(f, "   residuals: not stored with this model")?;
+        } else if let Ok(check) = self.residual_check(self.default_check_lags(), 0.05) {
             writeln!(f, "   {}", check.verdict_line())?;
         }
         for w in &self.warnings {

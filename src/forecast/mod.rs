@@ -9,6 +9,9 @@ use crate::estimate;
 use crate::filter::forecasting::{FilterState, ForecastModel, terminal_state};
 use crate::fit::fitted::FittedModel;
 
+mod known;
+pub use known::KnownModel;
+
 /// One horizon step of a [`Forecast`].
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[non_exhaustive]

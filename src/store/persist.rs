@@ -83,10 +83,22 @@ fn load<T: for<'de> Deserialize<'de>>(schema: &str, text: &str) -> Result<T> {
 /// let text = lagwise::model_to_json(&fit)?;
 /// let back = lagwise::model_from_json(&text)?;
 /// assert_eq!(back.forecast(5, &[0.9])?, fit.forecast(5, &[0.9])?); // bit-identical
+/// assert!(!back.has_residuals() && text.len() < 4_000); // the 400 residuals stay behind
 /// assert!(lagwise::model_from_json(&text.replace("\"version\":1", "\"version\":9")).is_err());
 /// # Ok(()) }
 /// ```
+///
+/// The residual vectors (two per reading: a few tens of kilobytes for a day of
+/// 15-minute readings) are left out: a restored model forecasts, monitors and reports,
+/// but its residual check needs the residuals — store with
+/// [`model_to_json_keeping_residuals`] when it must be re-run later.
 pub fn model_to_json(model: &FittedModel) -> Result<String> {
+    save(MODEL_SCHEMA, &model.without_residuals())
+}
+
+/// [`model_to_json`] keeping the residual vectors, so that the restored model's
+/// [`FittedModel::residual_check`] and residual views work as on the original.
+pub fn model_to_json_keeping_residuals(model: &FittedModel) -> Result<String> {
     save(MODEL_SCHEMA, model)
 }
 
