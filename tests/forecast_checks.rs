@@ -268,7 +268,8 @@ fn known_model_refuses_bad_coefficients() {
     let bp = Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap();
     let ok = [(Term::Ar(1), 0.5), (Term::Ma(1), 0.2), (Term::Mean, 3.0)];
     assert!(KnownModel::new(&bp, &ok, 1.0).is_ok());
-    let cases: [(&[(Term, f64)], f64, &str); 7] = [
+    type Case<'a> = (&'a [(Term, f64)], f64, &'a str);
+    let cases: [Case; 7] = [
         (&ok[..2], 1.0, "no value given for mean"),
         (
             &[ok[0], ok[1], ok[2], (Term::Ar(2), 0.1)],
