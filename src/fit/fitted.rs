@@ -358,60 +358,89 @@ impl Blueprint {
         regressors: &[&[f64]],
         workspace: &mut FitWorkspace,
     ) -> Result<FittedModel> {
+        self.fit_unfinished(series, regressors, workspace)?
+            .finish(series, regressors, workspace)
+    }
+
+    /// The fit without the two parts only a kept model needs (a search fits many
+    /// candidates and keeps one): the Hessian of the standard errors and the forecasting
+    /// state. [`UnfinishedFit::finish`] adds them, bit for bit as [`Blueprint::fit_with`].
+    pub(crate) fn fit_unfinished(
+        &self,
+        series: &[f64],
+        regressors: &[&[f64]],
+        workspace: &mut FitWorkspace,
+    ) -> Result<UnfinishedFit> {
         let prep = estimate::prepare(self, series, regressors)?;
         let layout = Layout::new(self);
         let cell = RefCell::new(std::mem::take(&mut workspace.inner));
-        let result = fit_prepared(self, series, regressors, &prep, &layout, &cell, true);
-        workspace.inner = cell.into_inner();
-        result.map(|(model, _)| model)
-    }
-
-    /// [`Blueprint::fit_with`] without the two parts only a kept model needs (a search
-    /// fits many candidates and keeps one): the Hessian of the standard errors and the
-    /// forecasting state. The model has neither covariance nor a usable forecasting
-    /// state until [`complete_candidate`] is called with the returned [`Deferred`].
-    pub(crate) fn fit_as_candidate(
-        &self,
-        series: &[f64],
-        workspace: &mut FitWorkspace,
-    ) -> Result<(FittedModel, Deferred)> {
-        let prep = estimate::prepare(self, series, &[])?;
-        let layout = Layout::new(self);
-        let cell = RefCell::new(std::mem::take(&mut workspace.inner));
-        let result = fit_prepared(self, series, &[], &prep, &layout, &cell, false);
+        let result = optimise(self, &prep, &layout, &cell).and_then(|(coefs, kind, stages)| {
+            let mut fin = final_evaluation(self, &prep, &mut cell.borrow_mut(), &coefs, kind)?;
+            let beta_cov = fin.beta_cov.take();
+            let model = assemble(self, series, &prep, &coefs, kind, stages, fin)?;
+            Ok(UnfinishedFit {
+                model,
+                prep,
+                layout,
+                coefs,
+                kind,
+                beta_cov,
+            })
+        });
         workspace.inner = cell.into_inner();
         result
     }
 }
 
-/// What [`complete_candidate`] needs besides the model: the regression block of the
-/// covariance, computed during the fit.
-#[derive(Debug, Clone)]
-pub(crate) struct Deferred {
+/// A fitted model before its covariance and forecasting state (see
+/// [`Blueprint::fit_unfinished`]); it keeps the prepared data so that finishing does not
+/// prepare the series again.
+#[derive(Debug)]
+pub(crate) struct UnfinishedFit {
+    model: FittedModel,
+    prep: estimate::Prepared,
+    layout: Layout,
+    coefs: FactorCoefficients,
+    kind: ObjectiveKind,
     beta_cov: Option<Vec<f64>>,
 }
 
-/// Give a model fitted by [`Blueprint::fit_as_candidate`] on `series` its covariance,
-/// standard errors and forecasting state: bit for bit those of [`Blueprint::fit_with`].
-pub(crate) fn complete_candidate(
-    model: &mut FittedModel,
-    series: &[f64],
-    deferred: Deferred,
-    workspace: &mut FitWorkspace,
-) -> Result<()> {
-    let bp = model.blueprint.clone();
-    let prep = estimate::prepare(&bp, series, &[])?;
-    let layout = Layout::new(&bp);
-    let coefs = model.factor_coefficients();
-    let kind = if model.log_likelihood.is_exact() {
-        ObjectiveKind::Exact
-    } else {
-        ObjectiveKind::Conditional
-    };
-    let hess = estimate::hessian(&prep, &bp, &layout, kind, &mut workspace.inner, &coefs);
-    attach_covariance(model, &layout, &prep, hess, deferred.beta_cov);
-    model.terminal = crate::filter::forecasting::terminal_state(&model.forecaster, series, &[])?;
-    Ok(())
+impl UnfinishedFit {
+    /// The model so far: estimates, likelihood, criteria, residuals and their check; no
+    /// standard errors, and no forecasting state.
+    pub(crate) fn model(&self) -> &FittedModel {
+        &self.model
+    }
+
+    /// Add the covariance (Hessian of −log L; standard errors into the coefficients) and
+    /// the forecasting state at the end of `series`, the one the fit was made on.
+    pub(crate) fn finish(
+        self,
+        series: &[f64],
+        regressors: &[&[f64]],
+        workspace: &mut FitWorkspace,
+    ) -> Result<FittedModel> {
+        let UnfinishedFit {
+            mut model,
+            prep,
+            layout,
+            coefs,
+            kind,
+            beta_cov,
+        } = self;
+        let hess = estimate::hessian(
+            &prep,
+            &model.blueprint,
+            &layout,
+            kind,
+            &mut workspace.inner,
+            &coefs,
+        );
+        attach_covariance(&mut model, &layout, &prep, hess, beta_cov);
+        model.terminal =
+            crate::filter::forecasting::terminal_state(&model.forecaster, series, regressors)?;
+        Ok(model)
+    }
 }
 
 /// Covariance from the Hessian of −log L over free ARMA terms and the GLS covariance of
@@ -465,15 +494,14 @@ fn attach_covariance(
     model.covariance = covariance;
 }
 
-fn fit_prepared(
+/// Stage 1 of a fit: minimise the blueprint's objective (CSS, exact, or CSS then exact)
+/// from the Hannan–Rissanen starting values; the natural coefficients at the optimum.
+fn optimise(
     bp: &Blueprint,
-    series: &[f64],
-    regressors: &[&[f64]],
     prep: &estimate::Prepared,
     layout: &Layout,
     cell: &RefCell<EvalWorkspace>,
-    complete: bool,
-) -> Result<(FittedModel, Deferred)> {
+) -> Result<(FactorCoefficients, ObjectiveKind, Vec<StageRecord>)> {
     let start = estimate::starting_values(prep, bp);
     let x0 = estimate::coordinates(layout, &start).unwrap_or_else(|| vec![0.0; layout.free_len]);
     let mut stages = Vec::new();
@@ -507,12 +535,35 @@ fn fit_prepared(
             (x, kind)
         }
     };
-    let mut ws = cell.borrow_mut();
-    let coefs = estimate::natural(layout, &x, &mut ws).ok_or_else(|| {
+    let coefs = estimate::natural(layout, &x, &mut cell.borrow_mut()).ok_or_else(|| {
         Error::numerical("fit", "the optimiser ended outside the admissible region")
     })?;
+    Ok((coefs, kind, stages))
+}
+
+/// What the final evaluation at the optimum gives, in the caller's units.
+struct FinalEvaluation {
+    beta: Vec<f64>,
+    beta_cov: Option<Vec<f64>>,
+    innovation_variance: f64,
+    neg_log_likelihood: f64,
+    used: usize,
+    conditioned_on: usize,
+    residuals: Vec<f64>,
+    standardized: Vec<f64>,
+}
+
+/// Stage 2: evaluate the objective at the optimum once more, solve the regression by QR,
+/// and read σ², log L and the residuals on the original time axis.
+fn final_evaluation(
+    bp: &Blueprint,
+    prep: &estimate::Prepared,
+    ws: &mut EvalWorkspace,
+    coefs: &FactorCoefficients,
+    kind: ObjectiveKind,
+) -> Result<FinalEvaluation> {
     let mut ev = Evaluation::default();
-    ws.evaluate(prep, bp, &coefs, kind, None, &mut ev)?;
+    ws.evaluate(prep, bp, coefs, kind, None, &mut ev)?;
     let n = prep.n;
     let k = prep.ncols;
     let cond = match kind {
@@ -597,14 +648,32 @@ fn fit_prepared(
         residuals[t + loss] = v * scale;
         standardized[t + loss] = v * scale / (sd * f.sqrt());
     }
-    // The Hessian of −log L over the free ARMA terms (now, or later on request).
+    Ok(FinalEvaluation {
+        beta,
+        beta_cov,
+        innovation_variance: ev.innovation_variance,
+        neg_log_likelihood: ev.neg_log_likelihood,
+        used: ev.used,
+        conditioned_on: cond,
+        residuals,
+        standardized,
+    })
+}
+
+/// Stage 3: the model from the estimates: coefficients in the blueprint's order, inverse
+/// roots with their warnings, non-convergence warnings and the forecasting model (its
+/// state and the covariance come with [`UnfinishedFit::finish`]).
+fn assemble(
+    bp: &Blueprint,
+    series: &[f64],
+    prep: &estimate::Prepared,
+    coefs: &FactorCoefficients,
+    kind: ObjectiveKind,
+    stages: Vec<StageRecord>,
+    fin: FinalEvaluation,
+) -> Result<FittedModel> {
+    let beta = &fin.beta;
     let mut warnings = Vec::new();
-    let hess = if complete {
-        estimate::hessian(prep, bp, layout, kind, &mut ws, &coefs)
-    } else {
-        None
-    };
-    drop(ws);
     let mut coefficients = Vec::new();
     for term in bp.terms() {
         let held = bp.held_value(term);
@@ -662,45 +731,35 @@ fn fit_prepared(
         .filter(|c| !c.term.is_arma())
         .map(|c| (c.term, c.value))
         .collect();
-    let forecaster = ForecastModel::new(bp, &coefs, ev.innovation_variance, regression);
-    let terminal = if complete {
-        crate::filter::forecasting::terminal_state(&forecaster, series, regressors)?
-    } else {
-        FilterState::pending()
-    };
+    let forecaster = ForecastModel::new(bp, coefs, fin.innovation_variance, regression);
     let log_likelihood = match kind {
-        ObjectiveKind::Exact => LogLikelihood::Exact(-ev.neg_log_likelihood),
-        ObjectiveKind::Conditional => LogLikelihood::Conditional(-ev.neg_log_likelihood),
+        ObjectiveKind::Exact => LogLikelihood::Exact(-fin.neg_log_likelihood),
+        ObjectiveKind::Conditional => LogLikelihood::Conditional(-fin.neg_log_likelihood),
     };
-    let mut model = FittedModel {
+    let loss = bp.differencing_loss();
+    Ok(FittedModel {
         blueprint: bp.clone(),
         coefficients,
         covariance_terms: Vec::new(),
         covariance: None,
-        innovation_variance: ev.innovation_variance,
+        innovation_variance: fin.innovation_variance,
         log_likelihood,
         counts: ReadingCounts {
             total: prep.original_len,
             missing: prep.missing_original,
             lost_to_differencing: loss.min(prep.original_len),
-            conditioned_on: cond,
-            in_likelihood: ev.used,
+            conditioned_on: fin.conditioned_on,
+            in_likelihood: fin.used,
         },
         stages,
-        residuals,
-        standardized,
+        residuals: fin.residuals,
+        standardized: fin.standardized,
         roots,
         warnings,
         data_fingerprint: fingerprint(series),
         forecaster,
-        terminal,
-    };
-    if complete {
-        attach_covariance(&mut model, layout, prep, hess, beta_cov);
-        Ok((model, Deferred { beta_cov: None }))
-    } else {
-        Ok((model, Deferred { beta_cov }))
-    }
+        terminal: FilterState::pending(),
+    })
 }
 
 /// FNV-1a over the bit patterns of the readings (NaN canonicalised).

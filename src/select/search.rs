@@ -2,7 +2,7 @@
 //! measure, and a stepwise order search behind a residual-whiteness gate.
 
 use crate::base::error::{Error, ErrorKind, Result};
-use crate::fit::fitted::{Deferred, FitWorkspace, FittedModel};
+use crate::fit::fitted::{FitWorkspace, FittedModel, UnfinishedFit};
 use crate::model::blueprint::{Blueprint, Estimator, MAX_ORDER, MAX_PERIOD, ModelShape};
 use crate::stats::criteria::Criterion;
 use crate::stats::unitroot::{TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength};
@@ -416,7 +416,7 @@ pub fn search_orders_with(
     let (msp, msq) = if s > 1 { (msp, msq) } else { (0, 0) };
     let constant_allowed = d + sd <= 1;
     let mut tried: Vec<Candidate> = Vec::new();
-    let mut fits: Vec<Option<(FittedModel, Deferred)>> = Vec::new();
+    let mut fits: Vec<Option<UnfinishedFit>> = Vec::new();
     let key = |p: usize, q: usize, sp: usize, sq: usize, c: bool| (p, q, sp, sq, c);
     let mut seen = std::collections::HashSet::new();
 
@@ -426,7 +426,7 @@ pub fn search_orders_with(
                        sq: usize,
                        c: bool,
                        tried: &mut Vec<Candidate>,
-                       fits: &mut Vec<Option<(FittedModel, Deferred)>>|
+                       fits: &mut Vec<Option<UnfinishedFit>>|
      -> Option<f64> {
         if p > mp || q > mq || sp > msp || sq > msq || (c && !constant_allowed) {
             return None;
@@ -464,9 +464,9 @@ pub fn search_orders_with(
         };
         // Standard errors and the forecasting state only for the chosen candidate (the
         // Hessian is 2k² + 1 evaluations; the state is a filter pass over the series).
-        let fit = b.build().and_then(|bp| bp.fit_as_candidate(series, ws));
+        let fit = b.build().and_then(|bp| bp.fit_unfinished(series, &[], ws));
         match fit {
-            Ok((m, _)) if cancelling(&m) => {
+            Ok(u) if cancelling(u.model()) => {
                 // Discarded, and not a stepping stone either: navigating through such
                 // fits (the (2,2) start is often one) led the search into large orders
                 // at several times the cost without better recovery.
@@ -476,7 +476,8 @@ pub fn search_orders_with(
                 fits.push(None);
                 None
             }
-            Ok((m, deferred)) => {
+            Ok(u) => {
+                let m = u.model();
                 let crit = m
                     .criteria()
                     .ok()
@@ -495,7 +496,7 @@ pub fn search_orders_with(
                     cand.failure = Some(format!("{} undefined", settings.criterion));
                 }
                 tried.push(cand);
-                fits.push(Some((m, deferred)));
+                fits.push(Some(u));
                 crit
             }
             Err(e) => {
@@ -672,10 +673,10 @@ pub fn search_orders_with(
         explanation.push_str("; NO candidate passed the whiteness gate: this is the best inadequate one, do not trust its significance");
     }
     explanation.push('.');
-    let (mut model, deferred) = fits[idx]
+    let model = fits[idx]
         .take()
-        .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?;
-    crate::fit::fitted::complete_candidate(&mut model, series, deferred, ws)?;
+        .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?
+        .finish(series, &[], ws)?;
     Ok(SearchOutcome {
         model,
         adequate,
