@@ -1,14 +1,13 @@
 //! Automatic model building: unit-root and stationarity tests, a seasonal-strength
 //! measure, and a stepwise order search behind a residual-whiteness gate.
 
+use std::collections::HashMap;
+
 use crate::base::error::{Error, ErrorKind, Result};
 use crate::fit::fitted::{FitWorkspace, FittedModel, UnfinishedFit};
 use crate::model::blueprint::{Blueprint, Estimator, MAX_ORDER, MAX_PERIOD, ModelShape};
 use crate::stats::criteria::Criterion;
 use crate::stats::unitroot::{TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength};
-
-/// (p, q, P, Q, constant) of a candidate.
-type OrderKey = (usize, usize, usize, usize, bool);
 
 /// Settings of an automatic order search, built by [`SearchSettings::builder`] (validated
 /// at `build`, immutable after).
@@ -395,7 +394,6 @@ pub fn search_orders_with(
     settings: &SearchSettings,
     ws: &mut FitWorkspace,
 ) -> Result<SearchOutcome> {
-    const WHAT: &str = "order search";
     let s = settings.period.max(1);
     crate::base::screen::screen(series, WHAT, 8, crate::base::screen::ConstantPolicy::Refuse)?;
     let differencing = match settings.differencing {
@@ -406,54 +404,121 @@ pub fn search_orders_with(
         },
         None => choose_differencing(series, s)?,
     };
-    let (d, sd) = (differencing.d, differencing.seasonal_d);
-    let OrderBounds {
-        p: mp,
-        q: mq,
-        seasonal_p: msp,
-        seasonal_q: msq,
-    } = settings.max_orders;
-    let (msp, msq) = if s > 1 { (msp, msq) } else { (0, 0) };
-    let constant_allowed = d + sd <= 1;
-    let mut tried: Vec<Candidate> = Vec::new();
-    let mut fits: Vec<Option<UnfinishedFit>> = Vec::new();
-    let key = |p: usize, q: usize, sp: usize, sq: usize, c: bool| (p, q, sp, sq, c);
-    let mut seen = std::collections::HashSet::new();
+    let mut bench = CandidateBench::new(series, settings, &differencing);
+    if settings.exhaustive {
+        walk_exhaustive(&mut bench, ws);
+    } else {
+        walk_stepwise(&mut bench, ws);
+    }
+    let CandidateBench {
+        tried, mut fits, ..
+    } = bench;
+    let (idx, adequate) = select(&tried)?;
+    let explanation = explain(settings, &differencing, &tried, idx, adequate);
+    let model = fits[idx]
+        .take()
+        .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?
+        .finish(series, &[], ws)?;
+    Ok(SearchOutcome {
+        model,
+        adequate,
+        differencing,
+        candidates: tried,
+        explanation,
+    })
+}
 
-    let mut try_one = |p: usize,
-                       q: usize,
-                       sp: usize,
-                       sq: usize,
-                       c: bool,
-                       tried: &mut Vec<Candidate>,
-                       fits: &mut Vec<Option<UnfinishedFit>>|
-     -> Option<f64> {
-        if p > mp || q > mq || sp > msp || sq > msq || (c && !constant_allowed) {
+const WHAT: &str = "order search";
+
+/// The orders of one candidate (the differencing and period are the search's).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+struct Orders {
+    p: usize,
+    q: usize,
+    seasonal_p: usize,
+    seasonal_q: usize,
+    constant: bool,
+}
+
+/// Candidate evaluation: fits the candidates of one search on one series, records each in
+/// the account (criterion, whiteness gate, failure) with its unfinished fit, and answers
+/// a candidate met again from the record.
+struct CandidateBench<'a> {
+    series: &'a [f64],
+    settings: &'a SearchSettings,
+    d: usize,
+    seasonal_d: usize,
+    period: usize,
+    bounds: OrderBounds,
+    tried: Vec<Candidate>,
+    fits: Vec<Option<UnfinishedFit>>,
+    seen: HashMap<Orders, usize>,
+}
+
+impl<'a> CandidateBench<'a> {
+    fn new(
+        series: &'a [f64],
+        settings: &'a SearchSettings,
+        differencing: &DifferencingChoice,
+    ) -> Self {
+        let period = settings.period.max(1);
+        let mut bounds = settings.max_orders;
+        if period == 1 {
+            bounds.seasonal_p = 0;
+            bounds.seasonal_q = 0;
+        }
+        CandidateBench {
+            series,
+            settings,
+            d: differencing.d,
+            seasonal_d: differencing.seasonal_d,
+            period,
+            bounds,
+            tried: Vec::new(),
+            fits: Vec::new(),
+            seen: HashMap::new(),
+        }
+    }
+
+    /// Whether a mean (d + D = 0) or drift (d + D = 1) can be estimated.
+    fn constant_allowed(&self) -> bool {
+        self.d + self.seasonal_d <= 1
+    }
+
+    /// The criterion value of `o` (fitting it unless met before); `None` outside the
+    /// bounds, for a failed fit, or where the criterion is undefined.
+    fn evaluate(&mut self, o: Orders, ws: &mut FitWorkspace) -> Option<f64> {
+        let b = self.bounds;
+        if o.p > b.p
+            || o.q > b.q
+            || o.seasonal_p > b.seasonal_p
+            || o.seasonal_q > b.seasonal_q
+            || (o.constant && !self.constant_allowed())
+        {
             return None;
         }
-        let shape = ModelShape::of_orders(
-            [p, d, q],
-            [sp, sd, sq],
-            s,
-            c && d + sd == 0,
-            c && d + sd == 1,
-        );
-        if !seen.insert(key(p, q, sp, sq, c)) {
-            return tried
-                .iter()
-                .zip(fits.iter())
-                .find(|(cd, _)| cd.shape == shape)
-                .and_then(|(cd, _)| cd.criterion);
+        if let Some(&i) = self.seen.get(&o) {
+            return self.tried[i].criterion;
         }
-        let mut b = Blueprint::builder();
-        b.nonseasonal(p, d, q).estimator(settings.estimator);
+        let (d, sd, s) = (self.d, self.seasonal_d, self.period);
+        let shape = ModelShape::of_orders(
+            [o.p, d, o.q],
+            [o.seasonal_p, sd, o.seasonal_q],
+            s,
+            o.constant && d + sd == 0,
+            o.constant && d + sd == 1,
+        );
+        let mut builder = Blueprint::builder();
+        builder
+            .nonseasonal(o.p, d, o.q)
+            .estimator(self.settings.estimator);
         if s > 1 {
-            b.seasonal(sp, sd, sq, s);
+            builder.seasonal(o.seasonal_p, sd, o.seasonal_q, s);
         }
         if d + sd == 0 {
-            b.mean_term(c);
+            builder.mean_term(o.constant);
         } else if d + sd == 1 {
-            b.drift_term(c);
+            builder.drift_term(o.constant);
         }
         let mut cand = Candidate {
             shape,
@@ -464,26 +529,22 @@ pub fn search_orders_with(
         };
         // Standard errors and the forecasting state only for the chosen candidate (the
         // Hessian is 2k² + 1 evaluations; the state is a filter pass over the series).
-        let fit = b.build().and_then(|bp| bp.fit_unfinished(series, &[], ws));
-        match fit {
+        let fit = builder
+            .build()
+            .and_then(|bp| bp.fit_unfinished(self.series, &[], ws));
+        let kept = match fit {
             Ok(u) if cancelling(u.model()) => {
                 // Discarded, and not a stepping stone either: navigating through such
                 // fits (the (2,2) start is often one) led the search into large orders
                 // at several times the cost without better recovery.
                 cand.failure =
                     Some("near-cancelling AR and MA roots (redundant parameters)".into());
-                tried.push(cand);
-                fits.push(None);
                 None
             }
             Ok(u) => {
                 let m = u.model();
-                let crit = m
-                    .criteria()
-                    .ok()
-                    .and_then(|ic| ic.value(settings.criterion));
                 let h = m.default_check_lags();
-                match m.residual_check(h, settings.alpha) {
+                match m.residual_check(h, self.settings.alpha) {
                     Ok(check) => {
                         cand.whiteness_p =
                             check.portmanteau.row(h).and_then(|r| r.ljung_box_p_value);
@@ -491,156 +552,204 @@ pub fn search_orders_with(
                     }
                     Err(e) => cand.failure = Some(format!("residual check: {e}")),
                 }
-                cand.criterion = crit;
-                if crit.is_none() && cand.failure.is_none() {
-                    cand.failure = Some(format!("{} undefined", settings.criterion));
+                cand.criterion = m
+                    .criteria()
+                    .ok()
+                    .and_then(|ic| ic.value(self.settings.criterion));
+                if cand.criterion.is_none() && cand.failure.is_none() {
+                    cand.failure = Some(format!("{} undefined", self.settings.criterion));
                 }
-                tried.push(cand);
-                fits.push(Some(u));
-                crit
+                Some(u)
             }
             Err(e) => {
                 cand.failure = Some(e.to_string());
-                tried.push(cand);
-                fits.push(None);
                 None
             }
-        }
-    };
+        };
+        let criterion = cand.criterion;
+        self.seen.insert(o, self.tried.len());
+        self.tried.push(cand);
+        self.fits.push(kept);
+        criterion
+    }
+}
 
-    let c0 = constant_allowed;
-    if settings.exhaustive {
-        for p in 0..=mp {
-            for q in 0..=mq {
-                for sp in 0..=msp {
-                    for sq in 0..=msq {
-                        for c in [false, true] {
-                            if c && !c0 {
-                                continue;
-                            }
-                            try_one(p, q, sp, sq, c, &mut tried, &mut fits);
-                        }
+/// The exhaustive walk: every order within the bounds, with and without a constant.
+fn walk_exhaustive(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
+    let b = bench.bounds;
+    let constants: &[bool] = if bench.constant_allowed() {
+        &[false, true]
+    } else {
+        &[false]
+    };
+    for p in 0..=b.p {
+        for q in 0..=b.q {
+            for seasonal_p in 0..=b.seasonal_p {
+                for seasonal_q in 0..=b.seasonal_q {
+                    for &constant in constants {
+                        bench.evaluate(
+                            Orders {
+                                p,
+                                q,
+                                seasonal_p,
+                                seasonal_q,
+                                constant,
+                            },
+                            ws,
+                        );
                     }
                 }
             }
         }
+    }
+}
+
+/// The stepwise walk (Hyndman & Khandakar 2008): four starting models, then
+/// best-first over the neighbourhood graph. Each round expands the best-scored candidate
+/// not expanded yet among the best `beam`, skipping any more than `NEAR_TIE` criterion
+/// units behind the leader; the walk ends when none is left. A beam of one is the plain
+/// stepwise rule. A beam of two (on request) also follows a near-tied runner-up: the
+/// plain rule stops in the first local minimum, e.g. ARMA(1,2) for AR(2) data, whose
+/// runner-up ARMA(2,1) leads on to AR(2). (An unbounded beam of two that also stepped
+/// through discarded near-cancelling fits wandered into large orders at 14× the cost.)
+fn walk_stepwise(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
+    const NEAR_TIE: f64 = 2.0;
+    let seasonal = bench.period > 1;
+    let b = bench.bounds;
+    let c0 = bench.constant_allowed();
+    let starts: [(usize, usize, usize, usize); 4] = if seasonal {
+        [(2, 2, 1, 1), (0, 0, 0, 0), (1, 0, 1, 0), (0, 1, 0, 1)]
     } else {
-        let seasonal = s > 1;
-        let starts: Vec<(usize, usize, usize, usize)> = if seasonal {
-            vec![(2, 2, 1, 1), (0, 0, 0, 0), (1, 0, 1, 0), (0, 1, 0, 1)]
-        } else {
-            vec![(2, 2, 0, 0), (0, 0, 0, 0), (1, 0, 0, 0), (0, 1, 0, 0)]
-        };
-        // Best-first over the neighbourhood graph: each round expands the best-scored
-        // candidate not expanded yet among the best `beam`, skipping any more than
-        // `NEAR_TIE` criterion units behind the leader; the search ends when none is
-        // left. A beam of one is the plain stepwise rule. A beam of two (on request)
-        // also follows a near-tied runner-up: the plain rule stops in the first local
-        // minimum, e.g. ARMA(1,2) for AR(2) data, whose runner-up ARMA(2,1) leads on to
-        // AR(2). (An unbounded beam of two that also stepped through discarded
-        // near-cancelling fits wandered into large orders at 14× the cost.)
-        let beam = if settings.explore_near_ties { 2 } else { 1 };
-        const NEAR_TIE: f64 = 2.0;
-        let mut scored: Vec<(OrderKey, f64)> = Vec::new();
-        let note = |key: OrderKey, v: Option<f64>, scored: &mut Vec<(OrderKey, f64)>| {
-            if let Some(v) = v
-                && !scored.iter().any(|e| e.0 == key)
-            {
-                scored.push((key, v));
-            }
-        };
-        for (p, q, sp, sq) in starts {
-            let (p, q, sp, sq) = (p.min(mp), q.min(mq), sp.min(msp), sq.min(msq));
-            let v = try_one(p, q, sp, sq, c0, &mut tried, &mut fits);
-            note((p, q, sp, sq, c0), v, &mut scored);
+        [(2, 2, 0, 0), (0, 0, 0, 0), (1, 0, 0, 0), (0, 1, 0, 0)]
+    };
+    let beam = if bench.settings.explore_near_ties {
+        2
+    } else {
+        1
+    };
+    let mut scored: Vec<(Orders, f64)> = Vec::new();
+    let note = |o: Orders, v: Option<f64>, scored: &mut Vec<(Orders, f64)>| {
+        if let Some(v) = v
+            && !scored.iter().any(|e| e.0 == o)
+        {
+            scored.push((o, v));
         }
-        let mut expanded: Vec<OrderKey> = Vec::new();
-        let mut rounds = 0;
-        while rounds < 100 {
-            rounds += 1;
-            scored.sort_by(|x, y| x.1.total_cmp(&y.1));
-            let lead = scored.first().map_or(f64::INFINITY, |e| e.1);
-            let Some(&((p, q, sp, sq, c), _)) = scored
-                .iter()
-                .take(beam)
-                .filter(|e| e.1 <= lead + NEAR_TIE)
-                .find(|e| !expanded.contains(&e.0))
-            else {
-                break;
+    };
+    for (p, q, sp, sq) in starts {
+        let o = Orders {
+            p: p.min(b.p),
+            q: q.min(b.q),
+            seasonal_p: sp.min(b.seasonal_p),
+            seasonal_q: sq.min(b.seasonal_q),
+            constant: c0,
+        };
+        let v = bench.evaluate(o, ws);
+        note(o, v, &mut scored);
+    }
+    let mut expanded: Vec<Orders> = Vec::new();
+    for _round in 0..100 {
+        scored.sort_by(|x, y| x.1.total_cmp(&y.1));
+        let lead = scored.first().map_or(f64::INFINITY, |e| e.1);
+        let Some(&(o, _)) = scored
+            .iter()
+            .take(beam)
+            .filter(|e| e.1 <= lead + NEAR_TIE)
+            .find(|e| !expanded.contains(&e.0))
+        else {
+            break;
+        };
+        expanded.push(o);
+        let c = o.constant;
+        let mut moves: Vec<(isize, isize, isize, isize, bool)> = vec![
+            (-1, 0, 0, 0, c),
+            (1, 0, 0, 0, c),
+            (0, -1, 0, 0, c),
+            (0, 1, 0, 0, c),
+            (-1, -1, 0, 0, c),
+            (1, 1, 0, 0, c),
+            (0, 0, 0, 0, !c),
+        ];
+        if seasonal {
+            moves.extend([
+                (0, 0, -1, 0, c),
+                (0, 0, 1, 0, c),
+                (0, 0, 0, -1, c),
+                (0, 0, 0, 1, c),
+                (0, 0, -1, -1, c),
+                (0, 0, 1, 1, c),
+            ]);
+        }
+        for (dp, dq, dsp, dsq, constant) in moves {
+            let step = |v: usize, dv: isize| v.checked_add_signed(dv);
+            let (Some(p), Some(q), Some(seasonal_p), Some(seasonal_q)) = (
+                step(o.p, dp),
+                step(o.q, dq),
+                step(o.seasonal_p, dsp),
+                step(o.seasonal_q, dsq),
+            ) else {
+                continue;
             };
-            expanded.push((p, q, sp, sq, c));
-            let mut moves: Vec<(isize, isize, isize, isize, bool)> = vec![
-                (-1, 0, 0, 0, c),
-                (1, 0, 0, 0, c),
-                (0, -1, 0, 0, c),
-                (0, 1, 0, 0, c),
-                (-1, -1, 0, 0, c),
-                (1, 1, 0, 0, c),
-                (0, 0, 0, 0, !c),
-            ];
-            if seasonal {
-                moves.extend([
-                    (0, 0, -1, 0, c),
-                    (0, 0, 1, 0, c),
-                    (0, 0, 0, -1, c),
-                    (0, 0, 0, 1, c),
-                    (0, 0, -1, -1, c),
-                    (0, 0, 1, 1, c),
-                ]);
-            }
-            for (dp, dq, dsp, dsq, cc) in moves {
-                let np = p as isize + dp;
-                let nq = q as isize + dq;
-                let nsp = sp as isize + dsp;
-                let nsq = sq as isize + dsq;
-                if np < 0 || nq < 0 || nsp < 0 || nsq < 0 {
-                    continue;
-                }
-                let cand = (np as usize, nq as usize, nsp as usize, nsq as usize, cc);
-                let v = try_one(
-                    cand.0, cand.1, cand.2, cand.3, cand.4, &mut tried, &mut fits,
-                );
-                note(cand, v, &mut scored);
-            }
+            let next = Orders {
+                p,
+                q,
+                seasonal_p,
+                seasonal_q,
+                constant,
+            };
+            let v = bench.evaluate(next, ws);
+            note(next, v, &mut scored);
         }
     }
+}
 
-    // Selection behind the gate.
-    let pick = |adequate_only: bool| {
-        tried
-            .iter()
-            .enumerate()
-            .filter(|(_, c)| c.criterion.is_some() && (!adequate_only || c.adequate))
-            .min_by(|a, b| {
-                a.1.criterion
-                    .unwrap_or(f64::INFINITY)
-                    .total_cmp(&b.1.criterion.unwrap_or(f64::INFINITY))
-            })
-            .map(|(i, _)| i)
-    };
-    let (idx, adequate) = match pick(true) {
-        Some(i) => (i, true),
-        None => match pick(false) {
-            Some(i) => (i, false),
-            None => {
-                let reasons: Vec<String> = tried
-                    .iter()
-                    .filter_map(|c| c.failure.clone())
-                    .take(3)
-                    .collect();
-                return Err(Error::new(ErrorKind::NumericalFailure {
-                    what: WHAT,
-                    message: format!(
-                        "no candidate could be fitted ({} tried): {}",
-                        tried.len(),
-                        reasons.join("; ")
-                    ),
-                }));
-            }
-        },
-    };
-    let chosen = tried[idx].clone();
-    let best_overall = pick(false).map(|i| tried[i].clone());
+/// Selection behind the gate: the candidate with the lowest criterion among the adequate
+/// ones, else among all (flagged `false`); an error when no candidate could be fitted.
+fn select(tried: &[Candidate]) -> Result<(usize, bool)> {
+    if let Some(i) = best_of(tried, true) {
+        return Ok((i, true));
+    }
+    if let Some(i) = best_of(tried, false) {
+        return Ok((i, false));
+    }
+    let reasons: Vec<String> = tried
+        .iter()
+        .filter_map(|c| c.failure.clone())
+        .take(3)
+        .collect();
+    Err(Error::new(ErrorKind::NumericalFailure {
+        what: WHAT,
+        message: format!(
+            "no candidate could be fitted ({} tried): {}",
+            tried.len(),
+            reasons.join("; ")
+        ),
+    }))
+}
+
+/// The candidate with the lowest criterion value (adequate ones only if asked).
+fn best_of(tried: &[Candidate], adequate_only: bool) -> Option<usize> {
+    tried
+        .iter()
+        .enumerate()
+        .filter(|(_, c)| c.criterion.is_some() && (!adequate_only || c.adequate))
+        .min_by(|a, b| {
+            a.1.criterion
+                .unwrap_or(f64::INFINITY)
+                .total_cmp(&b.1.criterion.unwrap_or(f64::INFINITY))
+        })
+        .map(|(i, _)| i)
+}
+
+/// The explanation of the choice, in prose: the differencing evidence, the walk, the
+/// chosen candidate and why a candidate with a lower criterion was passed over.
+fn explain(
+    settings: &SearchSettings,
+    differencing: &DifferencingChoice,
+    tried: &[Candidate],
+    idx: usize,
+    adequate: bool,
+) -> String {
+    let chosen = &tried[idx];
     let mut explanation = format!(
         "{}. Tried {} candidates ({}); chose {} with {} = {:.3}",
         differencing.evidence,
@@ -659,7 +768,7 @@ pub fn search_orders_with(
             ", residuals white (Ljung–Box p = {:.3})",
             chosen.whiteness_p.unwrap_or(f64::NAN)
         ));
-        if let Some(b) = best_overall
+        if let Some(b) = best_of(tried, false).map(|i| &tried[i])
             && b.label() != chosen.label()
         {
             explanation.push_str(&format!(
@@ -673,17 +782,7 @@ pub fn search_orders_with(
         explanation.push_str("; NO candidate passed the whiteness gate: this is the best inadequate one, do not trust its significance");
     }
     explanation.push('.');
-    let model = fits[idx]
-        .take()
-        .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?
-        .finish(series, &[], ws)?;
-    Ok(SearchOutcome {
-        model,
-        adequate,
-        differencing,
-        candidates: tried,
-        explanation,
-    })
+    explanation
 }
 
 impl std::fmt::Display for SearchOutcome {
