@@ -1221,55 +1221,14 @@ pub(crate) fn minimise(
             reason = StopReason::IterationCap;
             break;
         }
-        let inv_h = carried.take().unwrap_or_else(|| {
-            let mut h = vec![vec![0.0; k]; k];
-            for (i, row) in h.iter_mut().enumerate() {
-                row[i] = 1.0;
-            }
-            h
-        });
-        let line = ArmijoCondition::new(1e-4)
-            .map(BacktrackingLineSearch::new)
-            .and_then(|l| l.rho(0.5));
-        let solver = line
-            .and_then(|l| BFGS::new(l).with_tolerance_grad(bp.tolerance))
-            .and_then(|s| s.with_tolerance_cost(1e-15))
-            .map_err(|e| Error::numerical("fit", format!("optimiser settings: {e}")))?;
-        let helper = Objective { ..obj };
-        let run = Executor::new(helper, solver)
-            .configure(|state| {
-                state
-                    .param(start)
-                    .inv_hessian(inv_h)
-                    .max_iters(remaining as u64)
-            })
-            .run();
-        let stalled = match &run {
-            Ok(res) => {
-                let st = res.state();
-                iterations += st.get_iter() as usize;
-                last_inv_hessian = st.get_inv_hessian().cloned();
-                match st.get_termination_status() {
-                    TerminationStatus::Terminated(TerminationReason::MaxItersReached)
-                    | TerminationStatus::NotTerminated => {
-                        reason = StopReason::IterationCap;
-                        false
-                    }
-                    TerminationStatus::Terminated(TerminationReason::SolverConverged) => {
-                        reason = StopReason::ObjectiveStalled;
-                        false
-                    }
-                    TerminationStatus::Terminated(_) => {
-                        reason = StopReason::LineSearchStuck;
-                        true
-                    }
-                }
-            }
-            Err(_) => {
-                reason = StopReason::LineSearchStuck;
-                true
-            }
-        };
+        let inv_h = carried.take().unwrap_or_else(|| identity(k));
+        let run = run_bfgs(&obj, start, inv_h, remaining, bp.tolerance)?;
+        iterations += run.iterations;
+        if run.completed {
+            last_inv_hessian = run.inv_hessian;
+        }
+        reason = run.reason;
+        let stalled = run.stalled;
         let here = best.borrow().1.clone();
         let g = obj.gradient_at(&here);
         gradient_norm = g.iter().map(|v| v * v).sum::<f64>().sqrt();
@@ -1299,30 +1258,7 @@ pub(crate) fn minimise(
 /// lagged long-AR residuals), pulled inside the admissible region.
 pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoefficients {
     let n = prep.n;
-    let k = prep.ncols;
-    // Remove the regression part by least squares on present readings.
-    let mut w: Vec<f64> = prep.data[..n].to_vec();
-    if k > 1 {
-        let rows: Vec<usize> = (0..n).filter(|&t| !w[t].is_nan()).collect();
-        let cols: Vec<Vec<f64>> = (1..k)
-            .map(|c| rows.iter().map(|&t| prep.data[c * n + t]).collect())
-            .collect();
-        let y: Vec<f64> = rows.iter().map(|&t| w[t]).collect();
-        if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
-            for t in 0..n {
-                let mut fit = 0.0;
-                for c in 1..k {
-                    fit += beta[c - 1] * prep.data[c * n + t];
-                }
-                w[t] -= fit;
-            }
-        }
-    }
-    for v in w.iter_mut() {
-        if v.is_nan() {
-            *v = 0.0;
-        }
-    }
+    let w = deregressed(prep);
     let (p, q, sp, sq, s) = (bp.p, bp.q, bp.seasonal_p, bp.seasonal_q, bp.period);
     let mut out = FactorCoefficients::zeros(p, q, sp, sq);
     // (factor, position from 0, lag) of every coefficient.
@@ -1347,29 +1283,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
     } else {
         (p_exp.max(q_exp) + nlog).min(n / 3)
     };
-    let mut ehat = vec![0.0; n];
-    if m > 0
-        && let Ok(cg) = crate::stats::correlogram::Correlogram::compute(&w, m)
-    {
-        // AR(m) coefficients from the correlogram's partial autocorrelations (kept
-        // inside ±0.999) by the Durbin–Levinson map.
-        let kappa: Vec<f64> = cg
-            .partial_autocorrelations()
-            .values()
-            .iter()
-            .map(|k| k.clamp(-0.999, 0.999))
-            .collect();
-        let mut a = vec![0.0; m];
-        let mut tmp = vec![0.0; m];
-        lag::coefficients_from_partials(&kappa, &mut a[..kappa.len()], &mut tmp);
-        for t in m..n {
-            let mut pred = 0.0;
-            for j in 1..=m {
-                pred += a[j - 1] * w[t - j];
-            }
-            ehat[t] = w[t] - pred;
-        }
-    }
+    let ehat = long_ar_innovations(&w, m);
     let max_lag = ar_lags
         .iter()
         .chain(&ma_lags)
@@ -1411,6 +1325,74 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
             }
         }
     }
+    keep_admissible(&mut out, bp);
+    out
+}
+
+/// The prepared series with its regression part (least squares on the present readings)
+/// removed and missing readings set to zero.
+fn deregressed(prep: &Prepared) -> Vec<f64> {
+    let n = prep.n;
+    let k = prep.ncols;
+    // Remove the regression part by least squares on present readings.
+    let mut w: Vec<f64> = prep.data[..n].to_vec();
+    if k > 1 {
+        let rows: Vec<usize> = (0..n).filter(|&t| !w[t].is_nan()).collect();
+        let cols: Vec<Vec<f64>> = (1..k)
+            .map(|c| rows.iter().map(|&t| prep.data[c * n + t]).collect())
+            .collect();
+        let y: Vec<f64> = rows.iter().map(|&t| w[t]).collect();
+        if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
+            for t in 0..n {
+                let mut fit = 0.0;
+                for c in 1..k {
+                    fit += beta[c - 1] * prep.data[c * n + t];
+                }
+                w[t] -= fit;
+            }
+        }
+    }
+    for v in w.iter_mut() {
+        if v.is_nan() {
+            *v = 0.0;
+        }
+    }
+    w
+}
+
+/// Innovations of a long AR(m) fitted by Durbin–Levinson to the correlogram of `w` (zero
+/// for the first `m` readings, and everywhere when `m = 0` or the correlogram fails).
+fn long_ar_innovations(w: &[f64], m: usize) -> Vec<f64> {
+    let n = w.len();
+    let mut ehat = vec![0.0; n];
+    if m > 0
+        && let Ok(cg) = crate::stats::correlogram::Correlogram::compute(w, m)
+    {
+        // AR(m) coefficients from the correlogram's partial autocorrelations (kept
+        // inside ±0.999) by the Durbin–Levinson map.
+        let kappa: Vec<f64> = cg
+            .partial_autocorrelations()
+            .values()
+            .iter()
+            .map(|k| k.clamp(-0.999, 0.999))
+            .collect();
+        let mut a = vec![0.0; m];
+        let mut tmp = vec![0.0; m];
+        lag::coefficients_from_partials(&kappa, &mut a[..kappa.len()], &mut tmp);
+        for t in m..n {
+            let mut pred = 0.0;
+            for j in 1..=m {
+                pred += a[j - 1] * w[t - j];
+            }
+            ehat[t] = w[t] - pred;
+        }
+    }
+    ehat
+}
+
+/// Held values exactly; free factors pulled strictly inside the admissible region
+/// (partial autocorrelations at most 0.95 in modulus).
+fn keep_admissible(out: &mut FactorCoefficients, bp: &Blueprint) {
     for f in Factor::ALL {
         let coefs = out.of_mut(f);
         let held_all: Vec<Option<f64>> = (1..=coefs.len())
@@ -1430,7 +1412,6 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
             *coefs = pulled;
         }
     }
-    out
 }
 
 /// Numerical Hessian of the profile `−log L` (total; regression profiled by GLS, σ²
@@ -1492,6 +1473,80 @@ pub(crate) fn hessian(
         .map(|v| v.map(|(nll, _)| nll))
         .collect::<Option<Vec<f64>>>()?;
     Some(hessian_from_stencil(k, &f, &h))
+}
+
+/// What one BFGS run reports to [`minimise`].
+struct BfgsRun {
+    /// Whether argmin returned a result (its state is then reported).
+    completed: bool,
+    iterations: usize,
+    inv_hessian: Option<Vec<Vec<f64>>>,
+    reason: StopReason,
+    /// Whether the run stopped for a reason a restart may cure (a stuck line search).
+    stalled: bool,
+}
+
+/// One argmin BFGS run with an Armijo backtracking line search from `start` with the
+/// inverse Hessian `inv_h`, for at most `max_iters` iterations.
+fn run_bfgs(
+    obj: &Objective<'_>,
+    start: Vec<f64>,
+    inv_h: Vec<Vec<f64>>,
+    max_iters: usize,
+    tolerance: f64,
+) -> Result<BfgsRun> {
+    let line = ArmijoCondition::new(1e-4)
+        .map(BacktrackingLineSearch::new)
+        .and_then(|l| l.rho(0.5));
+    let solver = line
+        .and_then(|l| BFGS::new(l).with_tolerance_grad(tolerance))
+        .and_then(|s| s.with_tolerance_cost(1e-15))
+        .map_err(|e| Error::numerical("fit", format!("optimiser settings: {e}")))?;
+    let helper = Objective { ..*obj };
+    let run = Executor::new(helper, solver)
+        .configure(|state| {
+            state
+                .param(start)
+                .inv_hessian(inv_h)
+                .max_iters(max_iters as u64)
+        })
+        .run();
+    Ok(match &run {
+        Ok(res) => {
+            let st = res.state();
+            let (reason, stalled) = match st.get_termination_status() {
+                TerminationStatus::Terminated(TerminationReason::MaxItersReached)
+                | TerminationStatus::NotTerminated => (StopReason::IterationCap, false),
+                TerminationStatus::Terminated(TerminationReason::SolverConverged) => {
+                    (StopReason::ObjectiveStalled, false)
+                }
+                TerminationStatus::Terminated(_) => (StopReason::LineSearchStuck, true),
+            };
+            BfgsRun {
+                completed: true,
+                iterations: st.get_iter() as usize,
+                inv_hessian: st.get_inv_hessian().cloned(),
+                reason,
+                stalled,
+            }
+        }
+        Err(_) => BfgsRun {
+            completed: false,
+            iterations: 0,
+            inv_hessian: None,
+            reason: StopReason::LineSearchStuck,
+            stalled: true,
+        },
+    })
+}
+
+/// The k × k identity as rows.
+fn identity(k: usize) -> Vec<Vec<f64>> {
+    let mut h = vec![vec![0.0; k]; k];
+    for (i, row) in h.iter_mut().enumerate() {
+        row[i] = 1.0;
+    }
+    h
 }
 
 /// Coordinates for the optimiser from natural coefficients (None if inadmissible).

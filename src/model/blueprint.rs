@@ -252,114 +252,21 @@ impl BlueprintBuilder {
     /// Validate the settings and return the blueprint.
     pub fn build(&self) -> Result<Blueprint> {
         let (p, d, q) = self.orders;
-        let (sp, sd, sq, period) = self.seasonal;
-        let bad = |field: &'static str, message: String| {
-            Err(Error::new(ErrorKind::InvalidSpecification {
-                field,
-                message,
-            }))
-        };
-        for (name, v) in [("p", p), ("q", q), ("P", sp), ("Q", sq)] {
-            if v > MAX_ORDER {
-                return bad(
-                    "orders",
-                    format!("order {name} = {v} exceeds the limit {MAX_ORDER}"),
-                );
-            }
-        }
-        if d > 3 || sd > 2 {
-            return bad(
-                "differencing",
-                format!("d = {d}, D = {sd}; at most d = 3 and D = 2 are supported"),
-            );
-        }
-        let seasonal = sp + sd + sq > 0;
-        let period = if seasonal { period } else { 1 };
-        if seasonal && period < 2 {
-            return bad(
-                "period",
-                format!("seasonal orders need a period s >= 2 readings, got s = {period}"),
-            );
-        }
-        if period > MAX_PERIOD {
-            return bad(
-                "period",
-                format!("period {period} exceeds the limit {MAX_PERIOD}"),
-            );
-        }
-        if p + sp * period > MAX_EXPANDED_DEGREE || q + sq * period > MAX_EXPANDED_DEGREE {
-            return bad(
-                "orders",
-                format!(
-                    "expanded degree above {MAX_EXPANDED_DEGREE}: p + P*s = {}, q + Q*s = {}",
-                    p + sp * period,
-                    q + sq * period
-                ),
-            );
-        }
-        let integrated = d + sd;
-        let mean = self.mean.unwrap_or(integrated == 0);
-        if mean && integrated > 0 {
-            return bad(
-                "mean",
-                "a mean is only identifiable for an undifferenced model (d + D = 0); use a drift for d + D = 1".into(),
-            );
-        }
-        let drift = self.drift.unwrap_or(false);
-        if drift && integrated != 1 {
-            return bad(
-                "drift",
-                format!(
-                    "a drift needs exactly one difference (d + D = 1), got d + D = {integrated}"
-                ),
-            );
-        }
-        for &(term, value) in &self.held {
-            if !value.is_finite() {
-                return bad(
-                    "hold",
-                    format!("held value for {term} is {value}; it must be finite"),
-                );
-            }
-            let exists = match term {
-                Term::Ar(i) => (1..=p).contains(&i),
-                Term::Ma(i) => (1..=q).contains(&i),
-                Term::SeasonalAr(i) => (1..=sp).contains(&i),
-                Term::SeasonalMa(i) => (1..=sq).contains(&i),
-                Term::Mean => mean,
-                Term::Drift => drift,
-                Term::Exogenous(i) => (1..=self.exogenous).contains(&i),
-            };
-            if !exists {
-                return bad("hold", format!("{term} is not a coefficient of this model"));
-            }
-        }
-        // A factor whose coefficients are all held must be admissible.
-        let mut held = self.held.clone();
-        held.sort_by_key(|h| h.0);
-        let tolerance = self.tolerance.unwrap_or(1e-7);
-        if !(tolerance > 0.0 && tolerance.is_finite()) {
-            return bad(
-                "tolerance",
-                format!("tolerance {tolerance} must be positive"),
-            );
-        }
+        let (sp, sd, sq, _) = self.seasonal;
+        let period = self.checked_orders()?;
+        let (mean, drift) = self.checked_constant()?;
+        let (tolerance, max_iterations) = self.checked_optimiser()?;
         if self.exogenous > 64 {
-            return bad(
+            return Err(spec_error(
                 "exogenous",
                 format!(
                     "{} regressor columns; at most 64 are supported",
                     self.exogenous
                 ),
-            );
+            ));
         }
-        let max_iterations = self.max_iterations.unwrap_or(200);
-        if max_iterations == 0 {
-            return bad(
-                "max_iterations",
-                "the iteration cap must be at least 1".into(),
-            );
-        }
+        let mut held = self.held.clone();
+        held.sort_by_key(|h| h.0);
         let bp = Blueprint {
             p,
             d,
@@ -376,24 +283,96 @@ impl BlueprintBuilder {
             tolerance,
             max_iterations,
         };
-        for (factor, len) in Factor::ALL.into_iter().zip([p, q, sp, sq]) {
-            if len > 0 && bp.factor_fully_held(factor, len) {
-                let coefs: Vec<f64> = (1..=len)
-                    .map(|i| bp.held_value(factor.term(i)).unwrap_or(0.0))
-                    .collect();
-                if !factor.is_admissible(&coefs) {
-                    return bad(
-                        "hold",
-                        format!(
-                            "the held {} coefficients are not {}",
-                            factor.label(),
-                            factor.admissible_word()
-                        ),
-                    );
-                }
+        bp.check_held()?;
+        Ok(bp)
+    }
+
+    /// Orders, differencing and period within their limits; the period in force (1 for
+    /// a model without seasonal terms).
+    fn checked_orders(&self) -> Result<usize> {
+        let (p, d, q) = self.orders;
+        let (sp, sd, sq, period) = self.seasonal;
+        for (name, v) in [("p", p), ("q", q), ("P", sp), ("Q", sq)] {
+            if v > MAX_ORDER {
+                return Err(spec_error(
+                    "orders",
+                    format!("order {name} = {v} exceeds the limit {MAX_ORDER}"),
+                ));
             }
         }
-        Ok(bp)
+        if d > 3 || sd > 2 {
+            return Err(spec_error(
+                "differencing",
+                format!("d = {d}, D = {sd}; at most d = 3 and D = 2 are supported"),
+            ));
+        }
+        let seasonal = sp + sd + sq > 0;
+        let period = if seasonal { period } else { 1 };
+        if seasonal && period < 2 {
+            return Err(spec_error(
+                "period",
+                format!("seasonal orders need a period s >= 2 readings, got s = {period}"),
+            ));
+        }
+        if period > MAX_PERIOD {
+            return Err(spec_error(
+                "period",
+                format!("period {period} exceeds the limit {MAX_PERIOD}"),
+            ));
+        }
+        if p + sp * period > MAX_EXPANDED_DEGREE || q + sq * period > MAX_EXPANDED_DEGREE {
+            return Err(spec_error(
+                "orders",
+                format!(
+                    "expanded degree above {MAX_EXPANDED_DEGREE}: p + P*s = {}, q + Q*s = {}",
+                    p + sp * period,
+                    q + sq * period
+                ),
+            ));
+        }
+        Ok(period)
+    }
+
+    /// Whether a mean and a drift are estimated: a mean by default for an undifferenced
+    /// model, and each only where it is identifiable.
+    fn checked_constant(&self) -> Result<(bool, bool)> {
+        let integrated = self.orders.1 + self.seasonal.1;
+        let mean = self.mean.unwrap_or(integrated == 0);
+        if mean && integrated > 0 {
+            return Err(spec_error(
+                "mean",
+                "a mean is only identifiable for an undifferenced model (d + D = 0); use a drift for d + D = 1".into(),
+            ));
+        }
+        let drift = self.drift.unwrap_or(false);
+        if drift && integrated != 1 {
+            return Err(spec_error(
+                "drift",
+                format!(
+                    "a drift needs exactly one difference (d + D = 1), got d + D = {integrated}"
+                ),
+            ));
+        }
+        Ok((mean, drift))
+    }
+
+    /// The optimiser's tolerance and iteration cap.
+    fn checked_optimiser(&self) -> Result<(f64, usize)> {
+        let tolerance = self.tolerance.unwrap_or(1e-7);
+        if !(tolerance > 0.0 && tolerance.is_finite()) {
+            return Err(spec_error(
+                "tolerance",
+                format!("tolerance {tolerance} must be positive"),
+            ));
+        }
+        let max_iterations = self.max_iterations.unwrap_or(200);
+        if max_iterations == 0 {
+            return Err(spec_error(
+                "max_iterations",
+                "the iteration cap must be at least 1".into(),
+            ));
+        }
+        Ok((tolerance, max_iterations))
     }
 }
 
@@ -499,6 +478,43 @@ impl Blueprint {
         shape.exogenous = u32::try_from(self.exogenous).unwrap_or(u32::MAX);
         shape
     }
+    /// Held values: finite, each a coefficient of this model, and a factor whose
+    /// coefficients are all held admissible.
+    fn check_held(&self) -> Result<()> {
+        for &(term, value) in &self.held {
+            if !value.is_finite() {
+                return Err(spec_error(
+                    "hold",
+                    format!("held value for {term} is {value}; it must be finite"),
+                ));
+            }
+            if !self.terms().contains(&term) {
+                return Err(spec_error(
+                    "hold",
+                    format!("{term} is not a coefficient of this model"),
+                ));
+            }
+        }
+        let lens = [self.p, self.q, self.seasonal_p, self.seasonal_q];
+        for (factor, len) in Factor::ALL.into_iter().zip(lens) {
+            if len > 0 && self.factor_fully_held(factor, len) {
+                let coefs: Vec<f64> = (1..=len)
+                    .map(|i| self.held_value(factor.term(i)).unwrap_or(0.0))
+                    .collect();
+                if !factor.is_admissible(&coefs) {
+                    return Err(spec_error(
+                        "hold",
+                        format!(
+                            "the held {} coefficients are not {}",
+                            factor.label(),
+                            factor.admissible_word()
+                        ),
+                    ));
+                }
+            }
+        }
+        Ok(())
+    }
     pub(crate) fn factor_fully_held(&self, factor: Factor, len: usize) -> bool {
         (1..=len).all(|i| self.held_value(factor.term(i)).is_some())
     }
@@ -600,6 +616,11 @@ impl std::fmt::Display for ModelShape {
             k => write!(f, " + {k} regressors"),
         }
     }
+}
+
+/// An invalid-specification error for `field`.
+fn spec_error(field: &'static str, message: String) -> Error {
+    Error::new(ErrorKind::InvalidSpecification { field, message })
 }
 
 #[cfg(test)]
