@@ -120,7 +120,7 @@ pub use filter::kalman::{exact_log_likelihood, reference_log_likelihood};
 pub use fit::compare::{NestedTest, RankedModel, nested_likelihood_ratio, rank_by_criterion};
 pub use fit::fitted::{
     CoefficientEstimate, FactorRoots, FitWarning, FitWorkspace, FittedModel, LikelihoodSurface,
-    LogLikelihood, NEAR_UNIT_MODULUS, ReadingCounts, ResidualCheck,
+    LogLikelihood, NEAR_UNIT_MODULUS, ParameterCovariance, ReadingCounts, ResidualCheck,
 };
 pub use fleet::{
     FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, SeriesOutcome,

@@ -7,6 +7,7 @@ mod bad_input_matrix;
 mod common;
 mod concurrency;
 mod correlogram_reference;
+mod covariance_reference;
 mod estimation_checks;
 mod fit_corpus;
 mod fleet_checks;

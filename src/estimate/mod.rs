@@ -1475,6 +1475,89 @@ pub(crate) fn hessian(
     Some(hessian_from_stencil(k, &f, &h))
 }
 
+/// Numerical Hessian of the full exact `−log L(z, β, σ²)` (nothing profiled or
+/// concentrated) over the free natural ARMA coefficients `z` at `c`, the profiled
+/// regression coefficients `beta` (scaled units, preliminary offsets included) and the
+/// innovation variance `sigma2` (scaled units), in that order. Central differences with
+/// steps `1e-4·max(|z|, 0.1)` (halved while a step leaves the admissible region),
+/// `1e-4·max(|β|, σ)` and `1e-4·σ²`.
+///
+/// `−log L = −log L_c(z, β) + (m/2)(ln(σ²/ŝ²) + ŝ²/σ² − 1)`, where `L_c` is the likelihood
+/// with σ² concentrated at `ŝ²(z, β) = SS(z, β)/m`: every point is one evaluation.
+pub(crate) fn full_hessian(
+    prep: &Prepared,
+    bp: &Blueprint,
+    layout: &Layout,
+    ws: &mut EvalWorkspace,
+    c: &FactorCoefficients,
+    beta: &[f64],
+    sigma2: f64,
+) -> Option<Vec<f64>> {
+    let z0 = layout.natural_free(c);
+    let na = z0.len();
+    let nb = beta.len();
+    let k = na + nb + 1;
+    let mut x0 = z0.clone();
+    x0.extend_from_slice(beta);
+    x0.push(sigma2);
+    let mut a = Vec::new();
+    let mut b = Vec::new();
+    let mut admissible = |zz: &[f64]| -> Option<FactorCoefficients> {
+        let cc = layout.with_natural_free(c, zz);
+        for f in Factor::ALL {
+            if !admissible_with(cc.of(f), f.step_down_sign(), &mut a, &mut b) {
+                return None;
+            }
+        }
+        Some(cc)
+    };
+    let sd = sigma2.sqrt();
+    let mut h = vec![0.0; k];
+    for i in 0..k {
+        h[i] = if i < na {
+            let mut hi = 1e-4 * z0[i].abs().max(0.1);
+            for _ in 0..30 {
+                let (mut zp, mut zm) = (z0.clone(), z0.clone());
+                zp[i] += hi;
+                zm[i] -= hi;
+                if admissible(&zp).is_some() && admissible(&zm).is_some() {
+                    break;
+                }
+                hi *= 0.5;
+            }
+            hi
+        } else if i < na + nb {
+            1e-4 * x0[i].abs().max(sd)
+        } else {
+            1e-4 * sigma2
+        };
+    }
+    let mut f = Vec::new();
+    let mut out = Evaluation::default();
+    for offsets in hessian_stencil(k) {
+        let mut x = x0.clone();
+        for &(i, sgn) in offsets.iter().flatten() {
+            x[i] += sgn * h[i];
+        }
+        let cc = admissible(&x[..na])?;
+        ws.evaluate(
+            prep,
+            bp,
+            &cc,
+            ObjectiveKind::Exact,
+            Some(&x[na..na + nb]),
+            &mut out,
+        )
+        .ok()?;
+        let (s2_hat, s2) = (out.innovation_variance, x[k - 1]);
+        let m = out.used as f64;
+        f.push(out.neg_log_likelihood + 0.5 * m * ((s2 / s2_hat).ln() + s2_hat / s2 - 1.0));
+    }
+    f.iter()
+        .all(|v| v.is_finite())
+        .then(|| hessian_from_stencil(k, &f, &h))
+}
+
 /// What one BFGS run reports to [`minimise`].
 struct BfgsRun {
     /// Whether argmin returned a result (its state is then reported).

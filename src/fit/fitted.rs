@@ -799,6 +799,42 @@ pub struct ResidualCheck {
     pub white: bool,
 }
 
+/// The covariance of every estimated parameter, σ² included, from the full Hessian of
+/// the exact log-likelihood (see [`FittedModel::full_covariance`]).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ParameterCovariance {
+    terms: Vec<Term>,
+    matrix: Vec<f64>,
+}
+
+impl ParameterCovariance {
+    /// The estimated coefficients indexing the matrix, in order; σ² follows them.
+    pub fn terms(&self) -> &[Term] {
+        &self.terms
+    }
+    /// The covariance matrix, row-major, of dimension `terms().len() + 1`: the
+    /// coefficients of [`ParameterCovariance::terms`], then σ².
+    pub fn matrix(&self) -> &[f64] {
+        &self.matrix
+    }
+    /// The covariance of two estimated coefficients (`None` if either is not estimated).
+    pub fn covariance(&self, a: Term, b: Term) -> Option<f64> {
+        let k = self.terms.len() + 1;
+        let i = self.terms.iter().position(|t| *t == a)?;
+        let j = self.terms.iter().position(|t| *t == b)?;
+        Some(self.matrix[i * k + j])
+    }
+    /// The standard error of an estimated coefficient.
+    pub fn std_error(&self, term: Term) -> Option<f64> {
+        self.covariance(term, term).map(f64::sqrt)
+    }
+    /// The standard error of the innovation variance σ².
+    pub fn innovation_variance_std_error(&self) -> f64 {
+        let k = self.terms.len() + 1;
+        self.matrix[k * k - 1].sqrt()
+    }
+}
+
 impl ResidualCheck {
     /// The check in one line a reader can verify: the Ljung–Box statistic at the check
     /// lag `H`, its degrees of freedom and p-value against `alpha`, the verdict that
@@ -851,6 +887,74 @@ impl FittedModel {
     /// Terms indexing [`FittedModel::covariance`].
     pub fn covariance_terms(&self) -> &[Term] {
         &self.covariance_terms
+    }
+    /// The covariance of every estimated parameter — ARMA coefficients, mean, drift and
+    /// regression coefficients, and σ² — from the inverse Hessian of the full exact
+    /// log-likelihood at the estimates, cross terms included. `series` (and `regressors`)
+    /// must be the readings the model was fitted to.
+    ///
+    /// [`FittedModel::covariance`] (and the standard errors in
+    /// [`FittedModel::coefficients`]) is block-diagonal instead: the ARMA block from the
+    /// Hessian of the profile likelihood, the regression block from the GLS fit, taken
+    /// as asymptotically independent. The two agree to first order; on short series the
+    /// regression standard errors differ by a fraction of a percent (0.35% seen at
+    /// n = 100). This one costs about `2k²` likelihood evaluations for `k` parameters.
+    ///
+    /// Errors: a conditional (CSS) fit, which has no full likelihood; other readings than
+    /// the fitted ones; a Hessian that is not positive definite.
+    pub fn full_covariance(
+        &self,
+        series: &[f64],
+        regressors: &[&[f64]],
+    ) -> Result<ParameterCovariance> {
+        const WHAT: &str = "full covariance";
+        if !self.log_likelihood.is_exact() {
+            return Err(Error::invalid(
+                WHAT,
+                "a conditional (CSS) fit has no full likelihood to differentiate",
+            ));
+        }
+        if fingerprint(series) != self.data_fingerprint {
+            return Err(Error::invalid(
+                WHAT,
+                "these are not the readings the model was fitted to",
+            ));
+        }
+        let bp = &self.blueprint;
+        let prep = estimate::prepare(bp, series, regressors)?;
+        let layout = Layout::new(bp);
+        let coefs = self.factor_coefficients();
+        let scale = prep.data_scale;
+        let beta: Vec<f64> = prep
+            .profiled
+            .iter()
+            .map(|t| self.coefficient(*t).map_or(f64::NAN, |c| c.value / scale))
+            .collect();
+        let sigma2 = self.innovation_variance / (scale * scale);
+        let mut ws = EvalWorkspace::default();
+        let hess = estimate::full_hessian(&prep, bp, &layout, &mut ws, &coefs, &beta, sigma2);
+        let k = layout.free_len + beta.len() + 1;
+        let mut matrix = hess
+            .and_then(|h| linalg::invert_spd(&h, k))
+            .ok_or_else(|| Error::numerical(WHAT, "the Hessian is not positive definite"))?;
+        // Back to the caller's units: β = scale·β̃, σ² = scale²·σ̃².
+        let unit = |i: usize| {
+            if i < layout.free_len {
+                1.0
+            } else if i + 1 < k {
+                scale
+            } else {
+                scale * scale
+            }
+        };
+        for i in 0..k {
+            for j in 0..k {
+                matrix[i * k + j] *= unit(i) * unit(j);
+            }
+        }
+        let mut terms = layout.free_terms();
+        terms.extend(prep.profiled.iter().copied());
+        Ok(ParameterCovariance { terms, matrix })
     }
     /// Estimated innovation variance σ² (ML: sum of squares / readings in likelihood).
     pub fn innovation_variance(&self) -> f64 {
