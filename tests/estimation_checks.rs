@@ -405,3 +405,25 @@ fn coefficient_tests_and_verdict_line_are_checkable() {
     assert_eq!(check.white, p >= 0.05);
     assert!(report.contains(&line), "{report}");
 }
+
+/// A point of the wrong length is the caller's programming error: a documented panic
+/// naming both lengths (STYLE: contract violations apart from bad data), while a point
+/// outside the admissible region is an ordinary typed error.
+#[test]
+#[should_panic(expected = "2 coefficients given, the surface has 1 free coefficients")]
+fn wrong_point_length_is_a_contract_violation() {
+    let x = Simulator::builder()
+        .autoregressive(&[0.5])
+        .build()
+        .unwrap()
+        .generate(200, 3);
+    let surface = Blueprint::builder()
+        .nonseasonal(1, 0, 0)
+        .build()
+        .unwrap()
+        .likelihood_surface(&x)
+        .unwrap();
+    let mut ws = FitWorkspace::new();
+    assert!(surface.exact_log_likelihood_with(&[1.5], &mut ws).is_err());
+    let _ = surface.exact_log_likelihood_with(&[0.1, 0.2], &mut ws);
+}

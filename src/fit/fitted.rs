@@ -1256,17 +1256,16 @@ impl LikelihoodSurface {
             .count()
     }
 
+    #[track_caller]
     fn eval(&self, arma: &[f64], ws: &mut FitWorkspace, kind: ObjectiveKind) -> Result<f64> {
-        if arma.len() != self.layout.free_len {
-            return Err(Error::invalid(
-                "likelihood surface",
-                format!(
-                    "{} coefficients given, {} expected",
-                    arma.len(),
-                    self.layout.free_len
-                ),
-            ));
-        }
+        // A wrong point length is the caller's programming error, not bad data.
+        assert_eq!(
+            arma.len(),
+            self.layout.free_len,
+            "likelihood surface: {} coefficients given, the surface has {} free coefficients",
+            arma.len(),
+            self.layout.free_len
+        );
         let inner = &mut ws.inner;
         let mut coefs = std::mem::take(&mut inner.scratch_coefs);
         let ok = self.layout.natural_raw(arma, &mut coefs, inner);
@@ -1286,6 +1285,7 @@ impl LikelihoodSurface {
         result
     }
 
+    #[track_caller]
     fn eval_many(
         &self,
         points: &[f64],
@@ -1294,16 +1294,13 @@ impl LikelihoodSurface {
         kind: ObjectiveKind,
     ) -> Result<()> {
         let k = self.layout.free_len;
-        if k == 0 || !points.len().is_multiple_of(k) {
-            return Err(Error::invalid(
-                "likelihood surface",
-                format!(
-                    "{} values given; points need {k} free coefficients each (with none \
-                     free, evaluate the single point instead)",
-                    points.len()
-                ),
-            ));
-        }
+        // A ragged batch is the caller's programming error, not bad data.
+        assert!(
+            k > 0 && points.len().is_multiple_of(k),
+            "likelihood surface: {} values given; points need {k} free coefficients each \
+             (with none free, evaluate the single point instead)",
+            points.len()
+        );
         let count = points.len() / k;
         let inner = &mut ws.inner;
         let mut coefs = std::mem::take(&mut inner.batch_coefs);
@@ -1342,7 +1339,11 @@ impl LikelihoodSurface {
     /// a mean or drift column, no missing readings) up to eight points share one pass over
     /// the data at about the cost of one; every value is bitwise the one
     /// [`Self::exact_log_likelihood_with`] returns. Allocation-free once `ws` and `out`
-    /// have grown. Errors if `points.len()` is not a multiple of the point size.
+    /// have grown.
+    ///
+    /// # Panics
+    /// If `points.len()` is not a multiple of [`Self::free_coefficients`] (or no
+    /// coefficient is free): a programming error of the caller, not a property of data.
     ///
     /// ```
     /// use lagwise::{Blueprint, FitWorkspace, Simulator};
@@ -1356,6 +1357,7 @@ impl LikelihoodSurface {
     /// assert_eq!(ll[6], surface.exact_log_likelihood_with(&[0.4], &mut ws)?);
     /// # Ok(()) }
     /// ```
+    #[track_caller]
     pub fn exact_log_likelihoods_with(
         &self,
         points: &[f64],
@@ -1366,6 +1368,10 @@ impl LikelihoodSurface {
     }
 
     /// The conditional (CSS) counterpart of [`Self::exact_log_likelihoods_with`].
+    ///
+    /// # Panics
+    /// As [`Self::exact_log_likelihoods_with`].
+    #[track_caller]
     pub fn conditional_log_likelihoods_with(
         &self,
         points: &[f64],
@@ -1376,12 +1382,20 @@ impl LikelihoodSurface {
     }
 
     /// Exact log-likelihood (σ² concentrated, regression profiled) at the free ARMA
-    /// coefficients `arma`.
+    /// coefficients `arma`; an error if they are not stationary/invertible.
+    ///
+    /// # Panics
+    /// If `arma.len()` differs from [`Self::free_coefficients`] (a programming error).
+    #[track_caller]
     pub fn exact_log_likelihood_with(&self, arma: &[f64], ws: &mut FitWorkspace) -> Result<f64> {
         self.eval(arma, ws, ObjectiveKind::Exact)
     }
 
     /// Conditional (CSS) log-likelihood at the free ARMA coefficients `arma`.
+    ///
+    /// # Panics
+    /// As [`Self::exact_log_likelihood_with`].
+    #[track_caller]
     pub fn conditional_log_likelihood_with(
         &self,
         arma: &[f64],
