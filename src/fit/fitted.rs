@@ -881,6 +881,10 @@ impl FittedModel {
     }
     /// Covariance matrix (row-major) of the estimated coefficients, in the order of
     /// [`FittedModel::covariance_terms`]; `None` if the Hessian was not positive definite.
+    /// Block-diagonal: the ARMA block from the Hessian of the profile likelihood, the
+    /// mean/drift/regression block from the GLS fit (asymptotically independent); the
+    /// standard errors in [`FittedModel::coefficients`] come from it. For σ² and the
+    /// cross terms see [`FittedModel::full_covariance`].
     pub fn covariance(&self) -> Option<&[f64]> {
         self.covariance.as_deref()
     }
