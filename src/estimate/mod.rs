@@ -426,7 +426,7 @@ pub(crate) enum ObjectiveKind {
 /// Reusable evaluation workspace: one per worker, reused across fits of any shape.
 #[derive(Debug, Default, Clone)]
 pub(crate) struct EvalWorkspace {
-    pub kalman: KalmanWorkspace,
+    kalman: KalmanWorkspace,
     coefs: FactorCoefficients,
     phi: Vec<f64>,
     theta: Vec<f64>,
@@ -438,7 +438,7 @@ pub(crate) struct EvalWorkspace {
     kappa: Vec<f64>,
     tmp: Vec<f64>,
     fill: Vec<f64>,
-    pub css_innov: Vec<f64>,
+    css_innov: Vec<f64>,
     pub scratch_coefs: FactorCoefficients,
     pub scratch_eval: Evaluation,
     /// Batch evaluation: one filter per lane (run up to its direct phase), per-lane
@@ -471,6 +471,15 @@ pub(crate) struct Evaluation {
 }
 
 impl EvalWorkspace {
+    /// The innovations of the last single evaluation of `kind` (column-major, one column
+    /// per data column) and, for the exact objective, their variances `F_t` (σ² = 1).
+    pub(crate) fn innovations(&self, kind: ObjectiveKind) -> (&[f64], Option<&[f64]>) {
+        match kind {
+            ObjectiveKind::Exact => (&self.kalman.innov, Some(&self.kalman.fvar)),
+            ObjectiveKind::Conditional => (&self.css_innov, None),
+        }
+    }
+
     fn expand(&mut self, c: &FactorCoefficients, period: usize) {
         c.expand_into(period, &mut self.phi, &mut self.theta);
         lag::nonzero_lags(&self.phi, &mut self.ar_nz);

@@ -578,10 +578,7 @@ fn final_evaluation(
     let mut beta = ev.beta.clone();
     let mut beta_cov: Option<Vec<f64>> = None;
     if k > 1 {
-        let (innov, fvar): (&[f64], Option<&[f64]>) = match kind {
-            ObjectiveKind::Exact => (&ws.kalman.innov, Some(&ws.kalman.fvar)),
-            ObjectiveKind::Conditional => (&ws.css_innov, None),
-        };
+        let (innov, fvar) = ws.innovations(kind);
         let rows: Vec<usize> = (cond..n).filter(|&t| !prep.data[t].is_nan()).collect();
         let wgt = |t: usize| fvar.map_or(1.0, |f| 1.0 / f[t].sqrt());
         let y: Vec<f64> = rows.iter().map(|&t| innov[t] * wgt(t)).collect();
@@ -632,10 +629,7 @@ fn final_evaluation(
     let mut residuals = vec![f64::NAN; prep.original_len];
     let mut standardized = vec![f64::NAN; prep.original_len];
     let sd = ev.innovation_variance.sqrt();
-    let (innov, fvar): (&[f64], Option<&[f64]>) = match kind {
-        ObjectiveKind::Exact => (&ws.kalman.innov, Some(&ws.kalman.fvar)),
-        ObjectiveKind::Conditional => (&ws.css_innov, None),
-    };
+    let (innov, fvar) = ws.innovations(kind);
     for t in cond..n {
         if prep.data[t].is_nan() {
             continue;
