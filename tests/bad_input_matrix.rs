@@ -426,29 +426,6 @@ fn matrix() {
             "InvalidArgument",
         ),
         (
-            "ragged points",
-            "likelihood batch",
-            variant(ar1().likelihood_surface(&good).and_then(|s| {
-                s.exact_log_likelihoods_with(
-                    &[0.1, 0.2, 0.3],
-                    &mut lagwise::FitWorkspace::new(),
-                    &mut Vec::new(),
-                )
-                .and_then(|()| {
-                    Blueprint::builder()
-                        .nonseasonal(2, 0, 0)
-                        .build()?
-                        .likelihood_surface(&good)?
-                        .exact_log_likelihoods_with(
-                            &[0.1, 0.2, 0.3],
-                            &mut lagwise::FitWorkspace::new(),
-                            &mut Vec::new(),
-                        )
-                })
-            })),
-            "InvalidArgument",
-        ),
-        (
             "nan in batch",
             "likelihood batch",
             variant(ar1().likelihood_surface(&with_nan).and_then(|s| {

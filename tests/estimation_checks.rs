@@ -427,3 +427,25 @@ fn wrong_point_length_is_a_contract_violation() {
     assert!(surface.exact_log_likelihood_with(&[1.5], &mut ws).is_err());
     let _ = surface.exact_log_likelihood_with(&[0.1, 0.2], &mut ws);
 }
+
+/// A ragged batch (not a whole number of points) is a contract violation too.
+#[test]
+#[should_panic(expected = "3 values given; points need 2 free coefficients each")]
+fn ragged_batch_is_a_contract_violation() {
+    let x = Simulator::builder()
+        .autoregressive(&[0.5])
+        .build()
+        .unwrap()
+        .generate(200, 3);
+    let surface = Blueprint::builder()
+        .nonseasonal(2, 0, 0)
+        .build()
+        .unwrap()
+        .likelihood_surface(&x)
+        .unwrap();
+    let _ = surface.exact_log_likelihoods_with(
+        &[0.1, 0.2, 0.3],
+        &mut FitWorkspace::new(),
+        &mut Vec::new(),
+    );
+}
