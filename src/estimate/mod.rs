@@ -1423,6 +1423,53 @@ fn keep_admissible(out: &mut FactorCoefficients, bp: &Blueprint) {
     }
 }
 
+/// Admissibility of perturbed coefficients for the numerical Hessians (with its scratch).
+#[derive(Default)]
+struct AdmissibleCheck {
+    a: Vec<f64>,
+    b: Vec<f64>,
+}
+
+impl AdmissibleCheck {
+    /// `c` with its free coefficients replaced by `z`, if every factor stays admissible.
+    fn coefficients(
+        &mut self,
+        layout: &Layout,
+        c: &FactorCoefficients,
+        z: &[f64],
+    ) -> Option<FactorCoefficients> {
+        let cc = layout.with_natural_free(c, z);
+        for f in Factor::ALL {
+            if !admissible_with(cc.of(f), f.step_down_sign(), &mut self.a, &mut self.b) {
+                return None;
+            }
+        }
+        Some(cc)
+    }
+
+    /// Central-difference steps for the free coefficients `z` of `c`:
+    /// `1e-4·max(|z|, 0.1)`, halved while a ±step leaves the admissible region.
+    fn steps(&mut self, layout: &Layout, c: &FactorCoefficients, z: &[f64]) -> Vec<f64> {
+        let mut h = vec![0.0; z.len()];
+        for i in 0..z.len() {
+            let mut hi = 1e-4 * z[i].abs().max(0.1);
+            for _ in 0..30 {
+                let (mut zp, mut zm) = (z.to_vec(), z.to_vec());
+                zp[i] += hi;
+                zm[i] -= hi;
+                if self.coefficients(layout, c, &zp).is_some()
+                    && self.coefficients(layout, c, &zm).is_some()
+                {
+                    break;
+                }
+                hi *= 0.5;
+            }
+            h[i] = hi;
+        }
+        h
+    }
+}
+
 /// Numerical Hessian of the profile `−log L` (total; regression profiled by GLS, σ²
 /// concentrated) over the free natural ARMA coefficients at `c`. Central differences
 /// with steps `1e-4·max(|z|, 0.1)`, halved while a step leaves the admissible region.
@@ -1439,33 +1486,8 @@ pub(crate) fn hessian(
     if k == 0 {
         return Some(Vec::new());
     }
-    let mut a = Vec::new();
-    let mut b = Vec::new();
-    let mut admissible = |zz: &[f64]| -> Option<FactorCoefficients> {
-        let cc = layout.with_natural_free(c, zz);
-        for f in Factor::ALL {
-            if !admissible_with(cc.of(f), f.step_down_sign(), &mut a, &mut b) {
-                return None;
-            }
-        }
-        Some(cc)
-    };
-    // Steps: halved while a ±step leaves the admissible region.
-    let mut h = vec![0.0; k];
-    for i in 0..k {
-        let mut hi = 1e-4 * z[i].abs().max(0.1);
-        for _ in 0..30 {
-            let mut zp = z.clone();
-            zp[i] += hi;
-            let mut zm = z.clone();
-            zm[i] -= hi;
-            if admissible(&zp).is_some() && admissible(&zm).is_some() {
-                break;
-            }
-            hi *= 0.5;
-        }
-        h[i] = hi;
-    }
+    let mut check = AdmissibleCheck::default();
+    let h = check.steps(layout, c, &z);
     // Every stencil point in one batch (lanes where the shape allows).
     let mut points = Vec::new();
     for offsets in hessian_stencil(k) {
@@ -1473,7 +1495,7 @@ pub(crate) fn hessian(
         for &(i, sgn) in offsets.iter().flatten() {
             zz[i] += sgn * h[i];
         }
-        points.push(admissible(&zz)?);
+        points.push(check.coefficients(layout, c, &zz)?);
     }
     let mut vals = Vec::new();
     ws.evaluate_batch(prep, bp, &points, kind, &mut vals);
@@ -1509,32 +1531,13 @@ pub(crate) fn full_hessian(
     let mut x0 = z0.clone();
     x0.extend_from_slice(beta);
     x0.push(sigma2);
-    let mut a = Vec::new();
-    let mut b = Vec::new();
-    let mut admissible = |zz: &[f64]| -> Option<FactorCoefficients> {
-        let cc = layout.with_natural_free(c, zz);
-        for f in Factor::ALL {
-            if !admissible_with(cc.of(f), f.step_down_sign(), &mut a, &mut b) {
-                return None;
-            }
-        }
-        Some(cc)
-    };
+    let mut check = AdmissibleCheck::default();
+    let arma_steps = check.steps(layout, c, &z0);
     let sd = sigma2.sqrt();
     let mut h = vec![0.0; k];
     for i in 0..k {
         h[i] = if i < na {
-            let mut hi = 1e-4 * z0[i].abs().max(0.1);
-            for _ in 0..30 {
-                let (mut zp, mut zm) = (z0.clone(), z0.clone());
-                zp[i] += hi;
-                zm[i] -= hi;
-                if admissible(&zp).is_some() && admissible(&zm).is_some() {
-                    break;
-                }
-                hi *= 0.5;
-            }
-            hi
+            arma_steps[i]
         } else if i < na + nb {
             1e-4 * x0[i].abs().max(sd)
         } else {
@@ -1548,7 +1551,7 @@ pub(crate) fn full_hessian(
         for &(i, sgn) in offsets.iter().flatten() {
             x[i] += sgn * h[i];
         }
-        let cc = admissible(&x[..na])?;
+        let cc = check.coefficients(layout, c, &x[..na])?;
         ws.evaluate(
             prep,
             bp,

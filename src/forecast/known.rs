@@ -3,10 +3,8 @@
 //! forecast and monitor from any history on the model's time axis.
 
 use crate::base::error::{Error, Result};
-use crate::base::screen::{ConstantPolicy, screen};
-use crate::estimate;
-use crate::filter::forecasting::{ForecastModel, terminal_state};
-use crate::forecast::{Forecast, Monitor};
+use crate::filter::forecasting::ForecastModel;
+use crate::forecast::{Forecast, Monitor, monitor_after};
 use crate::model::blueprint::{Blueprint, Term};
 use crate::model::coefficients::{Factor, FactorCoefficients};
 
@@ -139,11 +137,14 @@ impl KnownModel {
         regressors: &[&[f64]],
         alarm_level: f64,
     ) -> Result<Monitor> {
-        const WHAT: &str = "known model";
-        screen(history, WHAT, 1, ConstantPolicy::Allow)?;
-        estimate::check_regressors(&self.blueprint, history.len(), regressors, WHAT)?;
-        let state = terminal_state(&self.forecaster, history, regressors)?;
-        Monitor::new(self.forecaster.clone(), state, alarm_level)
+        monitor_after(
+            &self.blueprint,
+            &self.forecaster,
+            history,
+            regressors,
+            alarm_level,
+            "known model",
+        )
     }
 
     /// Forecast `horizon` readings past the end of `history` at the interval `levels`

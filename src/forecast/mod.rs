@@ -8,6 +8,7 @@ use crate::base::screen::{ConstantPolicy, screen};
 use crate::estimate;
 use crate::filter::forecasting::{FilterState, ForecastModel, terminal_state};
 use crate::fit::fitted::FittedModel;
+use crate::model::blueprint::Blueprint;
 
 mod known;
 pub use known::KnownModel;
@@ -213,11 +214,31 @@ impl FittedModel {
         regressors: &[&[f64]],
         alarm_level: f64,
     ) -> Result<Monitor> {
-        screen(history, "monitor", 1, ConstantPolicy::Allow)?;
-        estimate::check_regressors(&self.blueprint, history.len(), regressors, "monitor")?;
-        let st = terminal_state(&self.forecaster, history, regressors)?;
-        Monitor::new(self.forecaster.clone(), st, alarm_level)
+        monitor_after(
+            &self.blueprint,
+            &self.forecaster,
+            history,
+            regressors,
+            alarm_level,
+            "monitor",
+        )
     }
+}
+
+/// A monitor for the model of `blueprint` (its forecasting model `forecaster`) positioned
+/// after `history` and its regressor columns.
+pub(crate) fn monitor_after(
+    blueprint: &Blueprint,
+    forecaster: &ForecastModel,
+    history: &[f64],
+    regressors: &[&[f64]],
+    alarm_level: f64,
+    what: &'static str,
+) -> Result<Monitor> {
+    screen(history, what, 1, ConstantPolicy::Allow)?;
+    estimate::check_regressors(blueprint, history.len(), regressors, what)?;
+    let state = terminal_state(forecaster, history, regressors)?;
+    Monitor::new(forecaster.clone(), state, alarm_level)
 }
 
 /// What the monitor says about one new reading.
