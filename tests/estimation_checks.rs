@@ -406,23 +406,28 @@ fn coefficient_tests_and_verdict_line_are_checkable() {
     assert!(report.contains(&line), "{report}");
 }
 
+/// The likelihood surface of an AR(`p`) + mean over 200 simulated readings.
+fn ar_surface(p: usize) -> lagwise::LikelihoodSurface {
+    let x = Simulator::builder()
+        .autoregressive(&[0.5])
+        .build()
+        .unwrap()
+        .generate(200, 3);
+    Blueprint::builder()
+        .nonseasonal(p, 0, 0)
+        .build()
+        .unwrap()
+        .likelihood_surface(&x)
+        .unwrap()
+}
+
 /// A point of the wrong length is the caller's programming error: a documented panic
 /// naming both lengths (STYLE: contract violations apart from bad data), while a point
 /// outside the admissible region is an ordinary typed error.
 #[test]
 #[should_panic(expected = "2 coefficients given, the surface has 1 free coefficients")]
 fn wrong_point_length_is_a_contract_violation() {
-    let x = Simulator::builder()
-        .autoregressive(&[0.5])
-        .build()
-        .unwrap()
-        .generate(200, 3);
-    let surface = Blueprint::builder()
-        .nonseasonal(1, 0, 0)
-        .build()
-        .unwrap()
-        .likelihood_surface(&x)
-        .unwrap();
+    let surface = ar_surface(1);
     let mut ws = FitWorkspace::new();
     assert!(surface.exact_log_likelihood_with(&[1.5], &mut ws).is_err());
     let _ = surface.exact_log_likelihood_with(&[0.1, 0.2], &mut ws);
@@ -432,17 +437,7 @@ fn wrong_point_length_is_a_contract_violation() {
 #[test]
 #[should_panic(expected = "3 values given; points need 2 free coefficients each")]
 fn ragged_batch_is_a_contract_violation() {
-    let x = Simulator::builder()
-        .autoregressive(&[0.5])
-        .build()
-        .unwrap()
-        .generate(200, 3);
-    let surface = Blueprint::builder()
-        .nonseasonal(2, 0, 0)
-        .build()
-        .unwrap()
-        .likelihood_surface(&x)
-        .unwrap();
+    let surface = ar_surface(2);
     let _ = surface.exact_log_likelihoods_with(
         &[0.1, 0.2, 0.3],
         &mut FitWorkspace::new(),
