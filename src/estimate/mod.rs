@@ -12,7 +12,7 @@ use argmin::solver::quasinewton::BFGS;
 use crate::base::error::{Error, ErrorKind, Result};
 use crate::base::linalg;
 use crate::filter::innovations::{direct_recursion, segment_dot};
-use crate::filter::kalman::{KalmanWorkspace, PassTotals};
+use crate::filter::kalman::{DirectPhase, KalmanWorkspace};
 use crate::filter::lanes::add_lane_sums;
 use crate::model::blueprint::{Blueprint, Term};
 use crate::model::coefficients::{Factor, FactorCoefficients};
@@ -584,44 +584,33 @@ impl EvalWorkspace {
                     self.lane_filters
                         .resize(MAX_LANES, KalmanWorkspace::default());
                 }
-                // Each lane's filter opens with its own Chandrasekhar phase; four of them
-                // run side by side, then each continues alone up to its direct phase.
                 let mut active = [false; MAX_LANES];
                 for (l, c) in chunk.iter().enumerate() {
                     self.expand(c, bp.period);
-                    let filter = &mut self.lane_filters[l];
-                    if filter.set_model(&self.phi, &self.theta).is_err() {
+                    if self.lane_filters[l]
+                        .set_model(&self.phi, &self.theta)
+                        .is_err()
+                    {
                         status[l] = LaneStatus::Failed;
                         continue;
                     }
-                    let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
-                    filter.begin_pass(n, k, cross, true);
                     active[l] = true;
                 }
-                let mut opened = [(0usize, false, PassTotals::default()); MAX_LANES];
-                crate::filter::kalman::open_side_by_side(
+                let reached = crate::filter::kalman::run_to_direct_phase(
                     &mut self.lane_filters[..chunk.len()],
                     &active[..chunk.len()],
                     &prep.data,
                     n,
                     k,
                     &mut self.lane_cross,
-                    &mut opened,
                 );
-                for l in 0..chunk.len() {
-                    if !active[l] {
-                        continue;
-                    }
-                    let filter = &mut self.lane_filters[l];
-                    let cross = &mut self.lane_cross[l * kk..(l + 1) * kk];
-                    let (tot, stop) =
-                        filter.pass_from(&prep.data, n, k, cross, true, Some(opened[l]));
-                    log_det[l] = tot.log_det;
-                    used[l] = tot.used;
-                    match stop {
-                        Some(t) => {
-                            let ring = KalmanWorkspace::RING;
-                            lanes[l] = filter.lane_at(ring, ring - 1, k, t);
+                for l in (0..chunk.len()).filter(|&l| active[l]) {
+                    let DirectPhase { totals, rest } = reached[l];
+                    log_det[l] = totals.log_det;
+                    used[l] = totals.used;
+                    match rest {
+                        Some((t, lane)) => {
+                            lanes[l] = lane;
                             start[l] = t;
                         }
                         None => status[l] = LaneStatus::Done,

@@ -6,7 +6,7 @@
 
 use crate::base::error::{Error, Result};
 use crate::filter::innovations::{direct_recursion, segment_dot};
-use crate::filter::lanes::add_lane_sums;
+use crate::filter::lanes::{Lane, MAX_LANES, add_lane_sums};
 use crate::model::lag;
 
 mod chandrasekhar;
@@ -16,7 +16,7 @@ mod likelihood;
 mod start;
 
 use chandrasekhar::CHANDRASEKHAR_TOLERANCE;
-pub(crate) use chandrasekhar::open_side_by_side;
+use chandrasekhar::open_side_by_side;
 use gaps::GapFactors;
 pub use likelihood::{exact_log_likelihood, reference_log_likelihood};
 
@@ -113,7 +113,7 @@ impl KalmanWorkspace {
 
     /// Length of the innovation ring kept by [`Self::pass_until`] when it stops at the
     /// direct phase (enough for the lanes' MA history, a power of two).
-    pub(crate) const RING: usize = 4;
+    const RING: usize = 4;
 
     /// [`Self::pass`], optionally stopping where the direct phase would begin; then the
     /// second value is that time `t` (readings before `t` are done, `cross` holds their
@@ -133,13 +133,7 @@ impl KalmanWorkspace {
     }
 
     /// Size and clear the buffers of a pass (see [`Self::pass_until`]).
-    pub(crate) fn begin_pass(
-        &mut self,
-        n: usize,
-        ncols: usize,
-        cross: &mut [f64],
-        stop_at_direct: bool,
-    ) {
+    fn begin_pass(&mut self, n: usize, ncols: usize, cross: &mut [f64], stop_at_direct: bool) {
         let stride = if stop_at_direct { Self::RING } else { n };
         let r = self.r;
         resize(&mut self.state, ncols * r);
@@ -160,7 +154,7 @@ impl KalmanWorkspace {
     /// The pass after [`Self::begin_pass`]. `opened` is where an opening Chandrasekhar
     /// phase run elsewhere ([`open_side_by_side`]) stopped: `(t, converged, totals)`;
     /// `None` runs it here.
-    pub(crate) fn pass_from(
+    fn pass_from(
         &mut self,
         data: &[f64],
         n: usize,
@@ -396,7 +390,7 @@ impl KalmanWorkspace {
     /// The lane that continues this filter's direct phase at time `t`: the model's
     /// coefficients and the innovations before `t` (column stride and index mask as the
     /// pass stored them: `(n, usize::MAX)`, or `(RING, RING − 1)` after a stopping pass).
-    pub(crate) fn lane_at(
+    fn lane_at(
         &self,
         stride: usize,
         mask: usize,
@@ -454,6 +448,52 @@ impl KalmanWorkspace {
             }
         }
     }
+}
+
+/// Where a filter run by [`run_to_direct_phase`] stands: its totals so far, and, unless
+/// the whole series was consumed, the time its direct phase starts with the lane that
+/// continues it (model and innovation history).
+#[derive(Debug, Clone, Copy, Default)]
+pub(crate) struct DirectPhase {
+    pub(crate) totals: PassTotals,
+    pub(crate) rest: Option<(usize, Lane)>,
+}
+
+/// Run up to [`MAX_LANES`] filters (models already set; `active` marks the usable ones)
+/// over the same data until each reaches its direct phase: the opening Chandrasekhar
+/// phases side by side ([`open_side_by_side`]), then each filter alone. Cross-products go
+/// to `cross` (`ncols²` per filter). Every filter's arithmetic is exactly that of a
+/// single pass, so what the lanes kernel continues is bitwise a single evaluation.
+pub(crate) fn run_to_direct_phase(
+    filters: &mut [KalmanWorkspace],
+    active: &[bool],
+    data: &[f64],
+    n: usize,
+    ncols: usize,
+    cross: &mut [f64],
+) -> [DirectPhase; MAX_LANES] {
+    let kk = ncols * ncols;
+    for (l, filter) in filters.iter_mut().enumerate() {
+        if active[l] {
+            filter.begin_pass(n, ncols, &mut cross[l * kk..(l + 1) * kk], true);
+        }
+    }
+    let mut opened = [(0usize, false, PassTotals::default()); MAX_LANES];
+    open_side_by_side(filters, active, data, n, ncols, cross, &mut opened);
+    let mut out = [DirectPhase::default(); MAX_LANES];
+    for (l, filter) in filters.iter_mut().enumerate() {
+        if !active[l] {
+            continue;
+        }
+        let lane_cross = &mut cross[l * kk..(l + 1) * kk];
+        let (totals, stop) = filter.pass_from(data, n, ncols, lane_cross, true, Some(opened[l]));
+        let ring = KalmanWorkspace::RING;
+        out[l] = DirectPhase {
+            totals,
+            rest: stop.map(|t| (t, filter.lane_at(ring, ring - 1, ncols, t))),
+        };
+    }
+    out
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
