@@ -100,6 +100,23 @@ fn likelihood_evaluations_do_not_allocate() {
     let mut ws = FitWorkspace::new();
     for (bp, x, coefs) in &cases {
         let surface = bp.likelihood_surface(x).unwrap();
+        // A workspace sized in advance by the surface allocates nothing from the first
+        // evaluation on, and reports what it holds.
+        let mut sized = surface.workspace();
+        assert!(sized.heap_bytes() >= 8 * x.len(), "{}", sized.heap_bytes());
+        let before_first = ALLOCATIONS.load(Ordering::SeqCst);
+        surface
+            .exact_log_likelihood_with(coefs, &mut sized)
+            .unwrap();
+        surface
+            .conditional_log_likelihood_with(coefs, &mut sized)
+            .unwrap();
+        assert_eq!(
+            ALLOCATIONS.load(Ordering::SeqCst),
+            before_first,
+            "{}: first evaluations on a sized workspace allocated",
+            bp.shape_label()
+        );
         // Warm-up: the workspace grows to this shape and length.
         surface.exact_log_likelihood_with(coefs, &mut ws).unwrap();
         surface

@@ -471,6 +471,38 @@ pub(crate) struct Evaluation {
 }
 
 impl EvalWorkspace {
+    /// Heap bytes held by this workspace (filters, lanes and scratch included).
+    pub(crate) fn heap_bytes(&self) -> usize {
+        use crate::base::vec_bytes as b;
+        let coefs = |c: &FactorCoefficients| Factor::ALL.iter().map(|f| b(c.of(*f))).sum::<usize>();
+        self.kalman.heap_bytes()
+            + coefs(&self.coefs)
+            + b(&self.phi)
+            + b(&self.theta)
+            + b(&self.ar_nz)
+            + b(&self.ma_nz)
+            + b(&self.cross)
+            + b(&self.gram)
+            + b(&self.rhs)
+            + b(&self.kappa)
+            + b(&self.tmp)
+            + b(&self.fill)
+            + b(&self.css_innov)
+            + coefs(&self.scratch_coefs)
+            + b(&self.scratch_eval.beta)
+            + b(&self.lane_filters)
+            + self
+                .lane_filters
+                .iter()
+                .map(KalmanWorkspace::heap_bytes)
+                .sum::<usize>()
+            + b(&self.lane_cross)
+            + b(&self.batch_coefs)
+            + self.batch_coefs.iter().map(coefs).sum::<usize>()
+            + b(&self.batch_values)
+            + b(&self.batch_slots)
+    }
+
     /// The innovations of the last single evaluation of `kind` (column-major, one column
     /// per data column) and, for the exact objective, their variances `F_t` (σ² = 1).
     pub(crate) fn innovations(&self, kind: ObjectiveKind) -> (&[f64], Option<&[f64]>) {

@@ -34,6 +34,11 @@ impl FitWorkspace {
     pub fn new() -> Self {
         Self::default()
     }
+    /// Heap bytes the workspace holds now (what one worker keeps between fits; see
+    /// [`LikelihoodSurface::workspace`] for a workspace sized in advance).
+    pub fn heap_bytes(&self) -> usize {
+        self.inner.heap_bytes()
+    }
 }
 
 /// The kind of log-likelihood a fit reports.
@@ -1240,6 +1245,29 @@ impl Blueprint {
 }
 
 impl LikelihoodSurface {
+    /// The workspace this surface's evaluations need, grown in advance by evaluations at
+    /// an admissible point with every free coefficient non-zero: single and batch
+    /// evaluations (up to the lanes' width of points per batch) then allocate nothing
+    /// from the first call on (tested with and without missing readings; a gap pattern
+    /// whose factored step needs a higher rank at another point can grow it once more).
+    /// Its size is [`FitWorkspace::heap_bytes`].
+    pub fn workspace(&self) -> FitWorkspace {
+        let mut ws = FitWorkspace::new();
+        // A point with every free coefficient non-zero (so every sparse list reaches its
+        // full length) and admissible (absolute sums below 0.4 in each factor).
+        let k = self.layout.free_len;
+        let point: Vec<f64> = (0..k).map(|j| 0.2 * 0.5f64.powi(j as i32)).collect();
+        let _ = self.eval(&point, &mut ws, ObjectiveKind::Exact);
+        let _ = self.eval(&point, &mut ws, ObjectiveKind::Conditional);
+        if k > 0 {
+            let batch = point.repeat(crate::filter::lanes::MAX_LANES);
+            let mut out = Vec::new();
+            let _ = self.eval_many(&batch, &mut ws, &mut out, ObjectiveKind::Exact);
+            let _ = self.eval_many(&batch, &mut ws, &mut out, ObjectiveKind::Conditional);
+        }
+        ws
+    }
+
     /// Number of free ARMA coefficients expected by the evaluation methods (canonical
     /// order φ, θ, Φ, Θ, skipping held ones).
     pub fn free_coefficients(&self) -> usize {

@@ -32,6 +32,19 @@ pub(super) struct GapFactors {
 pub(super) const GAPPY_MIN_STATE: usize = 8;
 
 impl GapFactors {
+    /// Heap bytes held by the factors and their scratch.
+    pub(super) fn heap_bytes(&self) -> usize {
+        use crate::base::vec_bytes as b;
+        b(&self.w)
+            + b(&self.m)
+            + b(&self.w_next)
+            + b(&self.m_next)
+            + b(&self.g_next)
+            + b(&self.a)
+            + b(&self.ma)
+            + b(&self.norms)
+            + b(&self.kept)
+    }
     /// Forget the factors (a new pass begins).
     pub(super) fn clear(&mut self) {
         self.ready = false;

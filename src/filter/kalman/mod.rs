@@ -98,6 +98,38 @@ pub(crate) struct PassTotals {
 }
 
 impl KalmanWorkspace {
+    /// Heap bytes held by this workspace.
+    pub(crate) fn heap_bytes(&self) -> usize {
+        use crate::base::vec_bytes as b;
+        [
+            b(&self.phi),
+            b(&self.rvec),
+            b(&self.ar_nz),
+            b(&self.ma_nz),
+            b(&self.p),
+            b(&self.pn),
+            b(&self.ch_g),
+            b(&self.ch_w),
+            self.gap.heap_bytes(),
+            b(&self.kcol),
+            b(&self.state),
+            b(&self.tmp),
+            b(&self.gamma_u),
+            b(&self.gamma_x),
+            b(&self.psi),
+            b(&self.kappa),
+            b(&self.dl_a),
+            b(&self.dl_b),
+            b(&self.macov),
+            b(&self.innov),
+            b(&self.fvar),
+        ]
+        .iter()
+        .sum()
+    }
+}
+
+impl KalmanWorkspace {
     /// Run the filter over `ncols` columns of length `n` stored column-major in `data`
     /// (column 0 decides missingness). Innovations go to `self.innov`, F to `self.fvar`;
     /// `cross` (ncols×ncols, row-major) receives Σ v_i v_j / F.
