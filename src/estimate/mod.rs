@@ -118,7 +118,6 @@ pub(crate) fn check_regressors(
 pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> Result<Prepared> {
     const WHAT: &str = "fit";
     check_regressors(bp, series.len(), regressors, WHAT)?;
-    let (p_exp, q_exp) = bp.expanded_degrees();
     let loss = bp.differencing_loss();
     let estimated = bp
         .terms()
@@ -154,31 +153,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
     let w = difference(&y, bp.d, bp.seasonal_d, bp.period);
     let n = w.len();
     let present_w = w.iter().filter(|v| !v.is_nan()).count();
-    // Need more readings than estimated parameters (σ² included) after differencing and
-    // conditioning.
-    let needed = estimated
-        + 2
-        + if bp.estimator == crate::model::blueprint::Estimator::ConditionalSumOfSquares {
-            p_exp
-        } else {
-            0
-        };
-    if present_w < needed {
-        return Err(Error::new(ErrorKind::TooShort {
-            what: WHAT,
-            present: s.present,
-            needed: needed + loss + (s.present - present_w.min(s.present)).min(loss),
-        }));
-    }
-    if p_exp + q_exp >= n {
-        return Err(Error::invalid(
-            WHAT,
-            format!(
-                "expanded orders p + P*s = {p_exp}, q + Q*s = {q_exp} need more than {} differenced readings",
-                n
-            ),
-        ));
-    }
+    check_orders_fit(bp, s.present, present_w, n)?;
     let present: Vec<f64> = w.iter().copied().filter(|v| !v.is_nan()).collect();
     let mean = present.iter().sum::<f64>() / present.len() as f64;
     let var = present.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / present.len() as f64;
@@ -226,6 +201,56 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         has_missing: present_w < n,
         missing_original: series.len() - s.present,
     })
+}
+
+/// Whether the data leave enough readings for `bp`'s orders: more present differenced
+/// readings than estimated parameters (σ² included, and the conditioned-on readings for
+/// CSS), and more differenced readings than the expanded orders.
+fn check_orders_fit(bp: &Blueprint, present: usize, present_w: usize, n: usize) -> Result<()> {
+    const WHAT: &str = "fit";
+    let (p_exp, q_exp) = bp.expanded_degrees();
+    let loss = bp.differencing_loss();
+    let estimated = bp
+        .terms()
+        .iter()
+        .filter(|t| bp.held_value(**t).is_none())
+        .count();
+    let needed = estimated
+        + 2
+        + if bp.estimator == crate::model::blueprint::Estimator::ConditionalSumOfSquares {
+            p_exp
+        } else {
+            0
+        };
+    if present_w < needed {
+        return Err(Error::new(ErrorKind::TooShort {
+            what: WHAT,
+            present,
+            needed: needed + loss + (present - present_w.min(present)).min(loss),
+        }));
+    }
+    if p_exp + q_exp >= n {
+        return Err(Error::invalid(
+            WHAT,
+            format!(
+                "expanded orders p + P*s = {p_exp}, q + Q*s = {q_exp} need more than {} differenced readings",
+                n
+            ),
+        ));
+    }
+    Ok(())
+}
+
+impl Prepared {
+    /// The same prepared data for another blueprint with the same differencing, period
+    /// and regression terms (an order search's candidates), after the checks that
+    /// depend on its orders.
+    pub(crate) fn reuse_for(&self, bp: &Blueprint) -> Result<Prepared> {
+        let present = self.original_len - self.missing_original;
+        let present_w = self.data[..self.n].iter().filter(|v| !v.is_nan()).count();
+        check_orders_fit(bp, present, present_w, self.n)?;
+        Ok(self.clone())
+    }
 }
 
 #[derive(Debug, Clone)]

@@ -377,6 +377,17 @@ impl Blueprint {
         workspace: &mut FitWorkspace,
     ) -> Result<UnfinishedFit> {
         let prep = estimate::prepare(self, series, regressors)?;
+        self.fit_prepared(series, prep, workspace)
+    }
+
+    /// [`Blueprint::fit_unfinished`] on data prepared already (for this blueprint, or
+    /// reused from another with the same differencing and regression terms).
+    pub(crate) fn fit_prepared(
+        &self,
+        series: &[f64],
+        prep: estimate::Prepared,
+        workspace: &mut FitWorkspace,
+    ) -> Result<UnfinishedFit> {
         let layout = Layout::new(self);
         let cell = RefCell::new(std::mem::take(&mut workspace.inner));
         let result = optimise(self, &prep, &layout, &cell).and_then(|(coefs, kind, stages)| {
@@ -415,6 +426,12 @@ impl UnfinishedFit {
     /// standard errors, and no forecasting state.
     pub(crate) fn model(&self) -> &FittedModel {
         &self.model
+    }
+
+    /// The prepared data of the fit (to reuse for a blueprint with the same
+    /// differencing and regression terms).
+    pub(crate) fn prepared(&self) -> &estimate::Prepared {
+        &self.prep
     }
 
     /// Add the covariance (Hessian of −log L; standard errors into the coefficients) and

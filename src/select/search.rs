@@ -4,6 +4,7 @@
 use std::collections::HashMap;
 
 use crate::base::error::{Error, ErrorKind, Result};
+use crate::estimate::Prepared;
 use crate::fit::fitted::{FitWorkspace, FittedModel, UnfinishedFit};
 use crate::model::blueprint::{Blueprint, Estimator, MAX_ORDER, MAX_PERIOD, ModelShape};
 use crate::stats::criteria::Criterion;
@@ -453,6 +454,8 @@ struct CandidateBench<'a> {
     tried: Vec<Candidate>,
     fits: Vec<Option<UnfinishedFit>>,
     seen: HashMap<Orders, usize>,
+    /// Prepared data by constant (with or without a mean/drift column).
+    prepared: HashMap<bool, Prepared>,
 }
 
 impl<'a> CandidateBench<'a> {
@@ -477,6 +480,7 @@ impl<'a> CandidateBench<'a> {
             tried: Vec::new(),
             fits: Vec::new(),
             seen: HashMap::new(),
+            prepared: HashMap::new(),
         }
     }
 
@@ -529,9 +533,20 @@ impl<'a> CandidateBench<'a> {
         };
         // Standard errors and the forecasting state only for the chosen candidate (the
         // Hessian is 2k² + 1 evaluations; the state is a filter pass over the series).
-        let fit = builder
-            .build()
-            .and_then(|bp| bp.fit_unfinished(self.series, &[], ws));
+        // Candidates with the same constant share their prepared data (same
+        // differencing and regression columns): screened and differenced once.
+        let fit = builder.build().and_then(|bp| {
+            let prep = match self.prepared.get(&o.constant) {
+                Some(p) => p.reuse_for(&bp)?,
+                None => crate::estimate::prepare(&bp, self.series, &[])?,
+            };
+            bp.fit_prepared(self.series, prep, ws)
+        });
+        if let Ok(u) = &fit {
+            self.prepared
+                .entry(o.constant)
+                .or_insert_with(|| u.prepared().clone());
+        }
         let kept = match fit {
             Ok(u) if cancelling(u.model()) => {
                 // Discarded, and not a stepping stone either: navigating through such
