@@ -146,8 +146,10 @@ pub use stats::correlogram::{
     cross_correlogram_with, partial_from_autocorrelations,
 };
 pub use stats::criteria::{Criterion, InformationCriteria};
-pub use stats::portmanteau::{PortmanteauRow, PortmanteauScan};
-pub use stats::unitroot::{RootTest, TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength};
+pub use stats::portmanteau::{LagPValue, PortmanteauRow, PortmanteauScan};
+pub use stats::unitroot::{
+    CriticalValue, RootTest, TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength,
+};
 pub use store::persist::{
     FORMAT_VERSION, blueprint_from_json, blueprint_to_json, model_from_json, model_to_json,
     model_to_json_keeping_residuals, monitor_from_json, monitor_to_json,

@@ -26,7 +26,12 @@ fn bits(s: &FitSummary) -> Vec<u64> {
     v.push(s.innovation_variance.to_bits());
     v.push(s.log_likelihood.value().to_bits());
     v.push(s.whiteness.p_value_at_last_lag.unwrap_or(-1.0).to_bits());
-    v.push(s.whiteness.weakest_lag.map_or(-1.0, |w| w.1).to_bits());
+    v.push(
+        s.whiteness
+            .weakest_lag
+            .map_or(-1.0, |w| w.p_value)
+            .to_bits(),
+    );
     v
 }
 
@@ -222,7 +227,8 @@ fn whiteness_digest_and_monitors_match_single_fits() {
             s.whiteness.p_value_at_last_lag,
             rows.last().unwrap().ljung_box_p_value
         );
-        let (lag, p) = s.whiteness.weakest_lag.unwrap();
+        let weakest = s.whiteness.weakest_lag.unwrap();
+        let (lag, p) = (weakest.lag, weakest.p_value);
         assert!(
             rows.iter()
                 .all(|r| r.ljung_box_p_value.is_none_or(|q| q >= p))

@@ -66,10 +66,12 @@ fn adf_critical_values_match_fuller_table() {
         "{}",
         lvl.observations
     );
-    for ((level, got), want) in lvl.critical_values.iter().zip([-2.58, -2.89, -3.51]) {
+    for (c, want) in lvl.critical_values.iter().zip([-2.58, -2.89, -3.51]) {
+        let (level, got) = (c.level, c.value);
         assert!((got - want).abs() < 0.02, "τμ {level}: {got} vs {want}");
     }
-    for ((level, got), want) in tr.critical_values.iter().zip([-3.15, -3.45, -4.04]) {
+    for (c, want) in tr.critical_values.iter().zip([-3.15, -3.45, -4.04]) {
+        let (level, got) = (c.level, c.value);
         assert!((got - want).abs() < 0.02, "ττ {level}: {got} vs {want}");
     }
 }

@@ -15,7 +15,7 @@ use crate::model::coefficients::{Factor, FactorCoefficients};
 use crate::model::lag::{self, Complex};
 use crate::stats::correlogram::{BandRule, Correlogram, CorrelogramWorkspace, LagValues};
 use crate::stats::criteria::InformationCriteria;
-use crate::stats::portmanteau::PortmanteauScan;
+use crate::stats::portmanteau::{LagPValue, PortmanteauScan};
 
 /// Modulus of an inverse root above which a fit carries a near-unit-root warning
 /// (common practice: roots within about 2% of the unit circle).
@@ -874,7 +874,9 @@ impl ResidualCheck {
             ),
         };
         match self.portmanteau.smallest_ljung_box_p_value() {
-            Some((lag, p)) => {
+            Some(LagPValue {
+                lag, p_value: p, ..
+            }) => {
                 format!("{head} (smallest p over lags 1..{h}: {p:.4} at lag {lag}, for inspection)")
             }
             None => head,

@@ -16,6 +16,7 @@ use crate::forecast::Monitor;
 use crate::model::blueprint::{Blueprint, ModelShape, Term};
 use crate::select::search::SearchSettings;
 use crate::stats::criteria::InformationCriteria;
+use crate::stats::portmanteau::LagPValue;
 
 /// Progress of a running batch, passed to the progress callback.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -252,7 +253,7 @@ pub struct WhitenessDigest {
     pub p_value_at_last_lag: Option<f64>,
     /// The lag with the smallest Ljung–Box p-value over the scan, and that p-value
     /// (`None` when no lag has degrees of freedom).
-    pub weakest_lag: Option<(usize, f64)>,
+    pub weakest_lag: Option<LagPValue>,
     /// Whether the residuals passed the check.
     pub white: bool,
 }
@@ -260,13 +261,7 @@ pub struct WhitenessDigest {
 impl WhitenessDigest {
     fn from_check(check: &ResidualCheck) -> Self {
         let rows = check.portmanteau.rows();
-        let weakest_lag = rows
-            .iter()
-            .filter_map(|r| r.ljung_box_p_value.map(|p| (r.lag, p)))
-            .fold(None, |best: Option<(usize, f64)>, (lag, p)| match best {
-                Some((_, bp)) if bp <= p => best,
-                _ => Some((lag, p)),
-            });
+        let weakest_lag = check.portmanteau.smallest_ljung_box_p_value();
         WhitenessDigest {
             lags_checked: rows.len(),
             p_value_at_last_lag: rows.last().and_then(|r| r.ljung_box_p_value),

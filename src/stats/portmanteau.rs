@@ -23,6 +23,16 @@ pub struct PortmanteauRow {
     pub box_pierce_p_value: Option<f64>,
 }
 
+/// A p-value at one lag of a portmanteau scan.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
+#[non_exhaustive]
+pub struct LagPValue {
+    /// The lag.
+    pub lag: usize,
+    /// The p-value there.
+    pub p_value: f64,
+}
+
 /// Ljung–Box and Box–Pierce statistics for every lag `1..=H`.
 ///
 /// ```
@@ -163,12 +173,18 @@ impl PortmanteauScan {
     pub fn readings(&self) -> usize {
         self.readings
     }
-    /// The smallest Ljung–Box p-value over the scanned lags, with its lag.
-    pub fn smallest_ljung_box_p_value(&self) -> Option<(usize, f64)> {
+    /// The smallest Ljung–Box p-value over the scanned lags, with its lag (the first
+    /// such lag on ties; `None` when no lag has degrees of freedom).
+    pub fn smallest_ljung_box_p_value(&self) -> Option<LagPValue> {
         self.rows
             .iter()
-            .filter_map(|r| r.ljung_box_p_value.map(|p| (r.lag, p)))
-            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .filter_map(|r| {
+                r.ljung_box_p_value.map(|p_value| LagPValue {
+                    lag: r.lag,
+                    p_value,
+                })
+            })
+            .min_by(|a, b| a.p_value.total_cmp(&b.p_value))
     }
     /// Lags whose Ljung–Box p-value is below `alpha`.
     pub fn ljung_box_rejections(&self, alpha: f64) -> Vec<usize> {

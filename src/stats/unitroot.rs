@@ -14,6 +14,23 @@ pub enum TrendTerms {
     LevelAndTrend,
 }
 
+/// A tabulated critical value of a test at one significance level.
+#[derive(Debug, Clone, Copy, PartialEq)]
+#[non_exhaustive]
+pub struct CriticalValue {
+    /// Significance level (e.g. 0.05).
+    pub level: f64,
+    /// The statistic's critical value there.
+    pub value: f64,
+}
+
+fn critical(table: &[(f64, f64)]) -> Vec<CriticalValue> {
+    table
+        .iter()
+        .map(|&(level, value)| CriticalValue { level, value })
+        .collect()
+}
+
 /// Result of a unit-root or stationarity test.
 ///
 /// # Tests
@@ -37,8 +54,8 @@ pub enum TrendTerms {
 pub struct RootTest {
     /// The statistic.
     pub statistic: f64,
-    /// Critical values `(level, value)` at 10%, 5%, 1% (and 2.5% for KPSS).
-    pub critical_values: Vec<(f64, f64)>,
+    /// Critical values at 10%, 5%, 1% (and 2.5% for KPSS).
+    pub critical_values: Vec<CriticalValue>,
     /// Interpolated p-value, clamped to the tabulated range `[0.01, 0.10]`.
     pub p_value: f64,
     /// Lags used (Bartlett window for KPSS, augmentation lags for ADF).
@@ -154,7 +171,7 @@ pub fn kpss(series: &[f64], terms: TrendTerms) -> Result<RootTest> {
     let p_value = interpolate_p(statistic, &critical_values, true);
     Ok(RootTest {
         statistic,
-        critical_values,
+        critical_values: critical(&critical_values),
         p_value,
         lags,
         observations: n,
@@ -249,7 +266,7 @@ pub fn augmented_dickey_fuller(series: &[f64], terms: TrendTerms) -> Result<Root
     let p_value = interpolate_p(statistic, &critical_values, false);
     Ok(RootTest {
         statistic,
-        critical_values,
+        critical_values: critical(&critical_values),
         p_value,
         lags: k,
         observations: m,
