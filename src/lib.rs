@@ -129,8 +129,8 @@ pub use fleet::{
 pub use forecast::{Forecast, ForecastStep, KnownModel, Monitor, PredictionInterval, ReadingCheck};
 pub use model::blueprint::{
     Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
-    Term,
 };
+pub use model::coefficients::Term;
 pub use model::lag::{
     Complex, expand_autoregressive, expand_moving_average, inverse_roots, is_invertible,
     is_stationary, multiply, pi_weights, psi_weights, step_down,

@@ -14,7 +14,8 @@ use crate::base::linalg;
 use crate::filter::innovations::{direct_recursion, segment_dot};
 use crate::filter::kalman::{DirectPhase, KalmanWorkspace};
 use crate::filter::lanes::add_lane_sums;
-use crate::model::blueprint::{Blueprint, Term};
+use crate::model::blueprint::Blueprint;
+use crate::model::coefficients::Term;
 use crate::model::coefficients::{Factor, FactorCoefficients};
 use crate::model::lag;
 

@@ -5,8 +5,9 @@ use serde::{Deserialize, Serialize};
 
 use crate::base::error::{Error, Result};
 use crate::filter::kalman::STEADY_TOLERANCE;
-use crate::model::blueprint::{Blueprint, Term};
+use crate::model::blueprint::Blueprint;
 use crate::model::coefficients::FactorCoefficients;
+use crate::model::coefficients::Term;
 
 /// Everything the forecasting filter needs about the model (serialisable).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]

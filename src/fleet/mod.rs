@@ -13,7 +13,8 @@ use crate::fit::fitted::{
     ResidualCheck,
 };
 use crate::forecast::Monitor;
-use crate::model::blueprint::{Blueprint, ModelShape, Term};
+use crate::model::blueprint::{Blueprint, ModelShape};
+use crate::model::coefficients::Term;
 use crate::select::search::SearchSettings;
 use crate::stats::criteria::InformationCriteria;
 use crate::stats::portmanteau::LagPValue;

@@ -5,7 +5,8 @@
 use crate::base::error::{Error, Result};
 use crate::filter::forecasting::ForecastModel;
 use crate::forecast::{Forecast, Monitor, monitor_after};
-use crate::model::blueprint::{Blueprint, Term};
+use crate::model::blueprint::Blueprint;
+use crate::model::coefficients::Term;
 use crate::model::coefficients::{Factor, FactorCoefficients};
 
 /// A model with given coefficients and innovation variance, not fitted to data.

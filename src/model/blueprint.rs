@@ -3,7 +3,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::base::error::{Error, ErrorKind, Result};
-use crate::model::coefficients::Factor;
+use crate::model::coefficients::{Factor, Term};
 
 /// Largest seasonal period accepted (10 days of minute readings).
 pub const MAX_PERIOD: usize = 14_400;
@@ -11,51 +11,6 @@ pub const MAX_PERIOD: usize = 14_400;
 pub const MAX_EXPANDED_DEGREE: usize = 20_000;
 /// Largest order accepted for any one of p, q, P, Q.
 pub const MAX_ORDER: usize = 50;
-
-/// A coefficient of the model, used to hold (fix) a value and to label estimates.
-#[non_exhaustive]
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
-pub enum Term {
-    /// Non-seasonal autoregressive coefficient `φ_i` (1-based lag).
-    Ar(usize),
-    /// Non-seasonal moving-average coefficient `θ_j` (1-based lag).
-    Ma(usize),
-    /// Seasonal autoregressive coefficient `Φ_i` (lag `i·s`).
-    SeasonalAr(usize),
-    /// Seasonal moving-average coefficient `Θ_j` (lag `j·s`).
-    SeasonalMa(usize),
-    /// Mean of an undifferenced series.
-    Mean,
-    /// Drift: mean change per reading of a once-differenced series.
-    Drift,
-    /// Coefficient of the `i`-th exogenous regressor column (1-based), e.g. outdoor
-    /// temperature driving return temperature.
-    Exogenous(usize),
-}
-
-impl Term {
-    /// Whether this is an ARMA coefficient (φ, θ, Φ, Θ) rather than a regression one.
-    pub fn is_arma(&self) -> bool {
-        matches!(
-            self,
-            Term::Ar(_) | Term::Ma(_) | Term::SeasonalAr(_) | Term::SeasonalMa(_)
-        )
-    }
-}
-
-impl std::fmt::Display for Term {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        match self {
-            Term::Ar(i) => write!(f, "phi.{i}"),
-            Term::Ma(i) => write!(f, "theta.{i}"),
-            Term::SeasonalAr(i) => write!(f, "seasonal_phi.{i}"),
-            Term::SeasonalMa(i) => write!(f, "seasonal_theta.{i}"),
-            Term::Mean => f.write_str("mean"),
-            Term::Drift => f.write_str("drift"),
-            Term::Exogenous(i) => write!(f, "regressor.{i}"),
-        }
-    }
-}
 
 /// How the coefficients are estimated.
 ///

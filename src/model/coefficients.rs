@@ -1,8 +1,55 @@
-//! The natural coefficients of a model's four lag-polynomial factors, by name, and their
-//! expansion into the full AR and MA polynomials.
+//! The coefficients of a model: their names ([`Term`]), the four lag-polynomial factors
+//! ([`Factor`]) and the factors' natural coefficients with their expansion into the full
+//! AR and MA polynomials.
 
-use crate::model::blueprint::Term;
+use serde::{Deserialize, Serialize};
+
 use crate::model::lag::{self, expand_into};
+
+/// A coefficient of the model, used to hold (fix) a value and to label estimates.
+#[non_exhaustive]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+pub enum Term {
+    /// Non-seasonal autoregressive coefficient `φ_i` (1-based lag).
+    Ar(usize),
+    /// Non-seasonal moving-average coefficient `θ_j` (1-based lag).
+    Ma(usize),
+    /// Seasonal autoregressive coefficient `Φ_i` (lag `i·s`).
+    SeasonalAr(usize),
+    /// Seasonal moving-average coefficient `Θ_j` (lag `j·s`).
+    SeasonalMa(usize),
+    /// Mean of an undifferenced series.
+    Mean,
+    /// Drift: mean change per reading of a once-differenced series.
+    Drift,
+    /// Coefficient of the `i`-th exogenous regressor column (1-based), e.g. outdoor
+    /// temperature driving return temperature.
+    Exogenous(usize),
+}
+
+impl Term {
+    /// Whether this is an ARMA coefficient (φ, θ, Φ, Θ) rather than a regression one.
+    pub fn is_arma(&self) -> bool {
+        matches!(
+            self,
+            Term::Ar(_) | Term::Ma(_) | Term::SeasonalAr(_) | Term::SeasonalMa(_)
+        )
+    }
+}
+
+impl std::fmt::Display for Term {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Term::Ar(i) => write!(f, "phi.{i}"),
+            Term::Ma(i) => write!(f, "theta.{i}"),
+            Term::SeasonalAr(i) => write!(f, "seasonal_phi.{i}"),
+            Term::SeasonalMa(i) => write!(f, "seasonal_theta.{i}"),
+            Term::Mean => f.write_str("mean"),
+            Term::Drift => f.write_str("drift"),
+            Term::Exogenous(i) => write!(f, "regressor.{i}"),
+        }
+    }
+}
 
 /// One of the four lag-polynomial factors of a seasonal ARMA model
 /// `φ(B)Φ(B^s)(x_t − μ) = θ(B)Θ(B^s)e_t`.

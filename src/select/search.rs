@@ -280,15 +280,15 @@ fn difference_plain(x: &[f64], d: usize, sd: usize, s: usize) -> Vec<f64> {
 /// criteria unreliable (common practice: such candidates are discarded).
 fn cancelling(m: &FittedModel) -> bool {
     let roots = m.roots();
-    let get = |t: crate::model::blueprint::Term| {
+    let get = |t: crate::model::coefficients::Term| {
         roots
             .iter()
             .find(|r| r.factor == t)
             .map(|r| r.inverse_roots.clone())
             .unwrap_or_default()
     };
-    let ar = get(crate::model::blueprint::Term::Ar(0));
-    let ma = get(crate::model::blueprint::Term::Ma(0));
+    let ar = get(crate::model::coefficients::Term::Ar(0));
+    let ma = get(crate::model::coefficients::Term::Ma(0));
     ar.iter()
         .any(|a| ma.iter().any(|b| (a.re - b.re).hypot(a.im - b.im) < 0.1))
 }
