@@ -115,6 +115,10 @@ mod store;
 // ndarray is re-exported so that callers of `Fleet::fit_rows` use the version this crate
 // was built with.
 pub use base::error::{Error, ErrorKind, Result};
+pub use base::grid::{
+    GridReport, GridSettings, GridSettingsBuilder, GriddedSeries, MAX_GRID_SLOTS, SlotRule,
+    TimeAxis, place_on_grid,
+};
 pub use estimate::{StageRecord, StopReason};
 pub use filter::kalman::{exact_log_likelihood, reference_log_likelihood};
 pub use fit::compare::{NestedTest, RankedModel, nested_likelihood_ratio, rank_by_criterion};

@@ -14,6 +14,7 @@ mod fleet_checks;
 mod forecast_checks;
 mod forecast_reference;
 mod fuzz_replay;
+mod grid_checks;
 mod layers;
 mod likelihood_reference;
 mod persistence;

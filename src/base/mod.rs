@@ -3,6 +3,7 @@
 
 pub(crate) mod dist;
 pub(crate) mod error;
+pub(crate) mod grid;
 pub(crate) mod linalg;
 pub(crate) mod nan_as_null;
 pub(crate) mod screen;

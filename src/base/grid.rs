@@ -1,0 +1,383 @@
+//! From timestamped readings to a regular series: the time axis (origin and cadence, UTC
+//! epoch milliseconds), and the placement of irregular, out-of-order, duplicated or
+//! jittered readings on it, with a report of what was merged, dropped or missing.
+//!
+//! No time zones and no daylight-saving arithmetic happen here: timestamps are UTC epoch
+//! milliseconds, as Arrow and Parquet store them; a cadence is a fixed number of
+//! milliseconds.
+
+use serde::{Deserialize, Serialize};
+
+use crate::base::error::{Error, ErrorKind, Result};
+
+/// Largest number of slots a grid may span (10⁸: about 2,850 years of 15-minute readings).
+/// A longer span is almost always a unit mistake (seconds read as milliseconds, a zero
+/// timestamp among recent ones) and is refused.
+pub const MAX_GRID_SLOTS: u64 = 100_000_000;
+
+/// A regular time axis: slot `k` is at `origin + k·cadence` (UTC epoch milliseconds).
+///
+/// ```
+/// use lagwise::TimeAxis;
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let quarter_hours = TimeAxis::new(1_767_225_600_000, 15 * 60_000)?; // 2026-01-01T00:00Z
+/// assert_eq!(quarter_hours.time_of(4), Some(1_767_225_600_000 + 3_600_000));
+/// # Ok(()) }
+/// ```
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
+pub struct TimeAxis {
+    origin_ms: i64,
+    cadence_ms: i64,
+}
+
+impl TimeAxis {
+    /// An axis starting at `origin_ms` with one slot every `cadence_ms` milliseconds.
+    /// Errors if the cadence is not positive.
+    pub fn new(origin_ms: i64, cadence_ms: i64) -> Result<Self> {
+        if cadence_ms <= 0 {
+            return Err(Error::invalid(
+                "time axis",
+                format!("cadence {cadence_ms} ms must be positive"),
+            ));
+        }
+        Ok(TimeAxis {
+            origin_ms,
+            cadence_ms,
+        })
+    }
+    /// The time of slot 0 (UTC epoch milliseconds).
+    pub fn origin_ms(&self) -> i64 {
+        self.origin_ms
+    }
+    /// Milliseconds between slots.
+    pub fn cadence_ms(&self) -> i64 {
+        self.cadence_ms
+    }
+    /// The time of slot `index` (`None` beyond the range of `i64`).
+    pub fn time_of(&self, index: u64) -> Option<i64> {
+        i64::try_from(index)
+            .ok()?
+            .checked_mul(self.cadence_ms)?
+            .checked_add(self.origin_ms)
+    }
+    /// The slot nearest to `time_ms` and the offset from it (`time − slot time`, in
+    /// `(−cadence/2, cadence/2]`), or `None` before the origin's half slot or past `i64`.
+    pub fn nearest_slot(&self, time_ms: i64) -> Option<(u64, i64)> {
+        let from = i128::from(time_ms) - i128::from(self.origin_ms);
+        let c = i128::from(self.cadence_ms);
+        // Round half down: an offset of exactly +c/2 belongs to the earlier slot.
+        let k = (from + (c - 1) / 2).div_euclid(c);
+        let offset = from - k * c;
+        if k < 0 {
+            return None;
+        }
+        Some((u64::try_from(k).ok()?, i64::try_from(offset).ok()?))
+    }
+}
+
+/// How several readings that fall in one slot become its value.
+#[non_exhaustive]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum SlotRule {
+    /// The mean of the readings (the default).
+    Mean,
+    /// The median (the mean of the two middle readings for an even count).
+    Median,
+    /// The reading with the latest timestamp (on equal timestamps, the later one in the
+    /// input).
+    Latest,
+    /// The reading with the earliest timestamp (on equal timestamps, the earlier one).
+    Earliest,
+    /// The smallest reading.
+    Smallest,
+    /// The largest reading.
+    Largest,
+}
+
+/// Settings for placing readings on a grid, built by [`GridSettings::builder`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct GridSettings {
+    cadence_ms: i64,
+    origin_ms: Option<i64>,
+    tolerance_ms: Option<i64>,
+    rule: SlotRule,
+}
+
+/// Builder of [`GridSettings`]: setters chain, `build` validates.
+#[derive(Debug, Clone)]
+pub struct GridSettingsBuilder {
+    settings: GridSettings,
+}
+
+impl GridSettings {
+    /// Settings for a grid with one slot every `cadence_ms` milliseconds; by default the
+    /// origin is the first reading's time rounded down to a whole cadence since the epoch,
+    /// every reading goes to its nearest slot (tolerance half a cadence) and a slot's
+    /// readings are averaged.
+    pub fn builder(cadence_ms: i64) -> GridSettingsBuilder {
+        GridSettingsBuilder {
+            settings: GridSettings {
+                cadence_ms,
+                origin_ms: None,
+                tolerance_ms: None,
+                rule: SlotRule::Mean,
+            },
+        }
+    }
+}
+
+impl GridSettingsBuilder {
+    /// Put slot 0 at `origin_ms` (readings before its half slot are dropped and counted).
+    pub fn origin_ms(&mut self, origin_ms: i64) -> &mut Self {
+        self.settings.origin_ms = Some(origin_ms);
+        self
+    }
+    /// Accept a reading only within `tolerance_ms` of its nearest slot (0 = exactly on
+    /// the grid; at most half a cadence); others are dropped and counted as off-grid.
+    pub fn tolerance_ms(&mut self, tolerance_ms: i64) -> &mut Self {
+        self.settings.tolerance_ms = Some(tolerance_ms);
+        self
+    }
+    /// How several readings in one slot are combined (default [`SlotRule::Mean`]).
+    pub fn slot_rule(&mut self, rule: SlotRule) -> &mut Self {
+        self.settings.rule = rule;
+        self
+    }
+    /// Validate: a positive cadence, a tolerance within `0..=cadence/2`.
+    pub fn build(&self) -> Result<GridSettings> {
+        const WHAT: &str = "grid settings";
+        let s = &self.settings;
+        if s.cadence_ms <= 0 {
+            return Err(Error::invalid(
+                WHAT,
+                format!("cadence {} ms must be positive", s.cadence_ms),
+            ));
+        }
+        if let Some(t) = s.tolerance_ms
+            && !(0..=s.cadence_ms / 2).contains(&t)
+        {
+            return Err(Error::invalid(
+                WHAT,
+                format!(
+                    "tolerance {t} ms must be between 0 and half the cadence ({} ms)",
+                    s.cadence_ms / 2
+                ),
+            ));
+        }
+        Ok(s.clone())
+    }
+}
+
+/// What happened to the readings on their way to the grid.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct GridReport {
+    /// Readings given (NaN readings included).
+    pub readings: usize,
+    /// Readings that were NaN (no value): they occupy nothing.
+    pub empty_readings: usize,
+    /// Readings that arrived earlier in time than the reading before them (they are
+    /// placed by their timestamps all the same).
+    pub out_of_order: usize,
+    /// Readings combined with others in the same slot (a slot with three readings
+    /// counts two).
+    pub merged: usize,
+    /// Readings farther than the tolerance from every slot, dropped.
+    pub off_grid: usize,
+    /// Readings before the origin's half slot, dropped.
+    pub before_origin: usize,
+    /// Slots of the grid with no reading (NaN in the series).
+    pub missing_slots: usize,
+}
+
+/// A regular series made from timestamped readings: its axis, its values (NaN where a
+/// slot got no reading) and the report.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct GriddedSeries {
+    /// The time axis: slot `k` of `values` is at `axis.time_of(k)`.
+    pub axis: TimeAxis,
+    /// One value per slot, from the first to the last occupied slot; NaN = no reading.
+    #[serde(with = "crate::base::nan_as_null")]
+    pub values: Vec<f64>,
+    /// What was merged, dropped and missing.
+    pub report: GridReport,
+}
+
+/// Place timestamped readings (`times_ms[i]`, UTC epoch milliseconds, with
+/// `readings[i]`; NaN = no value) on the regular grid of `settings`.
+///
+/// Order does not matter (out-of-order readings are placed by their timestamps and
+/// counted); several readings in one slot are combined by the slot rule; a reading
+/// farther than the tolerance from its nearest slot is dropped and counted; slots
+/// without a reading are NaN. The series runs from the origin (or the first occupied
+/// slot when the origin is the default) to the last occupied slot. Nothing the caller
+/// passed is changed.
+///
+/// Errors: empty input, lengths that differ, a ±inf reading (naming its index), no
+/// reading left on the grid, or a span of more than [`MAX_GRID_SLOTS`] slots (a unit
+/// mistake, most likely).
+///
+/// ```
+/// use lagwise::{GridSettings, SlotRule, place_on_grid};
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let q = 15 * 60_000; // 15 minutes in milliseconds
+/// let t0 = 1_767_225_600_000;
+/// // Jittered, out of order, a duplicate in slot 1, slot 3 missing.
+/// let times = [t0 + 2_000, t0 + 2 * q - 1_000, t0 + q, t0 + q + 500, t0 + 4 * q];
+/// let values = [50.0, 52.0, 51.0, 51.5, 53.0];
+/// let settings = GridSettings::builder(q).tolerance_ms(60_000).build()?;
+/// let grid = place_on_grid(&times, &values, &settings)?;
+/// assert_eq!(grid.values.len(), 5);
+/// assert_eq!(grid.values[1], 51.25); // the mean of the two readings in slot 1
+/// assert!(grid.values[3].is_nan());
+/// assert_eq!((grid.report.merged, grid.report.out_of_order, grid.report.missing_slots), (1, 1, 1));
+/// # Ok(()) }
+/// ```
+pub fn place_on_grid(
+    times_ms: &[i64],
+    readings: &[f64],
+    settings: &GridSettings,
+) -> Result<GriddedSeries> {
+    const WHAT: &str = "grid";
+    if times_ms.len() != readings.len() {
+        return Err(Error::new(ErrorKind::LengthMismatch {
+            what: WHAT,
+            left_name: "timestamps",
+            left: times_ms.len(),
+            right_name: "readings",
+            right: readings.len(),
+        }));
+    }
+    if readings.is_empty() {
+        return Err(Error::new(ErrorKind::EmptySeries { what: WHAT }));
+    }
+    if let Some(index) = readings.iter().position(|v| v.is_infinite()) {
+        return Err(Error::new(ErrorKind::NonFiniteReading {
+            what: WHAT,
+            index,
+            value: readings[index],
+        }));
+    }
+    let cadence = settings.cadence_ms;
+    let tolerance = settings.tolerance_ms.unwrap_or(cadence / 2);
+    let mut report = GridReport {
+        readings: readings.len(),
+        ..GridReport::default()
+    };
+    report.out_of_order = times_ms.windows(2).filter(|w| w[1] < w[0]).count();
+    // Slots are taken relative to an axis at the epoch-aligned origin first, so that the
+    // default origin (the first occupied slot) needs no second pass.
+    let origin = match settings.origin_ms {
+        Some(o) => o,
+        None => {
+            let first = times_ms
+                .iter()
+                .zip(readings)
+                .filter(|(_, v)| !v.is_nan())
+                .map(|(t, _)| *t)
+                .min()
+                .ok_or_else(|| {
+                    Error::new(ErrorKind::AllMissing {
+                        what: WHAT,
+                        length: readings.len(),
+                    })
+                })?;
+            // The slot nearest to the first reading, on the epoch-aligned grid.
+            let aligned = TimeAxis::new(0, cadence)?;
+            match aligned.nearest_slot(first) {
+                Some((k, _)) => aligned.time_of(k).unwrap_or(first),
+                // Before 1970: align on the reading itself.
+                None => first,
+            }
+        }
+    };
+    let axis = TimeAxis::new(origin, cadence)?;
+    // (slot, time, input position, value) of every kept reading, sorted by slot and time.
+    let mut placed: Vec<(u64, i64, usize, f64)> = Vec::with_capacity(readings.len());
+    for (i, (&t, &v)) in times_ms.iter().zip(readings).enumerate() {
+        if v.is_nan() {
+            report.empty_readings += 1;
+            continue;
+        }
+        match axis.nearest_slot(t) {
+            None => report.before_origin += 1,
+            Some((_, offset)) if offset.abs() > tolerance => report.off_grid += 1,
+            Some((k, _)) => placed.push((k, t, i, v)),
+        }
+    }
+    let (Some(first), Some(last)) = (
+        placed.iter().map(|p| p.0).min(),
+        placed.iter().map(|p| p.0).max(),
+    ) else {
+        return Err(Error::invalid(
+            WHAT,
+            format!(
+                "no reading is left on the grid ({} empty, {} off the grid, {} before the origin)",
+                report.empty_readings, report.off_grid, report.before_origin
+            ),
+        ));
+    };
+    let start = if settings.origin_ms.is_some() {
+        0
+    } else {
+        first
+    };
+    let span = last - start + 1;
+    if span > MAX_GRID_SLOTS {
+        return Err(Error::invalid(
+            WHAT,
+            format!(
+                "the readings span {span} slots of {cadence} ms, more than {MAX_GRID_SLOTS}; \
+                 check the timestamp unit (milliseconds since 1970-01-01 UTC)"
+            ),
+        ));
+    }
+    let axis = match axis.time_of(start) {
+        Some(o) => TimeAxis::new(o, cadence)?,
+        None => return Err(Error::invalid(WHAT, "the grid's origin is out of range")),
+    };
+    placed.sort_by_key(|p| (p.0, p.1, p.2));
+    let mut values = vec![f64::NAN; span as usize];
+    let mut bucket: Vec<f64> = Vec::new();
+    let mut i = 0;
+    while i < placed.len() {
+        let slot = placed[i].0;
+        let mut j = i;
+        while j < placed.len() && placed[j].0 == slot {
+            j += 1;
+        }
+        let group = &placed[i..j];
+        report.merged += group.len() - 1;
+        values[(slot - start) as usize] = combine(group, settings.rule, &mut bucket);
+        i = j;
+    }
+    report.missing_slots = values.iter().filter(|v| v.is_nan()).count();
+    Ok(GriddedSeries {
+        axis,
+        values,
+        report,
+    })
+}
+
+/// One slot's value from its readings (sorted by time, then input position).
+fn combine(group: &[(u64, i64, usize, f64)], rule: SlotRule, bucket: &mut Vec<f64>) -> f64 {
+    match rule {
+        SlotRule::Mean => group.iter().map(|g| g.3).sum::<f64>() / group.len() as f64,
+        SlotRule::Latest => group[group.len() - 1].3,
+        SlotRule::Earliest => group[0].3,
+        SlotRule::Smallest => group.iter().map(|g| g.3).fold(f64::INFINITY, f64::min),
+        SlotRule::Largest => group.iter().map(|g| g.3).fold(f64::NEG_INFINITY, f64::max),
+        SlotRule::Median => {
+            bucket.clear();
+            bucket.extend(group.iter().map(|g| g.3));
+            bucket.sort_by(f64::total_cmp);
+            let m = bucket.len();
+            if m % 2 == 1 {
+                bucket[m / 2]
+            } else {
+                0.5 * (bucket[m / 2 - 1] + bucket[m / 2])
+            }
+        }
+    }
+}
