@@ -221,3 +221,63 @@ proptest! {
         prop_assert_eq!(g.report.merged + g.report.off_grid + g.report.missing_slots, 0);
     }
 }
+
+/// The grid's axis travels with the fitted model into forecasts and monitors, through
+/// storage (model and monitor), and with a known model; without an axis times are absent.
+#[test]
+fn the_time_axis_travels_with_models_forecasts_and_monitors() {
+    use lagwise::{Blueprint, KnownModel, Simulator, Term};
+    let x = Simulator::builder()
+        .autoregressive(&[0.6])
+        .level(70.0)
+        .build()
+        .unwrap()
+        .generate(300, 4);
+    // Readings 40 s late, one slot lost.
+    let times: Vec<i64> = (0..300).map(|k| T0 + k * Q + 40_000).collect();
+    let mut vals = x.clone();
+    vals[100] = f64::NAN;
+    let grid = place_on_grid(
+        &times[..250],
+        &vals[..250],
+        &GridSettings::builder(Q).build().unwrap(),
+    )
+    .unwrap();
+    assert_eq!(grid.axis.origin_ms(), T0);
+    let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
+    let fit = bp.fit_gridded(&grid).unwrap();
+    assert_eq!(fit.time_axis(), Some(grid.axis));
+    let fc = fit.forecast(4, &[0.9]).unwrap();
+    for (h, st) in fc.steps.iter().enumerate() {
+        assert_eq!(st.time_ms, Some(T0 + (250 + h as i64) * Q));
+    }
+    let mut watch = fit.monitor(0.99).unwrap();
+    assert_eq!(watch.next_time_ms(), Some(T0 + 250 * Q));
+    let checks = watch.observe_batch(&x[250..253]).unwrap();
+    assert_eq!(checks[2].time_ms, Some(T0 + 252 * Q));
+    // Storage keeps the axis.
+    let back = lagwise::model_from_json(&lagwise::model_to_json(&fit).unwrap()).unwrap();
+    assert_eq!(back.time_axis(), Some(grid.axis));
+    let resumed = lagwise::monitor_from_json(&lagwise::monitor_to_json(&watch).unwrap()).unwrap();
+    assert_eq!(resumed.next_time_ms(), Some(T0 + 253 * Q));
+    // A plain fit has no axis and no times.
+    let plain = bp.fit(&grid.values).unwrap();
+    assert_eq!(plain.forecast(1, &[0.9]).unwrap().steps[0].time_ms, None);
+    assert_eq!(
+        plain.forecast(1, &[0.9]).unwrap().steps[0].mean,
+        fc.steps[0].mean
+    );
+    // A known model on the same axis.
+    let coefs: Vec<(Term, f64)> = fit
+        .coefficients()
+        .iter()
+        .map(|c| (c.term, c.value))
+        .collect();
+    let known = KnownModel::new(&bp, &coefs, fit.innovation_variance())
+        .unwrap()
+        .with_time_axis(grid.axis);
+    let kf = known
+        .forecast_from_history(&grid.values, &[], 2, &[0.9], &[])
+        .unwrap();
+    assert_eq!(kf.steps[1].time_ms, Some(T0 + 251 * Q));
+}

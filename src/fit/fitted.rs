@@ -7,6 +7,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::base::dist::normal_two_sided_p;
 use crate::base::error::{Error, Result};
+use crate::base::grid::{GriddedSeries, TimeAxis};
 use crate::base::linalg;
 use crate::estimate::{self, EvalWorkspace, Evaluation, Layout, ObjectiveKind, StageRecord};
 use crate::filter::forecasting::{FilterState, ForecastModel};
@@ -197,6 +198,7 @@ pub struct FittedModel {
     pub(crate) data_fingerprint: u64,
     pub(crate) forecaster: ForecastModel,
     pub(crate) terminal: FilterState,
+    pub(crate) time_axis: Option<TimeAxis>,
 }
 
 /// The stored form of a fitted model; restoring checks it (see `TryFrom`).
@@ -219,6 +221,9 @@ struct FittedRecord {
     data_fingerprint: u64,
     forecaster: ForecastModel,
     terminal: FilterState,
+    /// Absent in files written before time axes existed.
+    #[serde(default)]
+    time_axis: Option<TimeAxis>,
 }
 
 impl TryFrom<FittedRecord> for FittedModel {
@@ -279,6 +284,7 @@ impl TryFrom<FittedRecord> for FittedModel {
             data_fingerprint: r.data_fingerprint,
             forecaster: r.forecaster,
             terminal: r.terminal,
+            time_axis: r.time_axis,
         };
         // The coefficients must be admissible and the stored forecaster must be the one
         // they imply (same expanded polynomials, σ² and regression).
@@ -328,6 +334,27 @@ impl Blueprint {
     /// ```
     pub fn fit(&self, series: &[f64]) -> Result<FittedModel> {
         self.fit_with(series, &mut FitWorkspace::new())
+    }
+
+    /// Fit this model to readings placed on a grid
+    /// ([`place_on_grid`](crate::place_on_grid)); the model keeps the grid's time axis, so
+    /// its forecast steps and monitor checks carry timestamps.
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, GridSettings, Simulator, place_on_grid};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let q = 15 * 60_000;
+    /// let t0 = 1_767_225_600_000; // 2026-01-01T00:00Z
+    /// let x = Simulator::builder().autoregressive(&[0.7]).level(52.0).build()?.generate(400, 9);
+    /// let times: Vec<i64> = (0..400).map(|k| t0 + k * q + 1_500).collect(); // 1.5 s late
+    /// let grid = place_on_grid(&times, &x, &GridSettings::builder(q).build()?)?;
+    /// let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit_gridded(&grid)?;
+    /// let next = &fit.forecast(1, &[0.95])?.steps[0];
+    /// assert_eq!(next.time_ms, Some(t0 + 400 * q));
+    /// # Ok(()) }
+    /// ```
+    pub fn fit_gridded(&self, series: &GriddedSeries) -> Result<FittedModel> {
+        Ok(self.fit(&series.values)?.with_time_axis(series.axis))
     }
 
     /// [`Blueprint::fit`] on a caller-held workspace (no allocation per likelihood
@@ -776,6 +803,7 @@ fn assemble(
         data_fingerprint: fingerprint(series),
         forecaster,
         terminal: FilterState::pending(),
+        time_axis: None,
     })
 }
 
@@ -1053,6 +1081,7 @@ impl FittedModel {
             data_fingerprint: self.data_fingerprint,
             forecaster: self.forecaster.clone(),
             terminal: self.terminal.clone(),
+            time_axis: self.time_axis,
         }
     }
     /// Inverse roots per polynomial factor.
@@ -1112,6 +1141,19 @@ impl FittedModel {
             alpha,
             white,
         })
+    }
+
+    /// The time axis of the fitted readings (index 0 at its origin), if the model has one:
+    /// its forecasts and monitors then carry timestamps.
+    pub fn time_axis(&self) -> Option<TimeAxis> {
+        self.time_axis
+    }
+
+    /// The same model with its readings on `axis` (index 0 of the fitted series at the
+    /// axis' origin). [`Blueprint::fit_gridded`] sets it from the grid.
+    pub fn with_time_axis(mut self, axis: TimeAxis) -> Self {
+        self.time_axis = Some(axis);
+        self
     }
 
     /// Fingerprint of the data the model was fitted to (used to refuse comparisons of

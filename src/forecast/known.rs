@@ -3,6 +3,7 @@
 //! forecast and monitor from any history on the model's time axis.
 
 use crate::base::error::{Error, Result};
+use crate::base::grid::TimeAxis;
 use crate::filter::forecasting::ForecastModel;
 use crate::forecast::{Forecast, Monitor, monitor_after};
 use crate::model::blueprint::Blueprint;
@@ -33,6 +34,7 @@ pub struct KnownModel {
     coefficients: Vec<(Term, f64)>,
     innovation_variance: f64,
     forecaster: ForecastModel,
+    time_axis: Option<TimeAxis>,
 }
 
 impl KnownModel {
@@ -113,6 +115,7 @@ impl KnownModel {
             coefficients: ordered,
             innovation_variance,
             forecaster,
+            time_axis: None,
         })
     }
 
@@ -128,6 +131,16 @@ impl KnownModel {
     pub fn innovation_variance(&self) -> f64 {
         self.innovation_variance
     }
+    /// The same model with its readings on `axis` (index 0 of a history at the axis'
+    /// origin): its monitors and forecasts carry timestamps.
+    pub fn with_time_axis(mut self, axis: TimeAxis) -> Self {
+        self.time_axis = Some(axis);
+        self
+    }
+    /// The time axis of the model's readings, if set.
+    pub fn time_axis(&self) -> Option<TimeAxis> {
+        self.time_axis
+    }
 
     /// A monitor positioned after `history` (readings from index 0 on the model's time
     /// axis, NaN = missing; `regressors` one column per declared regressor over the
@@ -141,6 +154,7 @@ impl KnownModel {
         monitor_after(
             &self.blueprint,
             &self.forecaster,
+            self.time_axis,
             history,
             regressors,
             alarm_level,

@@ -4,6 +4,7 @@
 use serde::{Deserialize, Serialize};
 
 use crate::base::error::{Error, Result};
+use crate::base::grid::TimeAxis;
 use crate::base::screen::{ConstantPolicy, screen};
 use crate::estimate;
 use crate::filter::forecasting::{FilterState, ForecastModel, terminal_state};
@@ -21,6 +22,8 @@ pub struct ForecastStep {
     pub step: usize,
     /// Index on the original time axis.
     pub index: u64,
+    /// Its time (UTC epoch milliseconds) when the model has a time axis.
+    pub time_ms: Option<i64>,
     /// Point forecast (conditional mean).
     pub mean: f64,
     /// Forecast standard deviation.
@@ -88,6 +91,7 @@ fn quantiles(levels: &[f64]) -> Result<Vec<f64>> {
 pub(crate) fn forecast_from(
     m: &ForecastModel,
     state: &FilterState,
+    axis: Option<TimeAxis>,
     horizon: usize,
     levels: &[f64],
     future: &[&[f64]],
@@ -151,6 +155,7 @@ pub(crate) fn forecast_from(
         steps.push(ForecastStep {
             step: h + 1,
             index: st.next_index,
+            time_ms: axis.and_then(|a| a.time_of(st.next_index)),
             mean,
             sd,
             intervals,
@@ -185,7 +190,14 @@ impl FittedModel {
     /// # Ok(()) }
     /// ```
     pub fn forecast(&self, horizon: usize, levels: &[f64]) -> Result<Forecast> {
-        forecast_from(&self.forecaster, &self.terminal, horizon, levels, &[])
+        forecast_from(
+            &self.forecaster,
+            &self.terminal,
+            self.time_axis,
+            horizon,
+            levels,
+            &[],
+        )
     }
 
     /// [`FittedModel::forecast`] with future values of the exogenous regressors (one
@@ -196,13 +208,22 @@ impl FittedModel {
         levels: &[f64],
         future: &[&[f64]],
     ) -> Result<Forecast> {
-        forecast_from(&self.forecaster, &self.terminal, horizon, levels, future)
+        forecast_from(
+            &self.forecaster,
+            &self.terminal,
+            self.time_axis,
+            horizon,
+            levels,
+            future,
+        )
     }
 
     /// A monitor that continues from the end of the fitted series, flagging readings
     /// outside the two-sided interval at `alarm_level` (e.g. 0.99).
     pub fn monitor(&self, alarm_level: f64) -> Result<Monitor> {
-        Monitor::new(self.forecaster.clone(), self.terminal.clone(), alarm_level)
+        let mut m = Monitor::new(self.forecaster.clone(), self.terminal.clone(), alarm_level)?;
+        m.axis = self.time_axis;
+        Ok(m)
     }
 
     /// A monitor positioned after `history` (any series on the same time axis, starting
@@ -217,6 +238,7 @@ impl FittedModel {
         monitor_after(
             &self.blueprint,
             &self.forecaster,
+            self.time_axis,
             history,
             regressors,
             alarm_level,
@@ -227,9 +249,11 @@ impl FittedModel {
 
 /// A monitor for the model of `blueprint` (its forecasting model `forecaster`) positioned
 /// after `history` and its regressor columns.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn monitor_after(
     blueprint: &Blueprint,
     forecaster: &ForecastModel,
+    axis: Option<TimeAxis>,
     history: &[f64],
     regressors: &[&[f64]],
     alarm_level: f64,
@@ -238,7 +262,9 @@ pub(crate) fn monitor_after(
     screen(history, what, 1, ConstantPolicy::Allow)?;
     estimate::check_regressors(blueprint, history.len(), regressors, what)?;
     let state = terminal_state(forecaster, history, regressors)?;
-    Monitor::new(forecaster.clone(), state, alarm_level)
+    let mut m = Monitor::new(forecaster.clone(), state, alarm_level)?;
+    m.axis = axis;
+    Ok(m)
 }
 
 /// What the monitor says about one new reading.
@@ -247,6 +273,8 @@ pub(crate) fn monitor_after(
 pub struct ReadingCheck {
     /// Index of the reading on the original time axis.
     pub index: u64,
+    /// Its time (UTC epoch milliseconds) when the monitor has a time axis.
+    pub time_ms: Option<i64>,
     /// The reading (NaN if missing).
     pub reading: f64,
     /// One-step forecast made before seeing it.
@@ -286,6 +314,7 @@ pub struct Monitor {
     pub(crate) state: FilterState,
     pub(crate) alarm_level: f64,
     pub(crate) alarm_z: f64,
+    pub(crate) axis: Option<TimeAxis>,
 }
 
 /// The stored form of a monitor; restoring validates it.
@@ -294,12 +323,15 @@ struct MonitorRecord {
     model: ForecastModel,
     state: FilterState,
     alarm_level: f64,
+    #[serde(default)]
+    axis: Option<TimeAxis>,
 }
 
 impl TryFrom<MonitorRecord> for Monitor {
     type Error = String;
     fn try_from(r: MonitorRecord) -> std::result::Result<Self, String> {
-        let m = Monitor::new(r.model, r.state, r.alarm_level).map_err(|e| e.to_string())?;
+        let mut m = Monitor::new(r.model, r.state, r.alarm_level).map_err(|e| e.to_string())?;
+        m.axis = r.axis;
         m.validate()?;
         Ok(m)
     }
@@ -313,6 +345,7 @@ impl Monitor {
             state,
             alarm_level,
             alarm_z,
+            axis: None,
         })
     }
 
@@ -331,6 +364,16 @@ impl Monitor {
     /// Index of the next reading on the original time axis.
     pub fn next_index(&self) -> u64 {
         self.state.next_index
+    }
+
+    /// The time axis the monitor's indices are on, if its model has one.
+    pub fn time_axis(&self) -> Option<TimeAxis> {
+        self.axis
+    }
+
+    /// The time (UTC epoch milliseconds) of the next reading, with a time axis.
+    pub fn next_time_ms(&self) -> Option<i64> {
+        self.axis.and_then(|a| a.time_of(self.state.next_index))
     }
 
     /// Whether the filter is in steady state (O(r + δ) per reading).
@@ -389,6 +432,7 @@ impl Monitor {
         let standardized = (!reading.is_nan()).then(|| (reading - predicted) / sd);
         Ok(ReadingCheck {
             index,
+            time_ms: self.axis.and_then(|a| a.time_of(index)),
             reading,
             predicted,
             sd,
@@ -406,7 +450,7 @@ impl Monitor {
 
     /// Forecast `horizon` steps from the latest reading, with intervals at `levels`.
     pub fn forecast(&self, horizon: usize, levels: &[f64]) -> Result<Forecast> {
-        forecast_from(&self.model, &self.state, horizon, levels, &[])
+        forecast_from(&self.model, &self.state, self.axis, horizon, levels, &[])
     }
 
     /// Forecast with future values of the exogenous regressors (one column per
@@ -417,7 +461,7 @@ impl Monitor {
         levels: &[f64],
         future: &[&[f64]],
     ) -> Result<Forecast> {
-        forecast_from(&self.model, &self.state, horizon, levels, future)
+        forecast_from(&self.model, &self.state, self.axis, horizon, levels, future)
     }
 
     pub(crate) fn validate(&self) -> std::result::Result<(), String> {
@@ -504,8 +548,8 @@ mod tests {
             }
             let future: Vec<f64> = (0..24).map(|t| (t as f64 / 7.0).cos()).collect();
             let fregs: Vec<&[f64]> = if exo { vec![&future] } else { vec![] };
-            let f1 = forecast_from(&model.forecaster, &fast, 24, &[0.95], &fregs).unwrap();
-            let f2 = forecast_from(&model.forecaster, &dense, 24, &[0.95], &fregs).unwrap();
+            let f1 = forecast_from(&model.forecaster, &fast, None, 24, &[0.95], &fregs).unwrap();
+            let f2 = forecast_from(&model.forecaster, &dense, None, 24, &[0.95], &fregs).unwrap();
             for (a, b) in f1.steps.iter().zip(&f2.steps) {
                 assert!(
                     (a.mean - b.mean).abs() <= 1e-9 * (1.0 + b.mean.abs()),
