@@ -19,6 +19,10 @@ fn variant<T>(r: lagwise::Result<T>) -> String {
     }
 }
 
+fn quarter_hours() -> lagwise::GridSettings {
+    lagwise::GridSettings::builder(900_000).build().unwrap()
+}
+
 fn ar1() -> Blueprint {
     Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap()
 }
@@ -448,6 +452,77 @@ fn matrix() {
             "nan log L",
             "criteria",
             variant(InformationCriteria::from_log_likelihood(f64::NAN, 2, 10)),
+            "InvalidArgument",
+        ),
+        // Timestamped readings onto a grid.
+        (
+            "empty",
+            "grid",
+            variant(lagwise::place_on_grid(&[], &[], &quarter_hours())),
+            "EmptySeries",
+        ),
+        (
+            "length mismatch",
+            "grid",
+            variant(lagwise::place_on_grid(&[0, 1], &[1.0], &quarter_hours())),
+            "LengthMismatch",
+        ),
+        (
+            "inf",
+            "grid",
+            variant(lagwise::place_on_grid(
+                &[0, 900_000],
+                &[1.0, f64::INFINITY],
+                &quarter_hours(),
+            )),
+            "NonFiniteReading",
+        ),
+        (
+            "all missing",
+            "grid",
+            variant(lagwise::place_on_grid(
+                &[0, 900_000],
+                &[f64::NAN; 2],
+                &quarter_hours(),
+            )),
+            "AllMissing",
+        ),
+        (
+            "absurd span",
+            "grid",
+            variant(lagwise::place_on_grid(
+                &[0, i64::MAX / 2],
+                &[1.0, 2.0],
+                &quarter_hours(),
+            )),
+            "InvalidArgument",
+        ),
+        (
+            "extreme timestamps",
+            "grid",
+            variant(lagwise::place_on_grid(
+                &[i64::MIN, i64::MAX],
+                &[1.0, 2.0],
+                &quarter_hours(),
+            )),
+            "InvalidArgument",
+        ),
+        (
+            "zero cadence",
+            "grid settings",
+            variant(lagwise::GridSettings::builder(0).build()),
+            "InvalidArgument",
+        ),
+        (
+            "nan timestamp",
+            "timestamps",
+            variant(lagwise::millis_from_seconds(&[0.0, f64::NAN])),
+            "InvalidArgument",
+        ),
+        (
+            "inf timestamp",
+            "timestamps",
+            variant(lagwise::millis_from_seconds(&[f64::INFINITY])),
             "InvalidArgument",
         ),
     ];

@@ -360,6 +360,35 @@ pub fn place_on_grid(
     })
 }
 
+/// Epoch milliseconds from epoch seconds given as floating-point numbers (as exported by
+/// many tools), rounded to the nearest millisecond. Errors name the first timestamp that
+/// is NaN, infinite, or beyond ±2⁶³ milliseconds.
+///
+/// ```
+/// let ms = lagwise::millis_from_seconds(&[1_767_225_600.0, 1_767_226_500.25])?;
+/// assert_eq!(ms, vec![1_767_225_600_000, 1_767_226_500_250]);
+/// assert!(lagwise::millis_from_seconds(&[0.0, f64::NAN]).is_err());
+/// # Ok::<(), lagwise::Error>(())
+/// ```
+pub fn millis_from_seconds(seconds: &[f64]) -> Result<Vec<i64>> {
+    seconds
+        .iter()
+        .enumerate()
+        .map(|(i, &s)| {
+            let ms = (s * 1000.0).round();
+            // i64::MAX as f64 rounds up to 2⁶³, which is already out of range.
+            if ms.is_finite() && ms >= i64::MIN as f64 && ms < i64::MAX as f64 {
+                Ok(ms as i64)
+            } else {
+                Err(Error::invalid(
+                    "timestamps",
+                    format!("timestamp {i} is {s} s; timestamps must be finite epoch seconds"),
+                ))
+            }
+        })
+        .collect()
+}
+
 /// One slot's value from its readings (sorted by time, then input position).
 fn combine(group: &[(u64, i64, usize, f64)], rule: SlotRule, bucket: &mut Vec<f64>) -> f64 {
     match rule {
