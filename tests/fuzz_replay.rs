@@ -41,3 +41,8 @@ fn monitor_corpus() {
 fn restore_corpus() {
     assert!(replay("restore", harness::restore) >= 8);
 }
+
+#[test]
+fn grid_corpus() {
+    assert!(replay("grid", harness::grid) >= 6);
+}

@@ -184,3 +184,55 @@ pub(crate) fn restore(data: &[u8]) {
     }
     let _ = lagwise::blueprint_from_json(&text);
 }
+
+/// Decode: bytes 0–1 = cadence in seconds (0 allowed, refused), byte 2 = tolerance in
+/// percent of the cadence, byte 3 = slot rule, byte 4 bit 0 = explicit origin; then
+/// 16-byte records of an i64 timestamp (ms) and an f64 reading, any bit patterns.
+/// Checks the report's accounting and that the grid is no longer than its limit.
+pub(crate) fn grid(data: &[u8]) {
+    if data.len() < 5 {
+        return;
+    }
+    let cadence = i64::from(u16::from_le_bytes([data[0], data[1]])) * 1000;
+    let rule = [
+        lagwise::SlotRule::Mean,
+        lagwise::SlotRule::Median,
+        lagwise::SlotRule::Latest,
+        lagwise::SlotRule::Earliest,
+        lagwise::SlotRule::Smallest,
+        lagwise::SlotRule::Largest,
+    ][data[3] as usize % 6];
+    let mut times = Vec::new();
+    let mut values = Vec::new();
+    for c in data[5..].chunks_exact(16) {
+        times.push(i64::from_le_bytes([
+            c[0], c[1], c[2], c[3], c[4], c[5], c[6], c[7],
+        ]));
+        values.push(f64::from_le_bytes([
+            c[8], c[9], c[10], c[11], c[12], c[13], c[14], c[15],
+        ]));
+    }
+    let mut builder = lagwise::GridSettings::builder(cadence);
+    builder
+        .tolerance_ms(cadence / 2 * i64::from(data[2] % 101) / 100)
+        .slot_rule(rule);
+    if data[4] & 1 == 1
+        && let Some(&t) = times.first()
+    {
+        builder.origin_ms(t.saturating_sub(cadence));
+    }
+    let Ok(settings) = builder.build() else {
+        return;
+    };
+    if let Ok(g) = lagwise::place_on_grid(&times, &values, &settings) {
+        let r = g.report;
+        let occupied = g.values.iter().filter(|v| !v.is_nan()).count();
+        assert_eq!(
+            r.readings,
+            r.empty_readings + r.off_grid + r.before_origin + r.merged + occupied,
+            "every reading accounted for"
+        );
+        assert!(g.values.len() as u64 <= lagwise::MAX_GRID_SLOTS);
+        assert!(g.values.iter().all(|v| !v.is_infinite()));
+    }
+}
