@@ -1354,18 +1354,13 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
     let mut y: Vec<f64> = w[start..].to_vec();
     let mut cols: Vec<Vec<f64>> = Vec::new();
     let mut slots: Vec<(Factor, usize)> = Vec::new();
-    for &(f, i, lagv) in &ar_lags {
-        let col: Vec<f64> = (start..n).map(|t| w[t - lagv]).collect();
-        match bp.held_value(f.term(i + 1)) {
-            Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
-            None => {
-                cols.push(col);
-                slots.push((f, i));
-            }
-        }
-    }
-    for &(f, i, lagv) in &ma_lags {
-        let col: Vec<f64> = (start..n).map(|t| ehat[t - lagv]).collect();
+    // AR columns are lagged readings, MA columns lagged long-AR innovations.
+    let lagged = ar_lags
+        .iter()
+        .map(|l| (l, &w))
+        .chain(ma_lags.iter().map(|l| (l, &ehat)));
+    for (&(f, i, lagv), source) in lagged {
+        let col: Vec<f64> = (start..n).map(|t| source[t - lagv]).collect();
         match bp.held_value(f.term(i + 1)) {
             Some(v) => y.iter_mut().zip(&col).for_each(|(yi, c)| *yi -= v * c),
             None => {

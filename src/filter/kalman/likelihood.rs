@@ -97,29 +97,7 @@ pub fn reference_log_likelihood(
         innovation_variance,
         series,
     )?;
-    let r = ws.r;
-    let mut a = vec![0.0; r];
-    let (mut ld, mut ss, mut m) = (0.0, 0.0, 0usize);
-    for &x in series {
-        let f = ws.p[0];
-        if x.is_nan() {
-            ws.predict_covariance_no_update();
-        } else {
-            let v = x - a[0];
-            ld += f.ln();
-            ss += v * v / f;
-            m += 1;
-            for i in 0..r {
-                a[i] += ws.p[i] / f * v;
-            }
-            let _ = ws.predict_covariance_after_update(f);
-        }
-        let a0 = a[0];
-        for i in 0..r - 1 {
-            a[i] = ws.phi[i] * a0 + a[i + 1];
-        }
-        a[r - 1] = ws.phi[r - 1] * a0;
-    }
+    let (ld, ss, m) = ws.covariance_recursion_totals(series);
     let n = m as f64;
     Ok(-0.5
         * (n * (2.0 * std::f64::consts::PI * innovation_variance).ln()
@@ -157,4 +135,36 @@ pub(super) fn checked_workspace(
     let mut ws = KalmanWorkspace::default();
     ws.set_model(phi, theta)?;
     Ok(ws)
+}
+
+impl KalmanWorkspace {
+    /// `(Σ ln F_t, Σ v_t²/F_t, readings used)` of the plain covariance recursion at every
+    /// reading (σ² = 1), from the stationary start of the model set last: the reference
+    /// route of [`reference_log_likelihood`] and of the filter's equivalence tests.
+    pub(super) fn covariance_recursion_totals(&mut self, series: &[f64]) -> (f64, f64, usize) {
+        let r = self.r;
+        let mut a = vec![0.0; r];
+        let (mut ld, mut ss, mut m) = (0.0, 0.0, 0usize);
+        for &x in series {
+            let f = self.p[0];
+            if x.is_nan() {
+                self.predict_covariance_no_update();
+            } else {
+                let v = x - a[0];
+                ld += f.ln();
+                ss += v * v / f;
+                m += 1;
+                for i in 0..r {
+                    a[i] += self.p[i] / f * v;
+                }
+                let _ = self.predict_covariance_after_update(f);
+            }
+            let a0 = a[0];
+            for i in 0..r - 1 {
+                a[i] = self.phi[i] * a0 + a[i + 1];
+            }
+            a[r - 1] = self.phi[r - 1] * a0;
+        }
+        (ld, ss, m)
+    }
 }

@@ -631,28 +631,7 @@ mod tests {
     fn full_only(phi: &[f64], theta: &[f64], x: &[f64]) -> (f64, f64) {
         let mut refw = KalmanWorkspace::default();
         refw.set_model(phi, theta).unwrap();
-        let r = refw.r;
-        let mut a = vec![0.0; r];
-        let (mut ld, mut ss) = (0.0, 0.0);
-        for t in 0..x.len() {
-            let f = refw.p[0];
-            if x[t].is_nan() {
-                refw.predict_covariance_no_update();
-            } else {
-                let v = x[t] - a[0];
-                ld += f.ln();
-                ss += v * v / f;
-                for i in 0..r {
-                    a[i] += refw.p[i] / f * v;
-                }
-                let _ = refw.predict_covariance_after_update(f);
-            }
-            let a0 = a[0];
-            for i in 0..r - 1 {
-                a[i] = refw.phi[i] * a0 + a[i + 1];
-            }
-            a[r - 1] = refw.phi[r - 1] * a0;
-        }
+        let (ld, ss, _) = refw.covariance_recursion_totals(x);
         (ld, ss)
     }
 
