@@ -281,3 +281,24 @@ fn the_time_axis_travels_with_models_forecasts_and_monitors() {
         .unwrap();
     assert_eq!(kf.steps[1].time_ms, Some(T0 + 251 * Q));
 }
+
+/// Regression (found by the grid fuzz target): readings near ±f64::MAX in one slot
+/// overflowed the mean (and would the median of two) to ±inf; the value must stay a
+/// finite number within the slot's readings.
+#[test]
+fn huge_readings_in_one_slot_stay_finite() {
+    let big = f64::MAX;
+    for rule in [SlotRule::Mean, SlotRule::Median] {
+        let s = GridSettings::builder(Q).slot_rule(rule).build().unwrap();
+        for vals in [[big, big * 0.9, big], [-big, -big, -big * 0.5]] {
+            let g = place_on_grid(&[T0, T0 + 1, T0 + 2], &vals, &s).unwrap();
+            let v = g.values[0];
+            let (lo, hi) = vals
+                .iter()
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| {
+                    (a.min(x), b.max(x))
+                });
+            assert!(v.is_finite() && v >= lo && v <= hi, "{rule:?}: {v}");
+        }
+    }
+}

@@ -392,7 +392,7 @@ pub fn millis_from_seconds(seconds: &[f64]) -> Result<Vec<i64>> {
 /// One slot's value from its readings (sorted by time, then input position).
 fn combine(group: &[(u64, i64, usize, f64)], rule: SlotRule, bucket: &mut Vec<f64>) -> f64 {
     match rule {
-        SlotRule::Mean => group.iter().map(|g| g.3).sum::<f64>() / group.len() as f64,
+        SlotRule::Mean => mean_of(group),
         SlotRule::Latest => group[group.len() - 1].3,
         SlotRule::Earliest => group[0].3,
         SlotRule::Smallest => group.iter().map(|g| g.3).fold(f64::INFINITY, f64::min),
@@ -405,8 +405,25 @@ fn combine(group: &[(u64, i64, usize, f64)], rule: SlotRule, bucket: &mut Vec<f6
             if m % 2 == 1 {
                 bucket[m / 2]
             } else {
-                0.5 * (bucket[m / 2 - 1] + bucket[m / 2])
+                // Halves first: the sum of two readings near ±f64::MAX overflows.
+                0.5 * bucket[m / 2 - 1] + 0.5 * bucket[m / 2]
             }
         }
     }
+}
+
+/// The mean of a slot's readings. Readings near ±f64::MAX would overflow the plain sum: it
+/// is then taken on values scaled by an exact power of two no smaller than the count, and
+/// the result kept within the readings' range (where the mean lies; found by fuzzing).
+fn mean_of(group: &[(u64, i64, usize, f64)]) -> f64 {
+    let n = group.len() as f64;
+    let plain = group.iter().map(|g| g.3).sum::<f64>() / n;
+    if plain.is_finite() {
+        return plain;
+    }
+    let scale = (group.len() as f64).log2().ceil().exp2();
+    let scaled = group.iter().map(|g| g.3 / scale).sum::<f64>() / n * scale;
+    let lo = group.iter().map(|g| g.3).fold(f64::INFINITY, f64::min);
+    let hi = group.iter().map(|g| g.3).fold(f64::NEG_INFINITY, f64::max);
+    scaled.clamp(lo, hi)
 }
