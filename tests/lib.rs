@@ -22,4 +22,5 @@ mod properties;
 mod regression_reference;
 mod robustness;
 mod search_checks;
+mod shape_reference;
 mod simulation_facts;

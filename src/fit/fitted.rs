@@ -18,6 +18,7 @@ use crate::model::lag::{self, Complex};
 use crate::stats::correlogram::{BandRule, Correlogram, CorrelogramWorkspace, LagValues};
 use crate::stats::criteria::InformationCriteria;
 use crate::stats::portmanteau::{LagPValue, PortmanteauScan};
+use crate::stats::shape::{NormalityTest, VarianceChangeTest, jarque_bera, mcleod_li};
 
 /// Modulus of an inverse root above which a fit carries a near-unit-root warning
 /// (common practice: roots within about 2% of the unit circle).
@@ -842,6 +843,12 @@ pub struct ResidualCheck {
     /// per-lag p-values of the scan are for inspection — requiring every one of them to
     /// pass would reject about three times as many adequate models at H = 10.)
     pub white: bool,
+    /// Jarque–Bera test of the standardized residuals' normality (`None` when there are
+    /// too few of them). Intervals assume Gaussian innovations.
+    pub normality: Option<NormalityTest>,
+    /// McLeod–Li test for changing variance over the same lags (`None` when there are
+    /// too few residuals).
+    pub variance_change: Option<VarianceChangeTest>,
 }
 
 /// The covariance of every estimated parameter, σ² included, from the full Hessian of
@@ -881,6 +888,44 @@ impl ParameterCovariance {
 }
 
 impl ResidualCheck {
+    /// Residual health beyond whiteness in one line: the Jarque–Bera test (skewness,
+    /// excess kurtosis) and the McLeod–Li test, each p-value against `alpha`.
+    pub fn health_line(&self) -> String {
+        let judge = |p: f64| if p >= self.alpha { "≥" } else { "<" };
+        let shape = match self.normality {
+            Some(n) => format!(
+                "Jarque–Bera JB = {:.2} (skewness {:+.2}, excess kurtosis {:+.2}), p = {:.4} {} α → {}",
+                n.statistic,
+                n.skewness,
+                n.excess_kurtosis,
+                n.p_value,
+                judge(n.p_value),
+                if n.p_value >= self.alpha {
+                    "normal"
+                } else {
+                    "NOT normal"
+                }
+            ),
+            None => "Jarque–Bera: too few residuals".into(),
+        };
+        let variance = match self.variance_change {
+            Some(v) => format!(
+                "McLeod–Li Q² = {:.2} on {} df, p = {:.4} {} α → {}",
+                v.statistic,
+                v.lags,
+                v.p_value,
+                judge(v.p_value),
+                if v.p_value >= self.alpha {
+                    "steady variance"
+                } else {
+                    "variance CHANGES"
+                }
+            ),
+            None => "McLeod–Li: too few residuals".into(),
+        };
+        format!("residual shape: {shape}; {variance}")
+    }
+
     /// The check in one line a reader can verify: the Ljung–Box statistic at the check
     /// lag `H`, its degrees of freedom and p-value against `alpha`, the verdict that
     /// follows, and, for inspection only, the smallest p-value over lags `1..=H`. The
@@ -1140,6 +1185,8 @@ impl FittedModel {
             portmanteau,
             alpha,
             white,
+            normality: jarque_bera(&self.standardized).ok(),
+            variance_change: mcleod_li(&self.standardized, max_lag).ok(),
         })
     }
 
@@ -1259,6 +1306,7 @@ impl fmt::Display for FittedModel {
             writeln!(f, "   residuals: not stored with this model")?;
         } else if let Ok(check) = self.residual_check(self.default_check_lags(), 0.05) {
             writeln!(f, "   {}", check.verdict_line())?;
+            writeln!(f, "   {}", check.health_line())?;
         }
         for w in &self.warnings {
             writeln!(f, "   ! {w}")?;
