@@ -189,8 +189,21 @@ fn morning_report() -> Result<(), lagwise::Error> {
         );
         let mut day_ahead = Vec::new();
         let mut account = None;
+        let mut sensor_events = Vec::new();
         for tag in substation(id, seed)? {
             let (history, night) = tag.readings.split_at(history_len);
+            for run in lagwise::find_stuck_runs(history, lagwise::DEFAULT_STUCK_RUN, 0.0)? {
+                sensor_events.push(format!(
+                    "{}: stuck at {:.2} {} from day {} {} for {} readings ({:.1} h)",
+                    tag.name,
+                    run.value,
+                    tag.unit,
+                    run.start / PER_DAY + 1,
+                    clock(run.start as u64),
+                    run.readings,
+                    run.readings as f64 / 4.0
+                ));
+            }
             let (fit, search) = fit_tag(&tag.name, history, &mut ws)?;
             if id == 417
                 && tag.name.ends_with("-TS")
@@ -240,6 +253,12 @@ fn morning_report() -> Result<(), lagwise::Error> {
                     tag.unit,
                     monitor.forecast(PER_DAY, &[0.8, 0.95])?,
                 ));
+            }
+        }
+        if !sensor_events.is_empty() {
+            println!("Sensor events in the history:");
+            for e in &sensor_events {
+                println!("  {e}");
             }
         }
         if let Some((name, outcome)) = account {

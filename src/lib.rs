@@ -152,6 +152,7 @@ pub use stats::correlogram::{
 pub use stats::criteria::{Criterion, InformationCriteria};
 pub use stats::portmanteau::{LagPValue, PortmanteauRow, PortmanteauScan};
 pub use stats::shape::{NormalityTest, VarianceChangeTest, jarque_bera, mcleod_li};
+pub use stats::stuck::{DEFAULT_STUCK_RUN, StuckRun, find_stuck_runs, mask_runs};
 pub use stats::unitroot::{
     CriticalValue, RootTest, TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength,
 };

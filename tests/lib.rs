@@ -24,3 +24,4 @@ mod robustness;
 mod search_checks;
 mod shape_reference;
 mod simulation_facts;
+mod stuck_checks;

@@ -5,4 +5,5 @@ pub(crate) mod correlogram;
 pub(crate) mod criteria;
 pub(crate) mod portmanteau;
 pub(crate) mod shape;
+pub(crate) mod stuck;
 pub(crate) mod unitroot;
