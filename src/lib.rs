@@ -75,6 +75,17 @@
 //! | store | [`model_to_json`] (format), [`model_from_json`], [`monitor_to_json`], [`blueprint_to_json`] |
 //! | many series | [`Fleet`], [`FitSummary`], [`FleetReport`] |
 //!
+//! ## Serialised results
+//! Results a dashboard needs serialise with serde under their Rust field names, which are
+//! part of the stable surface: [`Correlogram`], [`CrossCorrelogram`], [`PortmanteauScan`]
+//! (rows: [`PortmanteauRow`]), [`ResidualCheck`], [`SearchOutcome`] (with every
+//! [`Candidate`]), [`Forecast`], [`ReadingCheck`], [`FitSummary`], [`GriddedSeries`].
+//! Values keyed by lag are `{"first_lag": k, "values": [...]}` ([`LagValues`]); a missing
+//! or undefined value is `null` (JSON has no NaN), and an absent p-value is `null` too.
+//! Restoring checks that the parts fit together (a correlogram's lags, a scan's rows).
+//! Stored models, monitors and blueprints have their own versioned envelope
+//! ([`model_to_json`]).
+//!
 //! ## Performance
 //! Correlograms cost `O(n·H)` multiply-adds over cache-sized blocks and allocate only a
 //! block buffer (reusable through [`CorrelogramWorkspace`]): 10⁷ readings to lag 200 in well

@@ -22,6 +22,7 @@ mod properties;
 mod regression_reference;
 mod robustness;
 mod search_checks;
+mod serialise_checks;
 mod shape_reference;
 mod simulation_facts;
 mod stuck_checks;

@@ -15,3 +15,16 @@ pub(crate) fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<f64>, D
     let opt: Vec<Option<f64>> = Vec::deserialize(d)?;
     Ok(opt.into_iter().map(|x| x.unwrap_or(f64::NAN)).collect())
 }
+
+/// The same for one `f64`: NaN (a missing reading) is stored as `null`.
+pub(crate) mod one {
+    use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+    pub(crate) fn serialize<S: Serializer>(v: &f64, s: S) -> Result<S::Ok, S::Error> {
+        (!v.is_nan()).then_some(*v).serialize(s)
+    }
+
+    pub(crate) fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        Ok(Option::<f64>::deserialize(d)?.unwrap_or(f64::NAN))
+    }
+}

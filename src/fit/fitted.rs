@@ -827,7 +827,7 @@ pub(crate) fn fingerprint(series: &[f64]) -> u64 {
 
 /// The residual check bundle: correlogram of the residuals with bands, and Ljung–Box /
 /// Box–Pierce scans with degrees of freedom reduced by the estimated ARMA coefficients.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[non_exhaustive]
 pub struct ResidualCheck {
     /// Correlogram (ACF and PACF) of the standardized residuals.

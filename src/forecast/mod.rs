@@ -275,7 +275,8 @@ pub struct ReadingCheck {
     pub index: u64,
     /// Its time (UTC epoch milliseconds) when the monitor has a time axis.
     pub time_ms: Option<i64>,
-    /// The reading (NaN if missing).
+    /// The reading (NaN if missing; `null` when serialised).
+    #[serde(with = "crate::base::nan_as_null::one")]
     pub reading: f64,
     /// One-step forecast made before seeing it.
     pub predicted: f64,

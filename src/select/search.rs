@@ -220,7 +220,7 @@ impl SearchSettingsBuilder {
 }
 
 /// The differencing an order search settled on, with the evidence.
-#[derive(Debug, Clone, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct DifferencingChoice {
     /// Non-seasonal differencing d.
@@ -232,7 +232,7 @@ pub struct DifferencingChoice {
 }
 
 /// One candidate of a search, as recorded in the account.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct Candidate {
     /// Orders, differencing and constant (mean or drift) of the candidate; its `Display`
@@ -255,7 +255,7 @@ impl Candidate {
 }
 
 /// The result of an order search: the chosen model and an account of every candidate.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct SearchOutcome {
     /// The chosen model.

@@ -262,7 +262,11 @@ impl LagValues {
 /// no `O(n)` buffer, and are faster for the lags a correlogram is read at (H ≤ a few hundred).
 /// The mean uses a compensated two-pass sum on exactly rescaled values, which reproduces
 /// the NIST StRD NumAcc certified values.
-#[derive(Debug, Clone, PartialEq)]
+///
+/// Serialised (serde) with the field names below; restoring checks that the parts fit
+/// together.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(try_from = "CorrelogramRecord")]
 #[non_exhaustive]
 pub struct Correlogram {
     length: usize,
@@ -271,6 +275,46 @@ pub struct Correlogram {
     autocovariance: LagValues,
     autocorrelation: LagValues,
     partial: LagValues,
+}
+
+/// The stored form of a correlogram.
+#[derive(Deserialize)]
+struct CorrelogramRecord {
+    length: usize,
+    present: usize,
+    mean: f64,
+    autocovariance: LagValues,
+    autocorrelation: LagValues,
+    partial: LagValues,
+}
+
+impl TryFrom<CorrelogramRecord> for Correlogram {
+    type Error = String;
+    fn try_from(r: CorrelogramRecord) -> std::result::Result<Self, String> {
+        let lags = r.autocorrelation.len();
+        if lags == 0 || r.autocorrelation.first_lag() != 0 || r.autocovariance.first_lag() != 0 {
+            return Err("autocorrelations and autocovariances must start at lag 0".into());
+        }
+        if r.autocovariance.len() != lags {
+            return Err("autocovariances and autocorrelations differ in length".into());
+        }
+        if r.partial.first_lag() != 1 || r.partial.len() >= lags {
+            return Err(
+                "partial autocorrelations must run from lag 1 to at most the largest lag".into(),
+            );
+        }
+        if r.present == 0 || r.present > r.length {
+            return Err(format!("{} present readings of {}", r.present, r.length));
+        }
+        Ok(Correlogram {
+            length: r.length,
+            present: r.present,
+            mean: r.mean,
+            autocovariance: r.autocovariance,
+            autocorrelation: r.autocorrelation,
+            partial: r.partial,
+        })
+    }
 }
 
 impl Correlogram {
@@ -496,13 +540,44 @@ pub fn partial_from_autocorrelations(r: &[f64]) -> Result<Vec<f64>> {
 }
 
 /// Sample cross-correlation of two equally long series.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(try_from = "CrossCorrelogramRecord")]
 #[non_exhaustive]
 pub struct CrossCorrelogram {
     max_lag: usize,
+    #[serde(with = "crate::base::nan_as_null")]
     correlation: Vec<f64>,
     present_left: usize,
     present_right: usize,
+}
+
+/// The stored form of a cross-correlogram.
+#[derive(Deserialize)]
+struct CrossCorrelogramRecord {
+    max_lag: usize,
+    #[serde(with = "crate::base::nan_as_null")]
+    correlation: Vec<f64>,
+    present_left: usize,
+    present_right: usize,
+}
+
+impl TryFrom<CrossCorrelogramRecord> for CrossCorrelogram {
+    type Error = String;
+    fn try_from(r: CrossCorrelogramRecord) -> std::result::Result<Self, String> {
+        if r.max_lag.checked_mul(2).and_then(|v| v.checked_add(1)) != Some(r.correlation.len()) {
+            return Err(format!(
+                "{} correlations for lags -{0}..={0} need {1}",
+                r.correlation.len(),
+                r.max_lag
+            ));
+        }
+        Ok(CrossCorrelogram {
+            max_lag: r.max_lag,
+            correlation: r.correlation,
+            present_left: r.present_left,
+            present_right: r.present_right,
+        })
+    }
 }
 
 impl CrossCorrelogram {

@@ -6,14 +6,16 @@ use crate::base::error::{Error, Result};
 use crate::stats::correlogram::{Correlogram, CorrelogramWorkspace};
 
 /// One lag of a [`PortmanteauScan`].
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 #[non_exhaustive]
 pub struct PortmanteauRow {
     /// The lag `h` (the statistic sums lags `1..=h`).
     pub lag: usize,
     /// Ljung–Box statistic `Q_LB(h)`.
+    #[serde(with = "crate::base::nan_as_null::one")]
     pub ljung_box: f64,
     /// Box–Pierce statistic `Q_BP(h)`.
+    #[serde(with = "crate::base::nan_as_null::one")]
     pub box_pierce: f64,
     /// `h − fitted ARMA coefficients`, or `None` when that is not positive.
     pub degrees_of_freedom: Option<usize>,
@@ -58,12 +60,39 @@ pub struct LagPValue {
 /// each is approximately chi-square with `h − (p + q)` degrees of freedom. Where
 /// `h ≤ p + q` there are no degrees of freedom left and the p-value is `None` — absent,
 /// not NaN. P-values come from the chi-square survival function of `statrs`.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(try_from = "PortmanteauRecord")]
 #[non_exhaustive]
 pub struct PortmanteauScan {
     fitted_coefficients: usize,
     readings: usize,
     rows: Vec<PortmanteauRow>,
+}
+
+/// The stored form of a scan.
+#[derive(serde::Deserialize)]
+struct PortmanteauRecord {
+    fitted_coefficients: usize,
+    readings: usize,
+    rows: Vec<PortmanteauRow>,
+}
+
+impl TryFrom<PortmanteauRecord> for PortmanteauScan {
+    type Error = String;
+    fn try_from(r: PortmanteauRecord) -> std::result::Result<Self, String> {
+        if let Some((i, row)) = r.rows.iter().enumerate().find(|(i, row)| row.lag != i + 1) {
+            return Err(format!(
+                "row {i} is for lag {}, expected lag {}",
+                row.lag,
+                i + 1
+            ));
+        }
+        Ok(PortmanteauScan {
+            fitted_coefficients: r.fitted_coefficients,
+            readings: r.readings,
+            rows: r.rows,
+        })
+    }
 }
 
 impl PortmanteauScan {
