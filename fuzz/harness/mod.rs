@@ -183,6 +183,20 @@ pub(crate) fn restore(data: &[u8]) {
         let _ = mon.forecast(3, &[0.9]);
     }
     let _ = lagwise::blueprint_from_json(&text);
+    // Serialised diagnostics (no envelope): whatever restores must be usable.
+    if let Ok(cg) = serde_json::from_str::<lagwise::Correlogram>(&text) {
+        let _ = cg.bands(0.95, lagwise::BandRule::BartlettCumulative);
+        let _ = (cg.max_lag(), cg.partial_band(0.95), cg.autocorrelation(1));
+    }
+    if let Ok(scan) = serde_json::from_str::<lagwise::PortmanteauScan>(&text) {
+        let _ = (scan.row(0), scan.row(1), scan.smallest_ljung_box_p_value());
+    }
+    if let Ok(check) = serde_json::from_str::<lagwise::ResidualCheck>(&text) {
+        let _ = (check.verdict_line(), check.health_line());
+    }
+    if let Ok(cc) = serde_json::from_str::<lagwise::CrossCorrelogram>(&text) {
+        let _ = (cc.at(-1), cc.at(0), cc.band(0.95));
+    }
 }
 
 /// Decode: bytes 0–1 = cadence in seconds (0 allowed, refused), byte 2 = tolerance in
