@@ -56,7 +56,7 @@ fn full_covariance_matches_dense_hessian() {
             let (a, b) = (got[i * k + i].sqrt(), want[i][i].sqrt());
             assert!(
                 (a - b).abs() <= 0.01 * b,
-                "{name}: s.e. of {} {a} vs {b}",
+                "{name}: standard error of {} {a} vs {b}",
                 names[i]
             );
             for j in 0..i {

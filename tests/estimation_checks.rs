@@ -357,7 +357,7 @@ fn residuals_are_readings_minus_fit() {
     }
 }
 
-/// Coefficient tests and the residual verdict read off the report: `z = value / s.e.`,
+/// Wald statistics of the coefficients and the residual verdict read off the report: `z = value / sd`,
 /// `p = 2(1 − Φ(|z|))` checked against the handbook approximation of erfc (Abramowitz &
 /// Stegun 7.1.26, absolute error below 1.5e-7; formula from memory), and a verdict line
 /// whose printed p-value, level and verdict agree with each other.

@@ -249,7 +249,6 @@ impl FittedModel {
 
 /// A monitor for the model of `blueprint` (its forecasting model `forecaster`) positioned
 /// after `history` and its regressor columns.
-#[allow(clippy::too_many_arguments)]
 pub(crate) fn monitor_after(
     blueprint: &Blueprint,
     forecaster: &ForecastModel,
