@@ -932,8 +932,13 @@ fn guarded_prediction(
 pub enum StopReason {
     /// The gradient norm fell below the tolerance.
     GradientSmall,
-    /// The objective stopped changing (relative change below machine precision).
+    /// The objective stopped changing (relative change below machine precision) while
+    /// the gradient test failed, and restarting did not cure it: not converged.
     ObjectiveStalled,
+    /// The objective stopped changing and, although the gradient is above the tolerance,
+    /// the predicted further gain at the reported point (from the quasi-Newton curvature)
+    /// is below 1e-6 in log-likelihood: converged.
+    GainNegligible,
     /// The iteration cap was reached.
     IterationCap,
     /// The line search could not make progress; the best point found is reported.
@@ -946,7 +951,8 @@ impl std::fmt::Display for StopReason {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.write_str(match self {
             StopReason::GradientSmall => "gradient below tolerance",
-            StopReason::ObjectiveStalled => "objective stopped changing",
+            StopReason::ObjectiveStalled => "objective stopped changing short of the optimum",
+            StopReason::GainNegligible => "predicted further gain negligible",
             StopReason::IterationCap => "iteration cap reached",
             StopReason::LineSearchStuck => "line search could not improve",
             StopReason::NothingToEstimate => "nothing to estimate",
@@ -975,9 +981,7 @@ impl StageRecord {
     pub fn converged(&self) -> bool {
         matches!(
             self.reason,
-            StopReason::GradientSmall
-                | StopReason::ObjectiveStalled
-                | StopReason::NothingToEstimate
+            StopReason::GradientSmall | StopReason::GainNegligible | StopReason::NothingToEstimate
         )
     }
 }
@@ -1291,6 +1295,22 @@ pub(crate) fn minimise(
         if gradient_norm <= bp.tolerance {
             reason = StopReason::GradientSmall;
             break;
+        }
+        if reason == StopReason::ObjectiveStalled {
+            // The objective stopped changing but the gradient test fails: converged only
+            // if the predicted further gain ½ gᵀH⁻¹g (the last quasi-Newton inverse
+            // Hessian, at the reported point) is negligible — below 1e-6 in total
+            // log-likelihood; otherwise restart from here with a fresh inverse Hessian.
+            let per_reading = 1e-6 / prep.n.max(1) as f64;
+            let gain = last_inv_hessian
+                .as_ref()
+                .filter(|h| h.len() == k)
+                .map(|h| 0.5 * quadratic_form(h, &g));
+            if gain.is_some_and(|d| (0.0..=per_reading).contains(&d)) {
+                reason = StopReason::GainNegligible;
+                break;
+            }
+            continue;
         }
         if !stalled {
             break;
@@ -1675,6 +1695,14 @@ fn run_bfgs(
             stalled: true,
         },
     })
+}
+
+/// `gᵀ H g` for a matrix given as rows.
+fn quadratic_form(h: &[Vec<f64>], g: &[f64]) -> f64 {
+    h.iter()
+        .zip(g)
+        .map(|(row, gi)| gi * row.iter().zip(g).map(|(a, b)| a * b).sum::<f64>())
+        .sum()
 }
 
 /// The k × k identity as rows.
