@@ -291,3 +291,50 @@ fn strength_and_bad_input() {
     assert!(search_orders(&short, &SearchSettings::default()).is_err());
     assert!(search_orders(&[5.0; 100], &SearchSettings::default()).is_err());
 }
+
+/// No false convergence in the account (daily-cycle issue): a candidate's maximised
+/// log-likelihood is never below that of a candidate nested in it (orders no larger, a
+/// constant only if it has one), since the larger model contains the smaller. Exhaustive
+/// (3, 3) grids over ARMA(2,1) + level series of 200 readings: before nested candidates
+/// warm-started larger ones, seed 700 alone had ARIMA(1,1,3) at log L −281.96 below the
+/// nested ARIMA(1,1,1) at −281.43 (and the scan of these 12 seeds found violations in
+/// several). Nested fits with a degenerate likelihood (log L > 1000, a unit-root boundary
+/// effect noted in DEVELOPERS.md) are left out.
+#[test]
+fn no_candidate_is_worse_than_one_nested_in_it() {
+    let settings = SearchSettings::builder()
+        .exhaustive(true)
+        .max_orders(3, 3, 0, 0)
+        .build()
+        .unwrap();
+    let sim = Simulator::builder()
+        .autoregressive(&[0.5, 0.3])
+        .moving_average(&[0.4])
+        .level(10.0)
+        .build()
+        .unwrap();
+    let (mut pairs, mut bad) = (0, Vec::new());
+    for seed in 700..712u64 {
+        let out = search_orders(&sim.generate(200, seed), &settings).unwrap();
+        for c in &out.candidates {
+            for n in &out.candidates {
+                let (Some(lc), Some(ln)) = (c.log_likelihood, n.log_likelihood) else {
+                    continue;
+                };
+                let (a, b) = (c.shape, n.shape);
+                let nested = a != b
+                    && b.p <= a.p
+                    && b.q <= a.q
+                    && (!(b.mean || b.drift) || (a.mean || a.drift));
+                if nested && ln < 1000.0 {
+                    pairs += 1;
+                    if lc < ln - 1e-6 {
+                        bad.push(format!("seed {seed}: {a} {lc:.4} below nested {b} {ln:.4}"));
+                    }
+                }
+            }
+        }
+    }
+    assert!(pairs > 1000, "{pairs} nested pairs");
+    assert!(bad.is_empty(), "{}", bad.join("\n"));
+}

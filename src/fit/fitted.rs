@@ -417,21 +417,34 @@ impl Blueprint {
         prep: estimate::Prepared,
         workspace: &mut FitWorkspace,
     ) -> Result<UnfinishedFit> {
+        self.fit_prepared_from(series, prep, None, workspace)
+    }
+
+    /// [`Blueprint::fit_prepared`] from given starting coefficients (for instance a
+    /// nested model's estimates padded with zeros) instead of the Hannan–Rissanen ones.
+    pub(crate) fn fit_prepared_from(
+        &self,
+        series: &[f64],
+        prep: estimate::Prepared,
+        start: Option<&FactorCoefficients>,
+        workspace: &mut FitWorkspace,
+    ) -> Result<UnfinishedFit> {
         let layout = Layout::new(self);
         let cell = RefCell::new(std::mem::take(&mut workspace.inner));
-        let result = optimise(self, &prep, &layout, &cell).and_then(|(coefs, kind, stages)| {
-            let mut fin = final_evaluation(self, &prep, &mut cell.borrow_mut(), &coefs, kind)?;
-            let beta_cov = fin.beta_cov.take();
-            let model = assemble(self, series, &prep, &coefs, kind, stages, fin)?;
-            Ok(UnfinishedFit {
-                model,
-                prep,
-                layout,
-                coefs,
-                kind,
-                beta_cov,
-            })
-        });
+        let result =
+            optimise(self, &prep, &layout, &cell, start).and_then(|(coefs, kind, stages)| {
+                let mut fin = final_evaluation(self, &prep, &mut cell.borrow_mut(), &coefs, kind)?;
+                let beta_cov = fin.beta_cov.take();
+                let model = assemble(self, series, &prep, &coefs, kind, stages, fin)?;
+                Ok(UnfinishedFit {
+                    model,
+                    prep,
+                    layout,
+                    coefs,
+                    kind,
+                    beta_cov,
+                })
+            });
         workspace.inner = cell.into_inner();
         result
     }
@@ -455,6 +468,11 @@ impl UnfinishedFit {
     /// standard errors, and no forecasting state.
     pub(crate) fn model(&self) -> &FittedModel {
         &self.model
+    }
+
+    /// The natural coefficients of the fit's four factors.
+    pub(crate) fn coefficients(&self) -> &FactorCoefficients {
+        &self.coefs
     }
 
     /// The prepared data of the fit (to reuse for a blueprint with the same
@@ -552,11 +570,21 @@ fn optimise(
     prep: &estimate::Prepared,
     layout: &Layout,
     cell: &RefCell<EvalWorkspace>,
+    given_start: Option<&FactorCoefficients>,
 ) -> Result<(FactorCoefficients, ObjectiveKind, Vec<StageRecord>)> {
-    let start = estimate::starting_values(prep, bp);
+    let start = match given_start {
+        Some(s) => s.clone(),
+        None => estimate::starting_values(prep, bp),
+    };
     let x0 = estimate::coordinates(layout, &start).unwrap_or_else(|| vec![0.0; layout.free_len]);
     let mut stages = Vec::new();
-    let (x, kind) = match bp.estimator {
+    // A given start (a nested model's optimum) is already what the CSS stage of the staged
+    // estimator is for: the exact stage starts from it directly.
+    let estimator = match (bp.estimator, given_start) {
+        (Estimator::StagedLikelihood, Some(_)) => Estimator::ExactLikelihood,
+        (e, _) => e,
+    };
+    let (x, kind) = match estimator {
         Estimator::ConditionalSumOfSquares => {
             let kind = ObjectiveKind::Conditional;
             let (x, rec, _) = estimate::minimise(prep, bp, layout, kind, cell, x0, None)?;

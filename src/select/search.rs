@@ -240,6 +240,8 @@ pub struct Candidate {
     pub shape: ModelShape,
     /// Criterion value (`None` if the fit failed or the criterion is undefined).
     pub criterion: Option<f64>,
+    /// Maximised log-likelihood of the fit (`None` if it failed).
+    pub log_likelihood: Option<f64>,
     /// Ljung–Box p-value of the whiteness gate.
     pub whiteness_p: Option<f64>,
     /// Whether the residuals passed the gate.
@@ -527,6 +529,7 @@ impl<'a> CandidateBench<'a> {
         let mut cand = Candidate {
             shape,
             criterion: None,
+            log_likelihood: None,
             whiteness_p: None,
             adequate: false,
             failure: None,
@@ -540,7 +543,8 @@ impl<'a> CandidateBench<'a> {
                 Some(p) => p.reuse_for(&bp)?,
                 None => crate::estimate::prepare(&bp, self.series, &[])?,
             };
-            bp.fit_prepared(self.series, prep, ws)
+            let fit = bp.fit_prepared(self.series, prep, ws)?;
+            Ok(self.no_worse_than_nested(&bp, o, fit, ws))
         });
         if let Ok(u) = &fit {
             self.prepared
@@ -567,6 +571,7 @@ impl<'a> CandidateBench<'a> {
                     }
                     Err(e) => cand.failure = Some(format!("residual check: {e}")),
                 }
+                cand.log_likelihood = Some(m.log_likelihood().value());
                 cand.criterion = m
                     .criteria()
                     .ok()
@@ -586,6 +591,58 @@ impl<'a> CandidateBench<'a> {
         self.tried.push(cand);
         self.fits.push(kept);
         criterion
+    }
+}
+
+impl CandidateBench<'_> {
+    /// A candidate's optimum is never worse than that of a candidate nested in it
+    /// (smaller or equal orders, a constant only if the candidate has one): the larger
+    /// model contains the smaller, so its maximum is at least as high. If a nested,
+    /// already fitted candidate has a higher log-likelihood, the candidate is fitted again
+    /// from the nested estimates (padded with zeros) and the better of the two fits kept.
+    fn no_worse_than_nested(
+        &self,
+        bp: &Blueprint,
+        o: Orders,
+        fit: UnfinishedFit,
+        ws: &mut FitWorkspace,
+    ) -> UnfinishedFit {
+        let ll = |u: &UnfinishedFit| u.model().log_likelihood().value();
+        let nested = self
+            .seen
+            .iter()
+            .filter(|(n, _)| {
+                **n != o
+                    && n.p <= o.p
+                    && n.q <= o.q
+                    && n.seasonal_p <= o.seasonal_p
+                    && n.seasonal_q <= o.seasonal_q
+                    && (!n.constant || o.constant)
+            })
+            .filter_map(|(_, &i)| self.fits[i].as_ref())
+            .filter(|n| {
+                n.model().log_likelihood().is_exact() == fit.model().log_likelihood().is_exact()
+            })
+            .max_by(|a, b| ll(a).total_cmp(&ll(b)));
+        let Some(best_nested) = nested else {
+            return fit;
+        };
+        if ll(best_nested) <= ll(&fit) + 1e-6 {
+            return fit;
+        }
+        let mut start = best_nested.coefficients().clone();
+        let lens = [o.p, o.q, o.seasonal_p, o.seasonal_q];
+        for (factor, len) in crate::model::coefficients::Factor::ALL
+            .into_iter()
+            .zip(lens)
+        {
+            start.of_mut(factor).resize(len, 0.0);
+        }
+        let prep = fit.prepared().clone();
+        match bp.fit_prepared_from(self.series, prep, Some(&start), ws) {
+            Ok(again) if ll(&again) > ll(&fit) => again,
+            _ => fit,
+        }
     }
 }
 
