@@ -454,6 +454,42 @@ fn matrix() {
             variant(InformationCriteria::from_log_likelihood(f64::NAN, 2, 10)),
             "InvalidArgument",
         ),
+        // Seasonal terms on too short a series: two full cycles are needed.
+        (
+            "period over half the series",
+            "fit",
+            variant(
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .seasonal(1, 0, 0, 120)
+                    .build()
+                    .unwrap()
+                    .fit(&good),
+            ),
+            "InvalidArgument",
+        ),
+        (
+            "under two cycles, D = 1",
+            "fit",
+            variant(
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .seasonal(0, 1, 0, 101)
+                    .build()
+                    .unwrap()
+                    .fit(&good),
+            ),
+            "InvalidArgument",
+        ),
+        (
+            "period over half the series",
+            "order search",
+            variant(search_orders(
+                &good,
+                &SearchSettings::builder().period(150).build().unwrap(),
+            )),
+            "InvalidArgument",
+        ),
         // Timestamped readings onto a grid.
         (
             "empty",

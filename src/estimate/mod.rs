@@ -134,6 +134,7 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
             needed: loss + estimated + 2,
         }));
     }
+    check_full_cycles(bp.period, series.len(), WHAT)?;
     // Work in exactly rescaled units (a power of two) so that readings near 1e±300 neither
     // overflow nor underflow in sums of squares; results are scaled back in `fit`.
     let data_scale = s.scale;
@@ -202,6 +203,22 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         has_missing: present_w < n,
         missing_original: series.len() - s.present,
     })
+}
+
+/// Seasonal terms need at least two full cycles of readings (`n ≥ 2s`): with fewer, a
+/// seasonal difference leaves less than one cycle and seasonal coefficients rest on a
+/// handful of pairs of readings.
+pub(crate) fn check_full_cycles(period: usize, len: usize, what: &'static str) -> Result<()> {
+    if period > 1 && len < 2 * period {
+        return Err(Error::invalid(
+            what,
+            format!(
+                "the period s = {period} needs at least two full cycles ({} readings); the series has {len}",
+                2 * period
+            ),
+        ));
+    }
+    Ok(())
 }
 
 /// Whether the data leave enough readings for `bp`'s orders: more present differenced

@@ -399,6 +399,7 @@ pub fn search_orders_with(
 ) -> Result<SearchOutcome> {
     let s = settings.period.max(1);
     crate::base::screen::screen(series, WHAT, 8, crate::base::screen::ConstantPolicy::Refuse)?;
+    crate::estimate::check_full_cycles(s, series.len(), WHAT)?;
     let differencing = match settings.differencing {
         Some((d, sd)) => DifferencingChoice {
             d,
