@@ -64,13 +64,14 @@
 //!
 //! | step | items |
 //! |---|---|
-//! | look at a series | [`Correlogram`], [`BandRule`], [`CrossCorrelogram`], [`PortmanteauScan`], [`augmented_dickey_fuller`], [`kpss`], [`seasonal_strength`] |
+//! | put readings on a grid | [`place_on_grid`], [`GridSettings`], [`SlotRule`], [`TimeAxis`], [`GriddedSeries`], [`millis_from_seconds`] |
+//! | look at a series | [`Correlogram`], [`LagValues`], [`BandRule`], [`CrossCorrelogram`], [`PortmanteauScan`], [`augmented_dickey_fuller`], [`kpss`], [`seasonal_strength`], [`find_stuck_runs`] |
 //! | say which model | [`Blueprint`], [`BlueprintBuilder`], [`Term`], [`Estimator`] |
 //! | lag polynomials | [`inverse_roots`] (conventions), [`is_stationary`], [`is_invertible`], [`psi_weights`], [`pi_weights`], [`multiply`], [`step_down`] |
 //! | simulate | [`Simulator`], [`Innovations`], [`Dropouts`] |
-//! | fit and explain | [`Blueprint::fit`], [`FittedModel`], [`ResidualCheck`], [`LikelihoodSurface`], [`exact_log_likelihood`] |
+//! | fit and explain | [`Blueprint::fit`], [`Blueprint::fit_gridded`], [`FittedModel`], [`ResidualCheck`] (with [`jarque_bera`], [`mcleod_li`]), [`ParameterCovariance`], [`LikelihoodSurface`], [`exact_log_likelihood`], [`reference_log_likelihood`] |
 //! | compare | [`InformationCriteria`] (counting rule), [`rank_by_criterion`], [`nested_likelihood_ratio`] |
-//! | forecast and watch | [`Forecast`], [`Monitor`], [`ReadingCheck`] |
+//! | forecast and watch | [`Forecast`], [`PredictionInterval`], [`Monitor`], [`ReadingCheck`], [`KnownModel`] |
 //! | choose orders | [`search_orders`], [`SearchSettings`], [`SearchOutcome`] |
 //! | store | [`model_to_json`] (format), [`model_from_json`], [`monitor_to_json`], [`blueprint_to_json`] |
 //! | many series | [`Fleet`], [`FitSummary`], [`FleetReport`] |
