@@ -221,9 +221,12 @@ impl FittedModel {
     /// A monitor that continues from the end of the fitted series, flagging readings
     /// outside the two-sided interval at `alarm_level` (e.g. 0.99).
     pub fn monitor(&self, alarm_level: f64) -> Result<Monitor> {
-        let mut m = Monitor::new(self.forecaster.clone(), self.terminal.clone(), alarm_level)?;
-        m.axis = self.time_axis;
-        Ok(m)
+        Monitor::new(
+            self.forecaster.clone(),
+            self.terminal.clone(),
+            alarm_level,
+            self.time_axis,
+        )
     }
 
     /// A monitor positioned after `history` (any series on the same time axis, starting
@@ -261,9 +264,7 @@ pub(crate) fn monitor_after(
     screen(history, what, 1, ConstantPolicy::Allow)?;
     estimate::check_regressors(blueprint, history.len(), regressors, what)?;
     let state = terminal_state(forecaster, history, regressors)?;
-    let mut m = Monitor::new(forecaster.clone(), state, alarm_level)?;
-    m.axis = axis;
-    Ok(m)
+    Monitor::new(forecaster.clone(), state, alarm_level, axis)
 }
 
 /// What the monitor says about one new reading.
@@ -330,22 +331,26 @@ struct MonitorRecord {
 impl TryFrom<MonitorRecord> for Monitor {
     type Error = String;
     fn try_from(r: MonitorRecord) -> std::result::Result<Self, String> {
-        let mut m = Monitor::new(r.model, r.state, r.alarm_level).map_err(|e| e.to_string())?;
-        m.axis = r.axis;
+        let m = Monitor::new(r.model, r.state, r.alarm_level, r.axis).map_err(|e| e.to_string())?;
         m.validate()?;
         Ok(m)
     }
 }
 
 impl Monitor {
-    pub(crate) fn new(model: ForecastModel, state: FilterState, alarm_level: f64) -> Result<Self> {
+    pub(crate) fn new(
+        model: ForecastModel,
+        state: FilterState,
+        alarm_level: f64,
+        axis: Option<TimeAxis>,
+    ) -> Result<Self> {
         let alarm_z = crate::base::dist::two_sided_quantile(alarm_level, "monitor")?;
         Ok(Monitor {
             model,
             state,
             alarm_level,
             alarm_z,
-            axis: None,
+            axis,
         })
     }
 

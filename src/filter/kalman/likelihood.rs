@@ -73,11 +73,12 @@ pub fn exact_log_likelihood(
     )?;
     let mut cross = [0.0];
     let totals = ws.pass(series, series.len(), 1, &mut cross);
-    let n = totals.used as f64;
-    Ok(-0.5
-        * (n * (2.0 * std::f64::consts::PI * innovation_variance).ln()
-            + totals.log_det
-            + cross[0] / innovation_variance))
+    Ok(gaussian_log_likelihood(
+        totals.used,
+        totals.log_det,
+        cross[0],
+        innovation_variance,
+    ))
 }
 
 /// The exact log-likelihood by the plain covariance (Riccati) recursion at every reading,
@@ -98,11 +99,13 @@ pub fn reference_log_likelihood(
         series,
     )?;
     let (ld, ss, m) = ws.covariance_recursion_totals(series);
-    let n = m as f64;
-    Ok(-0.5
-        * (n * (2.0 * std::f64::consts::PI * innovation_variance).ln()
-            + ld
-            + ss / innovation_variance))
+    Ok(gaussian_log_likelihood(m, ld, ss, innovation_variance))
+}
+
+/// `log L = −½ (m ln(2πσ²) + Σ ln F_t + Σ v_t²/F_t / σ²)` from a pass's totals over `m`
+/// readings (the filter works with σ² = 1).
+fn gaussian_log_likelihood(m: usize, log_det: f64, sum_squares: f64, sigma2: f64) -> f64 {
+    -0.5 * (m as f64 * (2.0 * std::f64::consts::PI * sigma2).ln() + log_det + sum_squares / sigma2)
 }
 
 /// The checks shared by the public likelihood functions, then a workspace set to the model.

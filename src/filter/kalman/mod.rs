@@ -340,11 +340,7 @@ impl KalmanWorkspace {
                         }
                         totals.used += end - start;
                         t = end;
-                        if t < n {
-                            self.rebuild_states(data, n, ncols, t);
-                            self.gap_from_steady(t);
-                            phase = Phase::Full;
-                        }
+                        phase = self.end_direct_run(data, n, ncols, t, phase);
                         continue;
                     }
                     for c in 0..ncols {
@@ -365,12 +361,7 @@ impl KalmanWorkspace {
                     }
                     totals.used += end - start;
                     t = end;
-                    if t < n {
-                        // Missing reading at t: rebuild the predicted state and go full.
-                        self.rebuild_states(data, n, ncols, t);
-                        self.gap_from_steady(t);
-                        phase = Phase::Full;
-                    }
+                    phase = self.end_direct_run(data, n, ncols, t, phase);
                     continue;
                 }
             }
@@ -459,6 +450,26 @@ impl KalmanWorkspace {
 
     /// Predicted state at time `t` from readings and innovations before `t`:
     /// `a_t[i] = Σ_{k=i+1}^{r} φ_k w_{t+i−k} + θ_k v_{t+i−k}` (steady-state identity).
+    /// A direct-phase run ended at `t`: at a missing reading (`t < n`) rebuild the
+    /// predicted state from the last readings and innovations and return to the
+    /// full-covariance phase; at the end of the series stay in `phase`.
+    fn end_direct_run(
+        &mut self,
+        data: &[f64],
+        n: usize,
+        ncols: usize,
+        t: usize,
+        phase: Phase,
+    ) -> Phase {
+        if t < n {
+            self.rebuild_states(data, n, ncols, t);
+            self.gap_from_steady(t);
+            Phase::Full
+        } else {
+            phase
+        }
+    }
+
     fn rebuild_states(&mut self, data: &[f64], n: usize, ncols: usize, t: usize) {
         let r = self.r;
         for c in 0..ncols {
