@@ -142,7 +142,10 @@ pub use fleet::{
     FitSummary, Fleet, FleetBuilder, FleetReport, OptimisationDigest, Progress, SeriesOutcome,
     WhitenessDigest,
 };
-pub use forecast::{Forecast, ForecastStep, KnownModel, Monitor, PredictionInterval, ReadingCheck};
+pub use forecast::{
+    FilledReading, Forecast, ForecastStep, GapFill, KnownModel, Monitor, PredictionInterval,
+    ReadingCheck,
+};
 pub use model::blueprint::{
     Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
 };

@@ -25,4 +25,5 @@ mod search_checks;
 mod serialise_checks;
 mod shape_reference;
 mod simulation_facts;
+mod smoother_reference;
 mod stuck_checks;

@@ -144,7 +144,7 @@ impl FilterState {
     }
 
     /// Start at time `t0` with the δ lags `lags` (newest first).
-    fn start(m: &ForecastModel, lags: &[f64], t0: u64) -> Result<Self> {
+    pub(crate) fn start(m: &ForecastModel, lags: &[f64], t0: u64) -> Result<Self> {
         let r = m.r;
         let dim = m.dim();
         let mut s = vec![0.0; dim];
@@ -361,7 +361,7 @@ fn trim(v: &[f64]) -> &[f64] {
 }
 
 /// Z·Cov (row vector) with Z = [e₀ᵀ, c].
-fn z_times(m: &ForecastModel, cov: &[f64]) -> Vec<f64> {
+pub(crate) fn z_times(m: &ForecastModel, cov: &[f64]) -> Vec<f64> {
     let dim = m.dim();
     let r = m.r;
     let mut out = cov[..dim].to_vec();

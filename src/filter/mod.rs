@@ -6,3 +6,4 @@ pub(crate) mod forecasting;
 pub(crate) mod innovations;
 pub(crate) mod kalman;
 pub(crate) mod lanes;
+pub(crate) mod smoothing;

@@ -137,6 +137,11 @@ impl KnownModel {
         self.time_axis = Some(axis);
         self
     }
+    /// The forecasting model (crate-internal).
+    pub(crate) fn forecaster(&self) -> &ForecastModel {
+        &self.forecaster
+    }
+
     /// The time axis of the model's readings, if set.
     pub fn time_axis(&self) -> Option<TimeAxis> {
         self.time_axis

@@ -11,7 +11,9 @@ use crate::filter::forecasting::{FilterState, ForecastModel, terminal_state};
 use crate::fit::fitted::FittedModel;
 use crate::model::blueprint::Blueprint;
 
+mod fill;
 mod known;
+pub use fill::{FilledReading, GapFill};
 pub use known::KnownModel;
 
 /// One horizon step of a [`Forecast`].
