@@ -156,6 +156,9 @@ pub use model::lag::{
 };
 pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use ndarray;
+pub use select::events::{
+    EventKind, EventSearch, EventSettings, EventSettingsBuilder, SensorEvent, event_critical_value,
+};
 pub use select::search::{
     Candidate, DifferencingChoice, OrderBounds, SearchOutcome, SearchSettings,
     SearchSettingsBuilder, choose_differencing, search_orders, search_orders_with,

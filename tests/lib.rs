@@ -9,6 +9,7 @@ mod concurrency;
 mod correlogram_reference;
 mod covariance_reference;
 mod estimation_checks;
+mod events_checks;
 mod fit_corpus;
 mod fleet_checks;
 mod forecast_checks;

@@ -1,0 +1,835 @@
+//! Sensor events on the innovations: additive outliers (a single wrong reading),
+//! innovational outliers (a shock that propagates through the model's dynamics), level
+//! shifts (a step that stays, e.g. after maintenance) and temporary changes (a step that
+//! decays), found by the iterative procedure of Chen & Liu (1993, Journal of the American
+//! Statistical Association 88, 284–297).
+//!
+//! Each kind leaves a known pattern on the one-step residuals: an event of size ω at
+//! reading T adds ω·x_k to the residual at T + k, where x = π(B)ξ(B) with π(B) =
+//! φ(B)α(B)/θ(B) the model's residual filter (α the differencing) and ξ the event's
+//! shape on the series (additive outlier 1; innovational outlier 1/π(B); level shift
+//! 1/(1 − B); temporary change 1/(1 − δB)). The size is estimated by least squares on
+//! the residuals, ω̂ = Σ x_k e_{T+k} / Σ x_k², and judged by τ = ω̂·√(Σ x_k²)/σ̂ with a
+//! robust residual scale σ̂ = 1.4826·MAD.
+//!
+//! The procedure: (1) from the current model's residuals, find the reading and kind with
+//! the largest |τ|; if it exceeds the screening value (the critical value C less 1),
+//! record it, remove its pattern from the residuals and look again; (2) when a round finds
+//! events, remove their effects from the series, refit the model and search the original
+//! series' residuals under the new model afresh, until a round finds the same events;
+//! (3) estimate all sizes jointly as regressors of the model (regression with ARMA
+//! errors, so sizes come with standard errors), drop the least significant while its
+//! |t| < C, refit. Missing readings and
+//! readings lost to differencing carry no residual and take no event.
+
+use serde::{Deserialize, Serialize};
+
+use crate::base::dist::two_sided_quantile;
+use crate::base::error::{Error, Result};
+use crate::base::screen::{ConstantPolicy, screen};
+use crate::fit::fitted::FittedModel;
+use crate::model::coefficients::Term;
+
+/// The kinds of event (Chen & Liu 1993).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[non_exhaustive]
+pub enum EventKind {
+    /// One wrong reading; the series itself is not disturbed.
+    AdditiveOutlier,
+    /// A shock entering the process: it propagates through the model's dynamics (for an
+    /// integrated model, it stays).
+    InnovationalOutlier,
+    /// A step that stays.
+    LevelShift,
+    /// A step that decays geometrically (factor [`EventSettings::decay`] per reading).
+    TemporaryChange,
+}
+
+impl EventKind {
+    /// All four kinds.
+    pub const ALL: [EventKind; 4] = [
+        EventKind::AdditiveOutlier,
+        EventKind::InnovationalOutlier,
+        EventKind::LevelShift,
+        EventKind::TemporaryChange,
+    ];
+    /// Short code for tables: `AO`, `IO`, `LS`, `TC`.
+    pub fn code(self) -> &'static str {
+        match self {
+            EventKind::AdditiveOutlier => "AO",
+            EventKind::InnovationalOutlier => "IO",
+            EventKind::LevelShift => "LS",
+            EventKind::TemporaryChange => "TC",
+        }
+    }
+}
+
+impl std::fmt::Display for EventKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(match self {
+            EventKind::AdditiveOutlier => "additive outlier",
+            EventKind::InnovationalOutlier => "innovational outlier",
+            EventKind::LevelShift => "level shift",
+            EventKind::TemporaryChange => "temporary change",
+        })
+    }
+}
+
+/// Settings of an event search (build with [`EventSettings::builder`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct EventSettings {
+    kinds: Vec<EventKind>,
+    critical: Option<f64>,
+    decay: f64,
+    max_rounds: usize,
+    max_events: Option<usize>,
+}
+
+impl Default for EventSettings {
+    fn default() -> Self {
+        EventSettings {
+            kinds: EventKind::ALL.to_vec(),
+            critical: None,
+            decay: 0.7,
+            max_rounds: 4,
+            max_events: None,
+        }
+    }
+}
+
+impl EventSettings {
+    /// Start from the defaults: all four kinds, the critical value by series length
+    /// ([`event_critical_value`]), temporary changes decaying by 0.7 per reading (Chen &
+    /// Liu's choice), at most 4 detect-and-refit rounds, at most one event per 20 readings.
+    pub fn builder() -> EventSettingsBuilder {
+        EventSettingsBuilder {
+            settings: EventSettings::default(),
+        }
+    }
+    /// The kinds looked for.
+    pub fn kinds(&self) -> &[EventKind] {
+        &self.kinds
+    }
+    /// The fixed critical value, if set (else by length).
+    pub fn critical(&self) -> Option<f64> {
+        self.critical
+    }
+    /// Decay per reading of a temporary change.
+    pub fn decay(&self) -> f64 {
+        self.decay
+    }
+    /// Rounds of detection and refit.
+    pub fn max_rounds(&self) -> usize {
+        self.max_rounds
+    }
+}
+
+/// Builder of [`EventSettings`].
+#[derive(Debug, Clone)]
+pub struct EventSettingsBuilder {
+    settings: EventSettings,
+}
+
+impl EventSettingsBuilder {
+    /// Look only for these kinds.
+    pub fn kinds(&mut self, kinds: &[EventKind]) -> &mut Self {
+        self.settings.kinds = kinds.to_vec();
+        self
+    }
+    /// A fixed critical value for |τ| instead of the one by series length.
+    pub fn critical_value(&mut self, c: f64) -> &mut Self {
+        self.settings.critical = Some(c);
+        self
+    }
+    /// Decay per reading of a temporary change (0 < δ < 1).
+    pub fn decay(&mut self, decay: f64) -> &mut Self {
+        self.settings.decay = decay;
+        self
+    }
+    /// Rounds of detection and refit (at least 1).
+    pub fn max_rounds(&mut self, rounds: usize) -> &mut Self {
+        self.settings.max_rounds = rounds;
+        self
+    }
+    /// At most this many events in all.
+    pub fn max_events(&mut self, events: usize) -> &mut Self {
+        self.settings.max_events = Some(events);
+        self
+    }
+    /// Check and build.
+    pub fn build(&self) -> Result<EventSettings> {
+        const WHAT: &str = "event settings";
+        let s = &self.settings;
+        if s.kinds.is_empty() {
+            return Err(Error::invalid(WHAT, "no event kind to look for"));
+        }
+        if let Some(c) = s.critical
+            && !(c > 0.0 && c.is_finite())
+        {
+            return Err(Error::invalid(
+                WHAT,
+                format!("critical value {c} must be positive"),
+            ));
+        }
+        if !(s.decay > 0.0 && s.decay < 1.0) {
+            return Err(Error::invalid(
+                WHAT,
+                format!("decay {} must lie strictly between 0 and 1", s.decay),
+            ));
+        }
+        if s.max_rounds == 0 {
+            return Err(Error::invalid(WHAT, "at least one round is needed"));
+        }
+        let mut kinds = s.kinds.clone();
+        kinds.sort_by_key(|k| EventKind::ALL.iter().position(|a| a == k));
+        kinds.dedup();
+        Ok(EventSettings { kinds, ..s.clone() })
+    }
+}
+
+/// The critical value for |τ| by series length: the two-sided normal quantile that
+/// holds the chance of any false event in a clean series near 5% when every reading
+/// is tested for each of `kinds` kinds (Bonferroni: `Φ⁻¹(1 − 0.05 / (2·kinds·n))`):
+/// 3.84 at n = 100 with four kinds, 4.21 at n = 500, 4.52 at n = 2,016, 4.85 at
+/// n = 10⁴. A fixed value can be set instead ([`EventSettingsBuilder::critical_value`];
+/// 3 to 4 is common practice for short series).
+pub fn event_critical_value(readings: usize, kinds: usize) -> f64 {
+    let tests = (readings.max(1) * kinds.max(1)) as f64;
+    two_sided_quantile(1.0 - 0.05 / tests, "event critical value").unwrap_or(3.5)
+}
+
+/// Stage I screens at the critical value less this margin; the joint refit then keeps only
+/// events whose |t| reaches the critical value itself. A model fitted to a contaminated
+/// series can hide a large event (a level shift absorbed into φ ≈ 0.9 leaves |τ| ≈ 3.8
+/// for a 6σ shift at n = 500); screening lower finds it, the joint stage confirms it.
+/// Chosen by the detection study (`examples/event_study.rs`: margins 0, 0.5, 0.8, 1.0
+/// gave 92%, 98%, 98%, 100% of 5σ level shifts found at n = 500 with 0.04–0.05 false
+/// events per clean series).
+const SCREEN_MARGIN: f64 = 1.0;
+
+/// One event found.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct SensorEvent {
+    /// Kind.
+    pub kind: EventKind,
+    /// Index of the reading where it starts.
+    pub index: u64,
+    /// Its time (UTC epoch ms) when the model has a time axis.
+    pub time_ms: Option<i64>,
+    /// Size ω on the series' scale (for a level shift: the step; for an additive outlier:
+    /// how far the reading is off).
+    pub size: f64,
+    /// Standard error of the size from the joint refit.
+    pub std_error: Option<f64>,
+    /// The size over its standard error in the joint refit (the detection statistic τ
+    /// when no standard error is available).
+    pub statistic: f64,
+}
+
+/// The result of [`FittedModel::find_events`].
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[non_exhaustive]
+pub struct EventSearch {
+    /// Events, in time order.
+    pub events: Vec<SensorEvent>,
+    /// The model refitted with the events as regressors (after the caller's own
+    /// regressors, if any). Without events: the model searched, unchanged.
+    pub model: FittedModel,
+    /// The critical value used.
+    pub critical_value: f64,
+    /// Detect-and-refit rounds run.
+    pub rounds: usize,
+    /// The series with the events' effects removed (missing readings stay NaN).
+    #[serde(with = "crate::base::nan_as_null")]
+    pub adjusted: Vec<f64>,
+    /// Decay of temporary changes (needed to extend their regressors).
+    pub decay: f64,
+}
+
+impl EventSearch {
+    /// The events' regressor columns for `horizon` readings after the series (to pass to
+    /// [`FittedModel::forecast_given_regressors`] of [`EventSearch::model`], after the
+    /// caller's own future columns): a level shift stays 1, a temporary change decays,
+    /// additive outliers are 0, innovational outliers continue their ψ-weights.
+    pub fn columns_ahead(&self, series_len: usize, horizon: usize) -> Vec<Vec<f64>> {
+        let psi = psi_weights(&self.model, series_len + horizon);
+        self.events
+            .iter()
+            .map(|e| {
+                (series_len..series_len + horizon)
+                    .map(|t| effect_at(e.kind, e.index as usize, t, self.decay, &psi))
+                    .collect()
+            })
+            .collect()
+    }
+}
+
+/// ψ-weights of the model's full (differenced) ARIMA operator θ(B)/(φ(B)α(B)).
+fn psi_weights(model: &FittedModel, n: usize) -> Vec<f64> {
+    let m = &model.forecaster;
+    let denom = full_ar(m);
+    let mut psi = vec![0.0; n];
+    for k in 0..n {
+        let mut v = if k < m.rvec.len() { m.rvec[k] } else { 0.0 };
+        for (j, &a) in denom.iter().enumerate().skip(1) {
+            if j > k {
+                break;
+            }
+            v -= a * psi[k - j];
+        }
+        psi[k] = v;
+    }
+    psi
+}
+
+/// φ(B)α(B) as coefficients with the constant 1 first.
+fn full_ar(m: &crate::filter::forecasting::ForecastModel) -> Vec<f64> {
+    let mut phi = vec![1.0];
+    phi.extend(m.phi.iter().map(|v| -v));
+    let mut alpha = vec![1.0];
+    alpha.extend(m.c.iter().map(|v| -v));
+    crate::model::lag::multiply(&phi, &alpha)
+}
+
+/// π-weights of the residual filter φ(B)α(B)/θ(B), n of them.
+fn pi_weights(m: &crate::filter::forecasting::ForecastModel, n: usize) -> Vec<f64> {
+    let num = full_ar(m);
+    let mut pi = vec![0.0; n];
+    for k in 0..n {
+        let mut v = if k < num.len() { num[k] } else { 0.0 };
+        for j in 1..m.rvec.len().min(k + 1) {
+            v -= m.rvec[j] * pi[k - j];
+        }
+        pi[k] = v;
+    }
+    pi
+}
+
+/// Effect of a unit event of `kind` at `at` on the series at time `t`.
+fn effect_at(kind: EventKind, at: usize, t: usize, decay: f64, psi: &[f64]) -> f64 {
+    if t < at {
+        return 0.0;
+    }
+    let k = t - at;
+    match kind {
+        EventKind::AdditiveOutlier => f64::from(k == 0),
+        EventKind::InnovationalOutlier => psi.get(k).copied().unwrap_or(0.0),
+        EventKind::LevelShift => 1.0,
+        EventKind::TemporaryChange => decay.powi(k.min(i32::MAX as usize) as i32),
+    }
+}
+
+/// The residual pattern of a unit event of each kind (x = π(B)ξ(B)), with its constant
+/// tail split off: `head[k] = x_k − tail` for k < head.len(), x_k = tail beyond.
+struct Pattern {
+    head: Vec<f64>,
+    tail: f64,
+}
+
+fn pattern(kind: EventKind, pi: &[f64], decay: f64) -> Pattern {
+    let n = pi.len();
+    let mut x = vec![0.0; n];
+    match kind {
+        EventKind::AdditiveOutlier => x.copy_from_slice(pi),
+        EventKind::InnovationalOutlier => x[0] = 1.0,
+        EventKind::LevelShift => {
+            let mut acc = 0.0;
+            for k in 0..n {
+                acc += pi[k];
+                x[k] = acc;
+            }
+        }
+        EventKind::TemporaryChange => {
+            let mut prev = 0.0;
+            for k in 0..n {
+                prev = pi[k] + decay * prev;
+                x[k] = prev;
+            }
+        }
+    }
+    let tail = x[n - 1];
+    let scale = x
+        .iter()
+        .fold(0.0f64, |m, v| m.max(v.abs()))
+        .max(f64::MIN_POSITIVE);
+    let keep = x
+        .iter()
+        .rposition(|v| (v - tail).abs() > 1e-10 * scale)
+        .map_or(1, |k| k + 1);
+    let head = x[..keep].iter().map(|v| v - tail).collect();
+    Pattern { head, tail }
+}
+
+/// ω̂ and τ for an event starting at `at` with pattern `p` on residuals `e` (NaN = none),
+/// given suffix sums of the residuals and counts of finite residuals.
+fn score(
+    p: &Pattern,
+    e: &[f64],
+    suffix_sum: &[f64],
+    suffix_count: &[usize],
+    at: usize,
+    sigma: f64,
+) -> Option<(f64, f64)> {
+    let n = e.len();
+    let m = p.head.len().min(n - at);
+    let mut sxe = 0.0;
+    let mut sxx = 0.0;
+    let c = p.tail;
+    for (k, &h) in p.head[..m].iter().enumerate() {
+        let v = e[at + k];
+        if v.is_finite() {
+            sxe += h * v;
+            sxx += h * h + 2.0 * c * h;
+        }
+    }
+    if c != 0.0 {
+        sxe += c * suffix_sum[at];
+        sxx += c * c * suffix_count[at] as f64;
+    }
+    if !(sxx > 1e-12) {
+        return None;
+    }
+    let omega = sxe / sxx;
+    Some((omega, omega * sxx.sqrt() / sigma))
+}
+
+fn robust_scale(e: &[f64]) -> Option<f64> {
+    let mut a: Vec<f64> = e.iter().copied().filter(|v| v.is_finite()).collect();
+    if a.len() < 8 {
+        return None;
+    }
+    let mid = a.len() / 2;
+    a.select_nth_unstable_by(mid, f64::total_cmp);
+    let med = a[mid];
+    let mut dev: Vec<f64> = a.iter().map(|v| (v - med).abs()).collect();
+    dev.select_nth_unstable_by(mid, f64::total_cmp);
+    let s = 1.4826 * dev[mid];
+    (s > 0.0 && s.is_finite()).then_some(s)
+}
+
+/// A detected event before the joint refit.
+#[derive(Debug, Clone, Copy)]
+struct Found {
+    kind: EventKind,
+    at: usize,
+    size: f64,
+    tau: f64,
+}
+
+/// One round of detection on the residuals `e` (NaN = none) of a model with π-weights
+/// `pi`: events found, largest |τ| first, each removed from `e` before the next look.
+fn detect(
+    mut e: Vec<f64>,
+    pi: &[f64],
+    settings: &EventSettings,
+    critical: f64,
+    budget: usize,
+) -> Vec<Found> {
+    let n = e.len();
+    let Some(sigma) = robust_scale(&e) else {
+        return Vec::new();
+    };
+    let patterns: Vec<(EventKind, Pattern)> = settings
+        .kinds
+        .iter()
+        .map(|&k| (k, pattern(k, pi, settings.decay)))
+        .collect();
+    let mut suffix_sum = vec![0.0; n + 1];
+    let mut suffix_count = vec![0usize; n + 1];
+    let mut taken: Vec<usize> = Vec::new();
+    let mut found = Vec::new();
+    while found.len() < budget {
+        for t in (0..n).rev() {
+            let ok = e[t].is_finite();
+            suffix_sum[t] = suffix_sum[t + 1] + if ok { e[t] } else { 0.0 };
+            suffix_count[t] = suffix_count[t + 1] + usize::from(ok);
+        }
+        let mut best: Option<Found> = None;
+        for at in 0..n {
+            if !e[at].is_finite() || taken.contains(&at) {
+                continue;
+            }
+            for (kind, p) in &patterns {
+                if let Some((size, tau)) = score(p, &e, &suffix_sum, &suffix_count, at, sigma)
+                    && best.is_none_or(|b| tau.abs() > b.tau.abs())
+                {
+                    best = Some(Found {
+                        kind: *kind,
+                        at,
+                        size,
+                        tau,
+                    });
+                }
+            }
+        }
+        let Some(b) = best.filter(|b| b.tau.abs() > critical) else {
+            break;
+        };
+        let p = &patterns
+            .iter()
+            .find(|(k, _)| *k == b.kind)
+            .expect("kind searched")
+            .1;
+        remove_pattern(&mut e, p, b.at, b.size);
+        taken.push(b.at);
+        found.push(b);
+    }
+    found
+}
+
+/// `e[t] −= size·x_{t−at}` for t ≥ at (pattern `p`), where `e` has a value.
+fn remove_pattern(e: &mut [f64], p: &Pattern, at: usize, size: f64) {
+    for t in at..e.len() {
+        let x = p.head.get(t - at).copied().unwrap_or(0.0) + p.tail;
+        if e[t].is_finite() {
+            e[t] -= size * x;
+        }
+    }
+}
+
+/// The model's residuals on its own series, in the series' units.
+fn residuals_of(model: &FittedModel) -> Vec<f64> {
+    let sd = model.innovation_variance().sqrt();
+    model
+        .standardized_residuals()
+        .iter()
+        .map(|v| v * sd)
+        .collect()
+}
+
+/// The series with the effects of `found` removed.
+fn adjust(series: &[f64], found: &[Found], decay: f64, psi: &[f64]) -> Vec<f64> {
+    (0..series.len())
+        .map(|t| {
+            series[t]
+                - found
+                    .iter()
+                    .map(|f| f.size * effect_at(f.kind, f.at, t, decay, psi))
+                    .sum::<f64>()
+        })
+        .collect()
+}
+
+impl FittedModel {
+    /// Find sensor events — additive outliers, innovational outliers, level shifts,
+    /// temporary changes — in `series` (the readings this model was fitted to; NaN =
+    /// missing) by the procedure of Chen & Liu (1993) (see [`EventSettings`]), and refit
+    /// the model with the events as regressors.
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, EventKind, EventSettings, Simulator};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let mut x = Simulator::builder().autoregressive(&[0.5]).level(1.1).innovation_sd(0.02)
+    ///     .build()?.generate(600, 9);
+    /// for v in &mut x[400..] { *v += 0.12; } // valve work: the pressure steps up 0.12 bar
+    /// x[150] += 0.15; // one bad reading
+    /// let model = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x)?;
+    /// let found = model.find_events(&x, &EventSettings::default())?;
+    /// let shift = found.events.iter().find(|e| e.kind == EventKind::LevelShift).unwrap();
+    /// assert_eq!(shift.index, 400);
+    /// assert!((shift.size - 0.12).abs() < 0.03);
+    /// assert!(found.events.iter().any(|e| e.kind == EventKind::AdditiveOutlier && e.index == 150));
+    /// # Ok(()) }
+    /// ```
+    pub fn find_events(&self, series: &[f64], settings: &EventSettings) -> Result<EventSearch> {
+        self.find_events_given_regressors(series, &[], settings)
+    }
+
+    /// [`FittedModel::find_events`] for a model with regressors (`regressors` one finite
+    /// column per declared regressor over the series; the events' columns follow them in
+    /// the refitted model).
+    pub fn find_events_given_regressors(
+        &self,
+        series: &[f64],
+        regressors: &[&[f64]],
+        settings: &EventSettings,
+    ) -> Result<EventSearch> {
+        const WHAT: &str = "event search";
+        screen(series, WHAT, 1, ConstantPolicy::Allow)?;
+        crate::estimate::check_regressors(self.blueprint(), series.len(), regressors, WHAT)?;
+        if self.has_residuals() && self.residuals().len() != series.len() {
+            return Err(Error::invalid(
+                WHAT,
+                format!(
+                    "the series has {} readings, the model was fitted to {}",
+                    series.len(),
+                    self.residuals().len()
+                ),
+            ));
+        }
+        let n = series.len();
+        let critical = settings
+            .critical
+            .unwrap_or_else(|| event_critical_value(n, settings.kinds.len()));
+        let budget = settings.max_events.unwrap_or((n / 20).max(1));
+        let bp = self.blueprint().clone();
+        let base_model = if self.has_residuals() {
+            self.clone()
+        } else {
+            bp.fit_regression(series, regressors)?
+        };
+        // Rounds (Chen & Liu's stage I): the model is fitted to the series adjusted for
+        // the events of the previous round; the residuals of the original series under
+        // that model (its own residuals plus the events' patterns) are searched afresh,
+        // so an event can move or change kind as the model improves. Stop when a round
+        // finds the same events as the one before.
+        let mut found: Vec<Found> = Vec::new();
+        let mut current = base_model.clone();
+        let mut rounds = 0;
+        while rounds < settings.max_rounds {
+            rounds += 1;
+            let pi = pi_weights(&current.forecaster, n);
+            let mut e = residuals_of(&current);
+            for f in &found {
+                let p = pattern(f.kind, &pi, settings.decay);
+                remove_pattern(&mut e, &p, f.at, -f.size);
+            }
+            let new = detect(e, &pi, settings, critical - SCREEN_MARGIN, budget);
+            let same = new.len() == found.len()
+                && new
+                    .iter()
+                    .all(|a| found.iter().any(|b| a.at == b.at && a.kind == b.kind));
+            found = new;
+            if found.is_empty() || same {
+                break;
+            }
+            let psi = psi_weights(&current, n);
+            let adjusted = adjust(series, &found, settings.decay, &psi);
+            current = match bp.fit_regression(&adjusted, regressors) {
+                Ok(m) => m,
+                Err(_) => break,
+            };
+        }
+        if found.is_empty() {
+            return Ok(EventSearch {
+                events: Vec::new(),
+                model: base_model,
+                critical_value: critical,
+                rounds,
+                adjusted: series.to_vec(),
+                decay: settings.decay,
+            });
+        }
+        // Joint estimation: the events as regressors; drop the least significant while
+        // its |t| is below the critical value.
+        loop {
+            found.sort_by_key(|f| f.at);
+            let psi = psi_weights(&current, n);
+            let columns: Vec<Vec<f64>> = found
+                .iter()
+                .map(|f| {
+                    (0..n)
+                        .map(|t| effect_at(f.kind, f.at, t, settings.decay, &psi))
+                        .collect()
+                })
+                .collect();
+            let mut all: Vec<&[f64]> = regressors.to_vec();
+            all.extend(columns.iter().map(Vec::as_slice));
+            let mut joint_bp = bp.clone();
+            joint_bp.exogenous = bp.exogenous + found.len();
+            let joint = match joint_bp.fit_regression(series, &all) {
+                Ok(j) => j,
+                Err(e) => {
+                    // Events that cannot be estimated together (e.g. two shifts a reading
+                    // apart): drop the one detected with the smallest |τ| and try again.
+                    let weakest = (0..found.len())
+                        .min_by(|&a, &b| found[a].tau.abs().total_cmp(&found[b].tau.abs()))
+                        .expect("events remain");
+                    found.remove(weakest);
+                    if found.is_empty() {
+                        if regressors.is_empty() {
+                            return Err(e);
+                        }
+                        return Ok(EventSearch {
+                            events: Vec::new(),
+                            model: base_model,
+                            critical_value: critical,
+                            rounds,
+                            adjusted: series.to_vec(),
+                            decay: settings.decay,
+                        });
+                    }
+                    continue;
+                }
+            };
+            let stats: Vec<(f64, Option<f64>)> = (0..found.len())
+                .map(|j| {
+                    let c = joint.coefficient(Term::Exogenous(bp.exogenous + j + 1));
+                    (
+                        c.map_or(found[j].size, |c| c.value),
+                        c.and_then(|c| c.std_error),
+                    )
+                })
+                .collect();
+            let weakest = stats
+                .iter()
+                .enumerate()
+                .filter_map(|(j, (w, se))| se.map(|se| (j, (w / se).abs())))
+                .min_by(|a, b| a.1.total_cmp(&b.1));
+            if let Some((j, t)) = weakest
+                && t < critical
+            {
+                found.remove(j);
+                if found.is_empty() {
+                    return Ok(EventSearch {
+                        events: Vec::new(),
+                        model: base_model,
+                        critical_value: critical,
+                        rounds,
+                        adjusted: series.to_vec(),
+                        decay: settings.decay,
+                    });
+                }
+                current = joint;
+                continue;
+            }
+            let axis = self.time_axis();
+            let events: Vec<SensorEvent> = found
+                .iter()
+                .zip(&stats)
+                .map(|(f, &(size, se))| SensorEvent {
+                    kind: f.kind,
+                    index: f.at as u64,
+                    time_ms: axis.and_then(|a| a.time_of(f.at as u64)),
+                    size,
+                    std_error: se,
+                    statistic: se.map_or(f.tau, |se| size / se),
+                })
+                .collect();
+            let sized: Vec<Found> = found
+                .iter()
+                .zip(&events)
+                .map(|(f, e)| Found { size: e.size, ..*f })
+                .collect();
+            let adjusted = adjust(series, &sized, settings.decay, &psi);
+            let model = match axis {
+                Some(a) => joint.with_time_axis(a),
+                None => joint,
+            };
+            return Ok(EventSearch {
+                events,
+                model,
+                critical_value: critical,
+                rounds,
+                adjusted,
+                decay: settings.decay,
+            });
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The critical values quoted in the documentation (checked with scipy:
+    /// `norm.isf(0.05 / (2 * 4 * n))` = 3.836, 4.215, 4.519, 4.848).
+    #[test]
+    fn critical_values_by_length() {
+        for (n, want) in [(100, 3.84), (500, 4.21), (2016, 4.52), (10_000, 4.85)] {
+            let c = event_critical_value(n, 4);
+            assert!((c - want).abs() < 0.006, "n = {n}: {c}");
+        }
+    }
+
+    fn ar1(phi: f64) -> crate::filter::forecasting::ForecastModel {
+        crate::filter::forecasting::ForecastModel {
+            r: 1,
+            phi: vec![phi],
+            rvec: vec![1.0],
+            c: Vec::new(),
+            sigma2: 1.0,
+            regression: Vec::new(),
+        }
+    }
+
+    /// Residual patterns of unit events for an AR(1) model, against their closed forms
+    /// from the definitions (π(B) = 1 − φB): AO 1, −φ, 0…; IO 1, 0…; LS 1, 1−φ, 1−φ…;
+    /// TC 1, δ−φ, δ(δ−φ), δ²(δ−φ)….
+    #[test]
+    fn patterns_match_their_closed_forms() {
+        let (phi, delta) = (0.6, 0.7);
+        let pi = pi_weights(&ar1(phi), 50);
+        assert_eq!(&pi[..3], &[1.0, -phi, 0.0]);
+        let full = |kind| {
+            let p = pattern(kind, &pi, delta);
+            (0..50)
+                .map(|k| p.head.get(k).copied().unwrap_or(0.0) + p.tail)
+                .collect::<Vec<f64>>()
+        };
+        let ao = full(EventKind::AdditiveOutlier);
+        assert!(
+            (ao[0] - 1.0).abs() < 1e-15
+                && (ao[1] + phi).abs() < 1e-15
+                && ao[2..].iter().all(|v| v.abs() < 1e-15)
+        );
+        let io = full(EventKind::InnovationalOutlier);
+        assert!(io[0] == 1.0 && io[1..].iter().all(|v| *v == 0.0));
+        let ls = full(EventKind::LevelShift);
+        assert!(
+            ls[1..].iter().all(|v| (v - (1.0 - phi)).abs() < 1e-12),
+            "{:?}",
+            &ls[..4]
+        );
+        let tc = full(EventKind::TemporaryChange);
+        for k in 1..20 {
+            let want = delta.powi(k as i32 - 1) * (delta - phi);
+            assert!(
+                (tc[k] - want).abs() < 1e-12,
+                "TC at {k}: {} vs {want}",
+                tc[k]
+            );
+        }
+    }
+
+    /// ω̂ and τ by the least-squares formulas on a hand-made residual vector: an LS of 2 at
+    /// reading 10 of an AR(1) with φ = 0.5 leaves 2 at 10 and 1 from 11 on.
+    #[test]
+    fn score_recovers_an_exact_pattern() {
+        let pi = pi_weights(&ar1(0.5), 40);
+        let p = pattern(EventKind::LevelShift, &pi, 0.7);
+        let mut e = vec![0.0; 40];
+        e[10] = 2.0;
+        for v in &mut e[11..] {
+            *v = 1.0;
+        }
+        e[20] = f64::NAN; // a missing reading contributes nothing
+        let mut suffix_sum = vec![0.0; 41];
+        let mut suffix_count = vec![0usize; 41];
+        for t in (0..40).rev() {
+            let ok = e[t].is_finite();
+            suffix_sum[t] = suffix_sum[t + 1] + if ok { e[t] } else { 0.0 };
+            suffix_count[t] = suffix_count[t + 1] + usize::from(ok);
+        }
+        let (omega, tau) = score(&p, &e, &suffix_sum, &suffix_count, 10, 1.0).unwrap();
+        assert!((omega - 2.0).abs() < 1e-12);
+        // Σx² = 1 + 0.25·28 (29 later readings, one missing) = 8.
+        assert!((tau - 2.0 * 8f64.sqrt()).abs() < 1e-12, "{tau}");
+    }
+
+    #[test]
+    fn settings_are_checked() {
+        assert!(EventSettings::builder().kinds(&[]).build().is_err());
+        assert!(EventSettings::builder().decay(1.0).build().is_err());
+        assert!(
+            EventSettings::builder()
+                .critical_value(-1.0)
+                .build()
+                .is_err()
+        );
+        assert!(EventSettings::builder().max_rounds(0).build().is_err());
+        let s = EventSettings::builder()
+            .kinds(&[
+                EventKind::LevelShift,
+                EventKind::AdditiveOutlier,
+                EventKind::LevelShift,
+            ])
+            .build()
+            .unwrap();
+        assert_eq!(
+            s.kinds(),
+            &[EventKind::AdditiveOutlier, EventKind::LevelShift]
+        );
+    }
+}
