@@ -285,5 +285,59 @@ fn monitoring(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, likelihood, fits, monitoring);
+/// Gap filling: the fixed-interval smoother over a series with 2% of readings missing in
+/// drop-out runs (ns per reading: divide by the series length).
+fn smoothing(c: &mut Criterion) {
+    let mut group = c.benchmark_group("smoother");
+    group.sample_size(10);
+    for (name, bp, sim, n) in [
+        (
+            "arma21_n10000",
+            Blueprint::builder()
+                .nonseasonal(2, 0, 1)
+                .build()
+                .expect("bp"),
+            Simulator::builder()
+                .autoregressive(&[0.5, 0.2])
+                .moving_average(&[0.4])
+                .build()
+                .expect("simulator"),
+            10_000usize,
+        ),
+        (
+            "sarima101_011_96_n2016",
+            Blueprint::builder()
+                .nonseasonal(1, 0, 1)
+                .seasonal(0, 1, 1, 96)
+                .build()
+                .expect("bp"),
+            Simulator::builder()
+                .autoregressive(&[0.6])
+                .moving_average(&[0.3])
+                .seasonal(&[], &[-0.6], 96)
+                .differencing(0, 1)
+                .build()
+                .expect("simulator"),
+            2016,
+        ),
+    ] {
+        let mut x = sim.generate(n, 21);
+        let fit = bp.fit(&x).expect("fit");
+        // 2% missing: runs of 8 readings spread through the series.
+        let runs = n / 400;
+        for k in 0..runs {
+            let at = 200 + k * (n - 400) / runs.max(1);
+            for v in &mut x[at..at + 8] {
+                *v = f64::NAN;
+            }
+        }
+        group.throughput(Throughput::Elements(n as u64));
+        group.bench_function(name, |b| {
+            b.iter(|| fit.fill_gaps(black_box(&x), &[0.95]).expect("fill"))
+        });
+    }
+    group.finish();
+}
+
+criterion_group!(benches, likelihood, fits, monitoring, smoothing);
 criterion_main!(benches);

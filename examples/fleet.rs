@@ -7,7 +7,10 @@
 //! Run: `cargo run --release --example fleet -- [series] [readings]`
 //! (defaults: 20000 series × 1000 readings; the target size is 100000 × 1000),
 //! or `cargo run --release --example fleet -- --search [series]` for the order-search
-//! benchmark (default 500 series × 1000 readings, projected to 10,000).
+//! benchmark (default 500 series × 1000 readings, projected to 10,000), or
+//! `cargo run --release --example fleet -- --events [series]` for the event-search
+//! benchmark (default 10,000 series × 1000 readings, 5% of them with one injected event:
+//! the plain fleet fit and the fit with `find_events`, alternated in the same run).
 // The counting global allocator needs `unsafe` (the workspace denies it elsewhere).
 #![allow(unsafe_code)]
 
@@ -119,8 +122,64 @@ fn search_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
     Ok(())
 }
 
+/// `--events N`: ARMA(1,1) + mean fits of N series of 1,000 readings on 2 threads, with
+/// and without the event search; every 20th series carries a 5σ level shift or spike.
+fn events_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
+    let sim = Simulator::builder()
+        .autoregressive(&[0.6])
+        .moving_average(&[0.3])
+        .level(88.0)
+        .innovation_sd(0.2)
+        .build()?;
+    let data: Vec<Vec<f64>> = (0..count)
+        .map(|i| {
+            let mut x = sim.generate(1000, 9_000 + i as u64);
+            match i % 40 {
+                0 => x[600..].iter_mut().for_each(|v| *v += 1.0),
+                20 => x[500] += 1.0,
+                _ => {}
+            }
+            x
+        })
+        .collect();
+    let refs: Vec<&[f64]> = data.iter().map(|s| s.as_slice()).collect();
+    let bp = Blueprint::builder().nonseasonal(1, 0, 1).build()?;
+    let plain = Fleet::builder().threads(2).build()?;
+    let with_events = Fleet::builder()
+        .threads(2)
+        .find_events(&lagwise::EventSettings::default())
+        .build()?;
+    let mut best = (f64::INFINITY, f64::INFINITY);
+    let mut events = 0;
+    for _ in 0..2 {
+        let a = plain.fit_slices(&bp, &refs);
+        best.0 = best.0.min(a.elapsed().as_secs_f64());
+        let b = with_events.fit_slices(&bp, &refs);
+        best.1 = best.1.min(b.elapsed().as_secs_f64());
+        events = b
+            .outcomes()
+            .iter()
+            .filter_map(|o| o.result.as_ref().ok())
+            .map(|s| s.events.len())
+            .sum();
+    }
+    let per = |secs: f64| secs * 10_000.0 / count as f64;
+    println!(
+        "events: {count} series × 1000 readings on 2 threads (best of 2, alternated): fit {:.1} s, fit + event search {:.1} s per 10,000 series ({:.2}× the fit); {events} events found ({} injected)",
+        per(best.0),
+        per(best.1),
+        best.1 / best.0,
+        count.div_ceil(20)
+    );
+    Ok(())
+}
+
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let raw: Vec<String> = std::env::args().skip(1).collect();
+    if raw.first().map(|s| s.as_str()) == Some("--events") {
+        let count = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(10_000);
+        return events_bench(count);
+    }
     if raw.first().map(|s| s.as_str()) == Some("--search") {
         let count = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(500);
         return search_bench(count);

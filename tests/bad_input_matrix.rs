@@ -561,6 +561,78 @@ fn matrix() {
             variant(lagwise::millis_from_seconds(&[f64::INFINITY])),
             "InvalidArgument",
         ),
+        // Sensor events and gap filling.
+        (
+            "nan",
+            "event search",
+            variant(
+                ar1()
+                    .fit(&with_nan)
+                    .unwrap()
+                    .find_events(&with_nan, &Default::default()),
+            ),
+            "ok",
+        ),
+        (
+            "inf",
+            "event search",
+            variant(fit.find_events(&with_inf, &Default::default())),
+            "NonFiniteReading",
+        ),
+        (
+            "other length",
+            "event search",
+            variant(fit.find_events(&good[..150], &Default::default())),
+            "InvalidArgument",
+        ),
+        (
+            "empty",
+            "event search",
+            variant(fit.find_events(&[], &Default::default())),
+            "EmptySeries",
+        ),
+        (
+            "no kinds",
+            "event settings",
+            variant(lagwise::EventSettings::builder().kinds(&[]).build()),
+            "InvalidArgument",
+        ),
+        (
+            "decay 1",
+            "event settings",
+            variant(lagwise::EventSettings::builder().decay(1.0).build()),
+            "InvalidArgument",
+        ),
+        (
+            "nan",
+            "gap filling",
+            variant(fit.fill_gaps(&with_nan, &[0.95])),
+            "ok",
+        ),
+        (
+            "inf",
+            "gap filling",
+            variant(fit.fill_gaps(&with_inf, &[0.95])),
+            "NonFiniteReading",
+        ),
+        (
+            "all missing",
+            "gap filling",
+            variant(fit.fill_gaps(&all_nan, &[0.95])),
+            "AllMissing",
+        ),
+        (
+            "level 1",
+            "gap filling",
+            variant(fit.fill_gaps(&with_nan, &[1.0])),
+            "InvalidArgument",
+        ),
+        (
+            "stuck",
+            "gap filling",
+            variant(fit.fill_gaps(&stuck, &[0.95])),
+            "ok",
+        ),
     ];
     let mut wrong = Vec::new();
     for (class, entry, got, want) in &rows {

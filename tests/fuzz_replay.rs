@@ -46,3 +46,8 @@ fn restore_corpus() {
 fn grid_corpus() {
     assert!(replay("grid", harness::grid) >= 6);
 }
+
+#[test]
+fn events_corpus() {
+    assert!(replay("events", harness::events) >= 6);
+}

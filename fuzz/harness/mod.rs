@@ -250,3 +250,71 @@ pub(crate) fn grid(data: &[u8]) {
         assert!(g.values.iter().all(|v| !v.is_infinite()));
     }
 }
+
+/// Sensor events and gap filling: bytes → specification, settings and series; fit, then
+/// the event search and the smoother, whatever the data. Checks the invariants of what
+/// they return.
+pub(crate) fn events(data: &[u8]) {
+    let mut b = Bytes::new(data);
+    let raw = b.byte() & 1 == 1;
+    let Some(bp) = blueprint(&mut b) else { return };
+    let kinds_bits = b.byte();
+    let critical = b.byte();
+    let decay = b.byte();
+    let x = b.readings(raw);
+    if x.len() > 300 {
+        return;
+    }
+    let kinds: Vec<lagwise::EventKind> = lagwise::EventKind::ALL
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| kinds_bits & (1 << i) != 0)
+        .map(|(_, k)| *k)
+        .collect();
+    let mut sb = lagwise::EventSettings::builder();
+    sb.kinds(&kinds)
+        .max_rounds(1 + (kinds_bits >> 4) as usize % 3);
+    if critical & 1 == 1 {
+        sb.critical_value(f64::from(critical) / 32.0);
+    }
+    if decay & 1 == 1 {
+        sb.decay(f64::from(decay) / 256.0);
+    }
+    let Ok(fit) = bp.fit(&x) else { return };
+    if let Ok(settings) = sb.build()
+        && let Ok(found) = fit.find_events(&x, &settings)
+    {
+        assert_eq!(found.adjusted.len(), x.len());
+        for e in &found.events {
+            assert!((e.index as usize) < x.len() && !x[e.index as usize].is_nan());
+            assert!(e.size.is_finite(), "{e:?}");
+            assert!(kinds.contains(&e.kind));
+        }
+        for (a, v) in found.adjusted.iter().zip(&x) {
+            assert_eq!(a.is_nan(), v.is_nan());
+        }
+        let _ = found.columns_ahead(x.len(), 4);
+    }
+    if let Ok(filled) = fit.fill_gaps(&x, &[0.9]) {
+        assert_eq!(filled.series.len(), x.len());
+        for r in &filled.readings {
+            assert!(
+                x[r.index as usize].is_nan(),
+                "only missing readings are filled"
+            );
+            assert!(
+                r.sd >= 0.0 && r.sd.is_finite() && r.mean.is_finite(),
+                "{r:?}"
+            );
+        }
+        for (t, v) in x.iter().enumerate() {
+            if !v.is_nan() {
+                assert_eq!(
+                    filled.series[t].to_bits(),
+                    v.to_bits(),
+                    "present reading {t} changed"
+                );
+            }
+        }
+    }
+}

@@ -470,6 +470,11 @@ impl UnfinishedFit {
         &self.model
     }
 
+    /// The model so far, taken (see [`UnfinishedFit::model`]).
+    pub(crate) fn into_model(self) -> FittedModel {
+        self.model
+    }
+
     /// The natural coefficients of the fit's four factors.
     pub(crate) fn coefficients(&self) -> &FactorCoefficients {
         &self.coefs

@@ -15,6 +15,7 @@ use crate::fit::fitted::{
 use crate::forecast::Monitor;
 use crate::model::blueprint::{Blueprint, ModelShape};
 use crate::model::coefficients::Term;
+use crate::select::events::{EventSettings, SensorEvent};
 use crate::select::search::SearchSettings;
 use crate::stats::criteria::InformationCriteria;
 use crate::stats::portmanteau::LagPValue;
@@ -60,6 +61,7 @@ pub struct Fleet {
     monitors: bool,
     progress: Option<Arc<ProgressFn>>,
     cancel: Option<Arc<AtomicBool>>,
+    events: Option<EventSettings>,
 }
 
 impl std::fmt::Debug for Fleet {
@@ -72,6 +74,7 @@ impl std::fmt::Debug for Fleet {
             .field("monitors", &self.monitors)
             .field("progress", &self.progress.is_some())
             .field("cancel", &self.cancel.is_some())
+            .field("events", &self.events)
             .finish()
     }
 }
@@ -86,6 +89,7 @@ pub struct FleetBuilder {
     monitors: Option<bool>,
     progress: Option<Arc<ProgressFn>>,
     cancel: Option<Arc<AtomicBool>>,
+    events: Option<EventSettings>,
 }
 
 impl std::fmt::Debug for FleetBuilder {
@@ -137,6 +141,16 @@ impl FleetBuilder {
         self
     }
     /// Validate and build.
+    /// Also look for sensor events in every series (see
+    /// [`FittedModel::find_events`](crate::FittedModel::find_events)); each summary lists
+    /// them in [`FitSummary::events`]. The summary still describes the model fitted
+    /// without them (its monitor needs no regressors); the refit that holds the events is
+    /// one `find_events` away for a series that needs it.
+    pub fn find_events(&mut self, settings: &EventSettings) -> &mut Self {
+        self.events = Some(settings.clone());
+        self
+    }
+    /// Build the fleet (checks the settings).
     pub fn build(&self) -> Result<Fleet> {
         const WHAT: &str = "fleet";
         if self.threads == Some(0) {
@@ -167,6 +181,7 @@ impl FleetBuilder {
             monitors: self.monitors.unwrap_or(true),
             progress: self.progress.clone(),
             cancel: self.cancel.clone(),
+            events: self.events.clone(),
         })
     }
 }
@@ -198,6 +213,10 @@ pub struct FitSummary {
     pub shape: ModelShape,
     /// For order searches: the search's explanation of its choice.
     pub search_note: Option<String>,
+    /// Sensor events found (only when the fleet was built with
+    /// [`FleetBuilder::find_events`]).
+    #[serde(default)]
+    pub events: Vec<SensorEvent>,
     /// A monitor positioned after the series (boxed: most of a summary's size).
     monitor: Option<Box<Monitor>>,
 }
@@ -307,6 +326,7 @@ impl FitSummary {
             whiteness: WhitenessDigest::from_check(&check),
             shape: m.blueprint().shape(),
             search_note: None,
+            events: Vec::new(),
             monitor: match alarm {
                 Some(level) => Some(Box::new(m.monitor(level)?)),
                 None => None,
@@ -448,6 +468,7 @@ impl Fleet {
             let mut s =
                 FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm())?;
             s.search_note = Some(out.explanation);
+            self.add_events(&mut s, &out.model, x)?;
             Ok(s)
         })
     }
@@ -463,10 +484,19 @@ impl Fleet {
         items: &[(I, &[f64])],
     ) -> FleetReport<I> {
         self.run_with(items, |x, ws| {
-            blueprint
-                .fit_with(x, ws)
-                .and_then(|m| FitSummary::from_model(&m, self.check_lags, self.alpha, self.alarm()))
+            let m = blueprint.fit_with(x, ws)?;
+            let mut s = FitSummary::from_model(&m, self.check_lags, self.alpha, self.alarm())?;
+            self.add_events(&mut s, &m, x)?;
+            Ok(s)
         })
+    }
+
+    /// The event search of one series, when asked for.
+    fn add_events(&self, summary: &mut FitSummary, model: &FittedModel, x: &[f64]) -> Result<()> {
+        if let Some(settings) = &self.events {
+            summary.events = model.find_events(x, settings)?.events;
+        }
+        Ok(())
     }
 
     fn run_with<I: Clone + Send + Sync>(
