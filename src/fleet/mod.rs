@@ -231,6 +231,10 @@ impl FitSummary {
     pub fn take_monitor(&mut self) -> Option<Monitor> {
         self.monitor.take().map(|m| *m)
     }
+    /// Put a monitor (back) into the summary, e.g. after feeding it new readings.
+    pub fn put_monitor(&mut self, monitor: Monitor) {
+        self.monitor = Some(Box::new(monitor));
+    }
 }
 
 /// The optimisation of one fleet series in brief.
