@@ -25,6 +25,7 @@ pub struct TagSheet {
     whiteness_p: Option<f64>,
     alarms: Vec<String>,
     events: Vec<String>,
+    notes: Vec<String>,
     failure: Option<String>,
     cards: Vec<Card>,
 }
@@ -41,6 +42,7 @@ impl TagSheet {
             whiteness_p: None,
             alarms: Vec::new(),
             events: Vec::new(),
+            notes: Vec::new(),
             failure: None,
             cards: Vec::new(),
         }
@@ -74,6 +76,12 @@ impl TagSheet {
     /// One sensor event in the history (a stuck run, a level shift, …), in words.
     pub fn event(mut self, text: impl Into<String>) -> Self {
         self.events.push(text.into());
+        self
+    }
+    /// A note that needs no look (e.g. how many gaps were filled): shown with the events,
+    /// greyed, without making the tag urgent.
+    pub fn note(mut self, text: impl Into<String>) -> Self {
+        self.notes.push(text.into());
         self
     }
     /// The fit failed: the error text.
@@ -475,6 +483,7 @@ a {{ color: var(--trace); }}
 figure.card {{ margin: 0; border: 1px solid var(--guide); padding: .4rem; max-width: 940px; }}
 figure.card svg {{ display: block; width: 100%; height: auto; }}
 figcaption {{ color: var(--quiet); font-size: .8rem; }}
+.quiet {{ color: var(--quiet); }}
 footer {{ margin-top: 3rem; border-top: 1px solid var(--guide); color: var(--ink); font-size: .9rem; }}
 @media print {{ thead th {{ position: static; }} .sheet {{ break-before: page; }} }}
 ",

@@ -253,6 +253,8 @@ struct Assessed {
     night: Vec<ReadingCheck>,
     forecast: Option<Forecast>,
     events: Vec<String>,
+    /// What needs no look (gaps filled).
+    notes: Vec<String>,
 }
 
 impl Assessed {
@@ -331,13 +333,17 @@ fn assess(tag: Tag, ws: &mut FitWorkspace) -> Result<Assessed, (Tag, lagwise::Er
             )
             .map(|f| f.readings.len())
             .unwrap_or(0);
-        if filled > 0 {
-            events.push(format!("{filled} missing readings filled by the smoother"));
-        }
-        Ok((model, search, check, verdict_p, checks, forecast, events))
+        let notes = if filled > 0 {
+            vec![format!("{filled} missing readings filled by the smoother")]
+        } else {
+            Vec::new()
+        };
+        Ok((
+            model, search, check, verdict_p, checks, forecast, events, notes,
+        ))
     };
     match run(&tag, ws) {
-        Ok((model, search, check, verdict_p, night, forecast, events)) => Ok(Assessed {
+        Ok((model, search, check, verdict_p, night, forecast, events, notes)) => Ok(Assessed {
             tag,
             model,
             search,
@@ -346,6 +352,7 @@ fn assess(tag: Tag, ws: &mut FitWorkspace) -> Result<Assessed, (Tag, lagwise::Er
             night,
             forecast,
             events,
+            notes,
         }),
         Err(e) => Err((tag, e)),
     }
@@ -388,7 +395,12 @@ fn print_substation(id: u32, tags: &[Assessed]) {
     }
     let events: Vec<String> = tags
         .iter()
-        .flat_map(|a| a.events.iter().map(move |e| format!("{}: {e}", a.tag.name)))
+        .flat_map(|a| {
+            a.events
+                .iter()
+                .chain(&a.notes)
+                .map(move |e| format!("{}: {e}", a.tag.name))
+        })
         .collect();
     if !events.is_empty() {
         println!("Sensor events in the history:");
@@ -444,6 +456,9 @@ fn sheet(outcome: &Result<Assessed, (Tag, lagwise::Error)>) -> TagSheet {
             }
             for e in &a.events {
                 s = s.event(e.clone());
+            }
+            for n in &a.notes {
+                s = s.note(n.clone());
             }
             s
         }
@@ -691,6 +706,9 @@ fn whole_network(
     let (bytes, with_cards, cards) = write_page(&out, &page)?;
     let t_page = t3.elapsed();
     let failed = outcomes.iter().filter(|o| o.is_err()).count();
+    for (tag, e) in outcomes.iter().filter_map(|o| o.as_ref().err()).take(5) {
+        println!("failed: {}: {e}", tag.name);
+    }
     let needing = page_needing(&outcomes);
     println!(
         "simulate {:.1} s · fit, check, watch and forecast {} tags {:.1} s ({failed} failed) · \
