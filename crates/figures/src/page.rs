@@ -377,14 +377,16 @@ impl FleetPage {
                 format!("<b>{}</b> {}", s.alarms.len(), escape_text(&s.alarms[0]))
                     + if s.alarms.len() > 1 { " …" } else { "" }
             };
-            let events = if s.events.is_empty() {
+            let mut lines: Vec<String> = s.events.iter().map(|e| escape_text(e)).collect();
+            lines.extend(
+                s.notes
+                    .iter()
+                    .map(|n| format!("<span class=\"quiet\">{}</span>", escape_text(n))),
+            );
+            let events = if lines.is_empty() {
                 "—".to_string()
             } else {
-                s.events
-                    .iter()
-                    .map(|e| escape_text(e))
-                    .collect::<Vec<_>>()
-                    .join("<br>")
+                lines.join("<br>")
             };
             let _ = writeln!(
                 h,

@@ -589,3 +589,20 @@ fn readme_example_is_the_built_one() {
     let code_start = example.find("use ").unwrap();
     assert_eq!(&readme[start..end], &example[code_start..]);
 }
+
+/// A note (e.g. gaps filled) is shown but does not make a tag urgent.
+#[test]
+fn notes_do_not_need_a_look() {
+    let quiet = TagSheet::new("KB-SS0001-FL")
+        .residuals(true, Some(0.5))
+        .note("22 missing readings filled by the smoother");
+    assert!(!quiet.needs_a_look());
+    let mut page = FleetPage::new("p");
+    page.add(quiet);
+    let out = page.render().unwrap();
+    assert_eq!(out.needing_a_look(), 0);
+    assert!(
+        out.html()
+            .contains("22 missing readings filled by the smoother")
+    );
+}
