@@ -171,3 +171,32 @@ fn bad_input_is_refused() {
     );
     assert!(m.find_events(&[], &s).is_err());
 }
+
+/// White noise around a mean with a level shift (the demo's pressure tag of substation
+/// 1009): a shift "at the first reading" would be the mean itself; it is not a candidate,
+/// and the real shift is found. (This series made the search fail before.)
+#[test]
+fn a_shift_beside_the_mean_of_white_noise() {
+    let e = Simulator::builder()
+        .innovation_sd(0.02)
+        .build()
+        .unwrap()
+        .generate(704, 10093);
+    let mut dp: Vec<f64> = e.iter().map(|v| 1.10 + v).collect();
+    for v in &mut dp[384..] {
+        *v += 0.08;
+    }
+    let h = &dp[..672];
+    let m = Blueprint::builder()
+        .nonseasonal(0, 0, 0)
+        .build()
+        .unwrap()
+        .fit(h)
+        .unwrap();
+    let found = m.find_events(h, &EventSettings::default()).unwrap();
+    assert_eq!(found.events.len(), 1, "{:?}", found.events);
+    assert_eq!(
+        (found.events[0].kind, found.events[0].index),
+        (EventKind::LevelShift, 384)
+    );
+}

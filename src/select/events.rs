@@ -487,6 +487,10 @@ fn detect(
         .collect();
     let mut scan = Scan::new(&e);
     let mut taken = vec![false; n];
+    // A level shift at the first reading with a residual is the series' own level (the
+    // mean, or the start of an integrated model): not an event, and not estimable
+    // beside it.
+    let first = e.iter().position(|v| v.is_finite()).unwrap_or(n);
     let mut found = Vec::new();
     while found.len() < budget {
         // The largest |τ| is the largest (Σxe)²/Σx²: no square root or size per reading.
@@ -495,7 +499,10 @@ fn detect(
             if scan.mask[at] == 0.0 || taken[at] {
                 continue;
             }
-            for (j, (_, p)) in patterns.iter().enumerate() {
+            for (j, (kind, p)) in patterns.iter().enumerate() {
+                if at == first && *kind == EventKind::LevelShift {
+                    continue;
+                }
                 let (sxe, sxx) = sums(p, &scan, at);
                 if sxx > 1e-12 {
                     let r = sxe * sxe / sxx;
@@ -859,17 +866,16 @@ impl FittedModel {
             joint_bp.exogenous = bp.exogenous + found.len();
             let joint = match joint_bp.fit_regression(series, &all) {
                 Ok(j) => j,
-                Err(e) => {
+                Err(_) => {
                     // Events that cannot be estimated together (e.g. two shifts a reading
-                    // apart): drop the one detected with the smallest |τ| and try again.
+                    // apart, or a shift the model's constant already carries): drop the
+                    // one detected with the smallest |τ| and try again. The model itself
+                    // was fitted, so a search whose events all fail reports none.
                     let weakest = (0..found.len())
                         .min_by(|&a, &b| found[a].tau.abs().total_cmp(&found[b].tau.abs()))
                         .expect("events remain");
                     found.remove(weakest);
                     if found.is_empty() {
-                        if regressors.is_empty() && bp.exogenous == 0 {
-                            return Err(e);
-                        }
                         return Ok(none(rounds));
                     }
                     continue;
