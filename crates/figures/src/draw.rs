@@ -21,6 +21,30 @@ pub(crate) fn bold(size: u32) -> TextStyle<'static> {
     (FONT, size).into_font().style(FontStyle::Bold).color(&INK)
 }
 
+/// A card's headline (tag, reading, unit) and the line under it.
+pub(crate) fn headline(
+    head: &Area<'_>,
+    caption: &crate::frame::Caption,
+    subtitle: String,
+    card: &'static str,
+) -> Result<()> {
+    head.draw(&Text::new(caption.headline(), (14, 8), bold(17)))
+        .map_err(drawing(card))?;
+    head.draw(&Text::new(subtitle, (14, 30), text(12)))
+        .map_err(drawing(card))?;
+    Ok(())
+}
+
+/// `(lag, value)` points of lag-keyed values from lag 1 on (lag 0 of an autocorrelation
+/// function is 1 by definition and not drawn).
+pub(crate) fn lag_points(values: &lagwise::LagValues) -> Vec<(f64, f64)> {
+    values
+        .iter()
+        .filter(|(h, _)| *h >= 1)
+        .map(|(h, r)| (h as f64, r))
+        .collect()
+}
+
 /// What a panel shows and how its axes read.
 pub(crate) struct PanelSpec<'f> {
     pub title: String,

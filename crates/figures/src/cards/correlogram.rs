@@ -67,17 +67,8 @@ pub fn correlogram_card(
             _ => format!("×{k}"),
         }
     };
-    let acf: Vec<(f64, f64)> = correlogram
-        .autocorrelations()
-        .iter()
-        .filter(|(h, _)| *h >= 1)
-        .map(|(h, r)| (h as f64, r))
-        .collect();
-    let pacf: Vec<(f64, f64)> = correlogram
-        .partial_autocorrelations()
-        .iter()
-        .map(|(h, r)| (h as f64, r))
-        .collect();
+    let acf: Vec<(f64, f64)> = draw::lag_points(correlogram.autocorrelations());
+    let pacf: Vec<(f64, f64)> = draw::lag_points(correlogram.partial_autocorrelations());
     let outside = acf.iter().filter(|(_, r)| r.abs() > band).count();
     let mut panels = Vec::with_capacity(2);
     let mut svg = String::new();
@@ -85,18 +76,16 @@ pub fn correlogram_card(
         let root = SVGBackend::with_string(&mut svg, (W, H)).into_drawing_area();
         root.fill(&PAPER).map_err(drawing(CARD))?;
         let (head, body) = root.split_vertically(48);
-        head.draw(&Text::new(caption.headline(), (14, 8), draw::bold(17)))
-            .map_err(drawing(CARD))?;
-        head.draw(&Text::new(
+        draw::headline(
+            &head,
+            caption,
             format!(
                 "Readings before any model: {} of {} present, {outside} of {lags} lags outside the white-noise band",
                 correlogram.readings_present(),
                 correlogram.readings_total()
             ),
-            (14, 30),
-            draw::text(12),
-        ))
-        .map_err(drawing(CARD))?;
+            CARD,
+        )?;
         let (top_area, bottom_area) = body.split_vertically((H - 48) / 2);
         let lagfmt = |x: &f64| format!("{x:.0}");
         let rfmt = |y: &f64| format!("{y:.1}");

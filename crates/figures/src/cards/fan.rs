@@ -106,18 +106,16 @@ pub fn fan_card(
         let root = SVGBackend::with_string(&mut svg, (W, H)).into_drawing_area();
         root.fill(&PAPER).map_err(drawing(CARD))?;
         let (head, body) = root.split_vertically(64);
-        head.draw(&Text::new(caption.headline(), (14, 8), draw::bold(17)))
-            .map_err(drawing(CARD))?;
         let when = match axis.and_then(|a| a.time_of(first.index)) {
             Some(ms) => format!("from {} UTC", crate::frame::utc_minutes(ms)),
             None => format!("from reading {}", first.index),
         };
-        head.draw(&Text::new(
+        draw::headline(
+            &head,
+            caption,
             format!("Forecast {} steps ahead {when}", steps.len()),
-            (14, 30),
-            draw::text(12),
-        ))
-        .map_err(drawing(CARD))?;
+            CARD,
+        )?;
         // The key.
         let mut x = 14;
         let key_y = 46;

@@ -110,17 +110,8 @@ pub fn residual_card(
         let (acf_area, pacf_area) = row1.split_horizontally(W / 2);
         let cg = &check.correlogram;
         let lags = cg.max_lag();
-        let acf: Vec<(f64, f64)> = cg
-            .autocorrelations()
-            .iter()
-            .filter(|(h, _)| *h >= 1)
-            .map(|(h, r)| (h as f64, r))
-            .collect();
-        let pacf: Vec<(f64, f64)> = cg
-            .partial_autocorrelations()
-            .iter()
-            .map(|(h, r)| (h as f64, r))
-            .collect();
+        let acf: Vec<(f64, f64)> = draw::lag_points(cg.autocorrelations());
+        let pacf: Vec<(f64, f64)> = draw::lag_points(cg.partial_autocorrelations());
         let band = check.band.iter().map(|(_, b)| b).fold(0.0f64, f64::max);
         let pband = cg.partial_band(1.0 - check.alpha).unwrap_or(band);
         let reach = |v: &[(f64, f64)], b: f64| {

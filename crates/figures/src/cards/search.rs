@@ -93,9 +93,9 @@ pub fn search_card(caption: &Caption, outcome: &SearchOutcome) -> Result<Card> {
         root.fill(&PAPER).map_err(drawing(CARD))?;
         let (head, rest) = root.split_vertically(52);
         let (body, foot) = rest.split_vertically(h - 52 - 28);
-        head.draw(&Text::new(caption.headline(), (14, 8), draw::bold(17)))
-            .map_err(drawing(CARD))?;
-        head.draw(&Text::new(
+        draw::headline(
+            &head,
+            caption,
             format!(
                 "Order search: {} candidates; chose {chosen}{} · differencing d = {}, D = {}",
                 outcome.candidates.len(),
@@ -107,10 +107,8 @@ pub fn search_card(caption: &Caption, outcome: &SearchOutcome) -> Result<Card> {
                 outcome.differencing.d,
                 outcome.differencing.seasonal_d
             ),
-            (14, 30),
-            draw::text(12),
-        ))
-        .map_err(drawing(CARD))?;
+            CARD,
+        )?;
         // Row k is drawn at y = n − k so the best sits on top.
         let yfmt = |y: &f64| {
             let k = n as f64 - y;

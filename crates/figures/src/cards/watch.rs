@@ -53,9 +53,9 @@ pub fn watch_strip(caption: &Caption, checks: &[ReadingCheck], alarm_level: f64)
         let root = SVGBackend::with_string(&mut svg, (W, H)).into_drawing_area();
         root.fill(&PAPER).map_err(drawing(CARD))?;
         let (head, body) = root.split_vertically(48);
-        head.draw(&Text::new(caption.headline(), (14, 8), draw::bold(17)))
-            .map_err(drawing(CARD))?;
-        head.draw(&Text::new(
+        draw::headline(
+            &head,
+            caption,
             format!(
                 "{} readings checked against their {:.1}% one-step intervals: {} alarm{}, {missing} missing",
                 checks.len(),
@@ -63,10 +63,8 @@ pub fn watch_strip(caption: &Caption, checks: &[ReadingCheck], alarm_level: f64)
                 alarms.len(),
                 if alarms.len() == 1 { "" } else { "s" }
             ),
-            (14, 30),
-            draw::text(12),
-        ))
-        .map_err(drawing(CARD))?;
+            CARD,
+        )?;
         let xfmt = |v: &f64| index_label(axis, *v);
         let yfmt = |v: &f64| short_number(*v);
         let ydesc = caption.value_label(caption.reading_text().unwrap_or("reading"));
