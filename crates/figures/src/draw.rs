@@ -127,6 +127,69 @@ pub(crate) fn panel<'a, 'b>(
     Ok(chart)
 }
 
+/// Correlations by lag as bars (`color`), those that `highlight` picks drawn again in the
+/// alert colour, and the zero line across `0..=lags + 1`.
+pub(crate) fn correlation_bars(
+    chart: &mut Chart<'_, '_>,
+    values: &[(f64, f64)],
+    lags: usize,
+    color: RGBColor,
+    highlight: impl Fn(f64, f64) -> bool,
+    card: &'static str,
+) -> Result<()> {
+    let half = (0.3f64).min(0.35 * 60.0 / lags.max(1) as f64).max(0.15);
+    bars(chart, values.iter().copied(), half, color, card)?;
+    bars(
+        chart,
+        values.iter().copied().filter(|&(h, r)| highlight(h, r)),
+        half,
+        crate::palette::ALERT,
+        card,
+    )?;
+    chart
+        .draw_series(std::iter::once(PathElement::new(
+            vec![(0.0, 0.0), (lags as f64 + 1.0, 0.0)],
+            INK.stroke_width(1),
+        )))
+        .map_err(drawing(card))?;
+    Ok(())
+}
+
+/// The panel of readings over time (fan and watch cards): reading numbers or UTC times
+/// across, values with the caption's unit up.
+pub(crate) fn reading_panel<'a, 'b>(
+    area: &'a Area<'b>,
+    caption: &crate::frame::Caption,
+    axis: Option<lagwise::TimeAxis>,
+    x: (f64, f64),
+    y: (f64, f64),
+    card: &'static str,
+) -> Result<Chart<'a, 'b>> {
+    let xfmt = |v: &f64| crate::frame::index_label(axis, *v);
+    let yfmt = |v: &f64| crate::frame::short_number(*v);
+    panel(
+        area,
+        &PanelSpec {
+            title: String::new(),
+            x,
+            y,
+            x_desc: if axis.is_some() {
+                "UTC".into()
+            } else {
+                "reading".into()
+            },
+            y_desc: caption.value_label(caption.reading_text().unwrap_or("reading")),
+            x_labels: 8,
+            y_labels: 6,
+            x_format: &xfmt,
+            y_format: &yfmt,
+            y_label_width: 62,
+            x_ticks: axis.map_or(Vec::new(), |a| crate::frame::time_ticks(a, x.0, x.1, 8)),
+        },
+        card,
+    )
+}
+
 /// Vertical bars from zero at each `(x, value)`, `half` wide on each side.
 pub(crate) fn bars(
     chart: &mut Chart<'_, '_>,

@@ -5,11 +5,11 @@
 //! Seasonal lags (multiples of the period) stand on tinted stripes labelled with the
 //! cycle count, or with the span in hours or days when the caption has a time axis.
 
-use crate::draw::{self, PanelSpec, bars, flat_band, panel};
+use crate::draw::{self, PanelSpec, correlation_bars, flat_band, panel};
 use crate::frame::{
     Caption, Card, CardKind, FigureError, Panel, PanelScale, Result, drawing, finish,
 };
-use crate::palette::{ALERT, BAND_EDGE, INK, PAPER, SEASON, SECOND, TRACE};
+use crate::palette::{BAND_EDGE, PAPER, SEASON, SECOND, TRACE};
 use lagwise::{BandRule, Correlogram};
 use plotters::prelude::*;
 
@@ -89,7 +89,6 @@ pub fn correlogram_card(
         let (top_area, bottom_area) = body.split_vertically((H - 48) / 2);
         let lagfmt = |x: &f64| format!("{x:.0}");
         let rfmt = |y: &f64| format!("{y:.1}");
-        let half = (0.3f64).min(0.35 * 60.0 / lags as f64).max(0.15);
         for (area, values, which, name, b) in [
             (&top_area, &acf, Panel::ReadingAcf, "ACF", band),
             (&bottom_area, &pacf, Panel::ReadingPacf, "PACF", pband),
@@ -169,23 +168,14 @@ pub fn correlogram_card(
             } else {
                 SECOND
             };
-            bars(&mut chart, values.iter().copied(), half, color, CARD)?;
-            bars(
+            correlation_bars(
                 &mut chart,
-                values
-                    .iter()
-                    .copied()
-                    .filter(|(h, r)| r.abs() > b && seasonal.contains(&(*h as usize))),
-                half,
-                ALERT,
+                values,
+                lags,
+                color,
+                |h, r| r.abs() > b && seasonal.contains(&(h as usize)),
                 CARD,
             )?;
-            chart
-                .draw_series(std::iter::once(PathElement::new(
-                    vec![(0.0, 0.0), (lags as f64 + 1.0, 0.0)],
-                    INK.stroke_width(1),
-                )))
-                .map_err(drawing(CARD))?;
             panels.push(PanelScale::of(which, &chart));
         }
         root.present().map_err(drawing(CARD))?;

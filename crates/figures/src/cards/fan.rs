@@ -5,10 +5,10 @@
 //! (darker sea green), the mean as a dark green line and its last point as a ringed dot
 //! labelled with its value; a key below the headline.
 
-use crate::draw::{self, PanelSpec, band, panel, runs, trace};
+use crate::draw::{self, band, runs, trace};
 use crate::frame::{
     Caption, Card, CardKind, FigureError, Panel, PanelScale, Result, drawing, finish,
-    finite_extent, index_label, padded, short_number, time_ticks,
+    finite_extent, padded, short_number,
 };
 use crate::palette::{FAN_MEAN, FAN_NARROW, FAN_WIDE, PAPER, QUIET, TRACE};
 use lagwise::{Forecast, TimeAxis};
@@ -149,30 +149,7 @@ pub fn fan_card(
             .map_err(drawing(CARD))?;
             x += 118;
         }
-        let xfmt = |v: &f64| index_label(axis, *v);
-        let yfmt = |v: &f64| short_number(*v);
-        let ydesc = caption.value_label(caption.reading_text().unwrap_or("reading"));
-        let mut chart = panel(
-            &body,
-            &PanelSpec {
-                title: String::new(),
-                x: (start, x1),
-                y: (y0, y1),
-                x_desc: if axis.is_some() {
-                    "UTC".into()
-                } else {
-                    "reading".into()
-                },
-                y_desc: ydesc,
-                x_labels: 8,
-                y_labels: 6,
-                x_format: &xfmt,
-                y_format: &yfmt,
-                y_label_width: 62,
-                x_ticks: axis.map_or(Vec::new(), |a| time_ticks(a, start, x1, 8)),
-            },
-            CARD,
-        )?;
+        let mut chart = draw::reading_panel(&body, caption, axis, (start, x1), (y0, y1), CARD)?;
         for (k, &i) in order.iter().enumerate() {
             let pts: Vec<(f64, f64, f64)> = steps
                 .iter()

@@ -7,7 +7,7 @@
 //! lags without degrees of freedom as grey columns) beside the residuals' histogram under
 //! the standard normal density.
 
-use crate::draw::{self, PanelSpec, bars, flat_band, level, panel, runs, trace};
+use crate::draw::{self, PanelSpec, correlation_bars, flat_band, level, panel, runs, trace};
 use crate::frame::{
     Caption, Card, CardKind, FigureError, Panel, PanelScale, Result, drawing, finish, index_label,
     time_ticks,
@@ -156,22 +156,7 @@ pub fn residual_card(
                 CARD,
             )?;
             flat_band(&mut chart, b, CARD)?;
-            let half = (0.3f64).min(0.35 * 60.0 / lags.max(1) as f64).max(0.15);
-            bars(&mut chart, values.iter().copied(), half, color, CARD)?;
-            // Lags outside the band drawn again in the alert colour.
-            bars(
-                &mut chart,
-                values.iter().copied().filter(|(_, r)| r.abs() > b),
-                half,
-                ALERT,
-                CARD,
-            )?;
-            chart
-                .draw_series(std::iter::once(PathElement::new(
-                    vec![(0.0, 0.0), (lags as f64 + 1.0, 0.0)],
-                    INK.stroke_width(1),
-                )))
-                .map_err(drawing(CARD))?;
+            correlation_bars(&mut chart, values, lags, color, |_, r| r.abs() > b, CARD)?;
             panels.push(PanelScale::of(which, &chart));
         }
 

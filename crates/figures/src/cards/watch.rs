@@ -5,10 +5,10 @@
 //! readings as navy dots, missing readings as grey ticks on the floor, and alarms as amber
 //! rings with their standardized value.
 
-use crate::draw::{self, PanelSpec, band, panel};
+use crate::draw::{self, band};
 use crate::frame::{
     Caption, Card, CardKind, FigureError, Panel, PanelScale, Result, drawing, finish,
-    finite_extent, index_label, padded, short_number, time_ticks,
+    finite_extent, padded, short_number,
 };
 use crate::palette::{ALERT, BAND, INK, PAPER, QUIET, SECOND, TRACE};
 use lagwise::ReadingCheck;
@@ -65,30 +65,7 @@ pub fn watch_strip(caption: &Caption, checks: &[ReadingCheck], alarm_level: f64)
             ),
             CARD,
         )?;
-        let xfmt = |v: &f64| index_label(axis, *v);
-        let yfmt = |v: &f64| short_number(*v);
-        let ydesc = caption.value_label(caption.reading_text().unwrap_or("reading"));
-        let mut chart = panel(
-            &body,
-            &PanelSpec {
-                title: String::new(),
-                x: (x0, x1),
-                y: (y0, y1),
-                x_desc: if axis.is_some() {
-                    "UTC".into()
-                } else {
-                    "reading".into()
-                },
-                y_desc: ydesc,
-                x_labels: 8,
-                y_labels: 6,
-                x_format: &xfmt,
-                y_format: &yfmt,
-                y_label_width: 62,
-                x_ticks: axis.map_or(Vec::new(), |a| time_ticks(a, x0, x1, 8)),
-            },
-            CARD,
-        )?;
+        let mut chart = draw::reading_panel(&body, caption, axis, (x0, x1), (y0, y1), CARD)?;
         // Each interval holds for its own reading: a step-shaped band.
         let pts: Vec<(f64, f64, f64)> = checks
             .iter()
