@@ -156,8 +156,9 @@ pub use model::lag::{
 };
 pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use ndarray;
+pub use model::event::EventKind;
 pub use select::events::{
-    EventKind, EventSearch, EventSettings, EventSettingsBuilder, SensorEvent, event_critical_value,
+    EventSearch, EventSettings, EventSettingsBuilder, SensorEvent, event_critical_value,
 };
 pub use select::search::{
     Candidate, DifferencingChoice, OrderBounds, SearchOutcome, SearchSettings,

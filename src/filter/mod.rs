@@ -7,3 +7,4 @@ pub(crate) mod innovations;
 pub(crate) mod kalman;
 pub(crate) mod lanes;
 pub(crate) mod smoothing;
+pub(crate) mod patterns;

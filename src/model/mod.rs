@@ -5,3 +5,4 @@ pub(crate) mod blueprint;
 pub(crate) mod coefficients;
 pub(crate) mod lag;
 pub(crate) mod simulate;
+pub(crate) mod event;

@@ -32,52 +32,9 @@ use crate::base::dist::two_sided_quantile;
 use crate::base::error::{Error, Result};
 use crate::base::screen::{ConstantPolicy, screen};
 use crate::fit::fitted::{FitWorkspace, FittedModel};
+use crate::filter::patterns::{event_response, pi_weights, psi_weights};
 use crate::model::coefficients::Term;
-
-/// The kinds of event (Chen & Liu 1993).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
-#[non_exhaustive]
-pub enum EventKind {
-    /// One wrong reading; the series itself is not disturbed.
-    AdditiveOutlier,
-    /// A shock entering the process: it propagates through the model's dynamics (for an
-    /// integrated model, it stays).
-    InnovationalOutlier,
-    /// A step that stays.
-    LevelShift,
-    /// A step that decays geometrically (factor [`EventSettings::decay`] per reading).
-    TemporaryChange,
-}
-
-impl EventKind {
-    /// All four kinds.
-    pub const ALL: [EventKind; 4] = [
-        EventKind::AdditiveOutlier,
-        EventKind::InnovationalOutlier,
-        EventKind::LevelShift,
-        EventKind::TemporaryChange,
-    ];
-    /// Short code for tables: `AO`, `IO`, `LS`, `TC`.
-    pub fn code(self) -> &'static str {
-        match self {
-            EventKind::AdditiveOutlier => "AO",
-            EventKind::InnovationalOutlier => "IO",
-            EventKind::LevelShift => "LS",
-            EventKind::TemporaryChange => "TC",
-        }
-    }
-}
-
-impl std::fmt::Display for EventKind {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.write_str(match self {
-            EventKind::AdditiveOutlier => "additive outlier",
-            EventKind::InnovationalOutlier => "innovational outlier",
-            EventKind::LevelShift => "level shift",
-            EventKind::TemporaryChange => "temporary change",
-        })
-    }
-}
+use crate::model::event::{EventKind, effect_at};
 
 /// Settings of an event search (build with [`EventSettings::builder`]).
 #[derive(Debug, Clone, PartialEq)]
@@ -259,7 +216,7 @@ impl EventSearch {
     /// caller's own future columns): a level shift stays 1, a temporary change decays,
     /// additive outliers are 0, innovational outliers continue their ψ-weights.
     pub fn columns_ahead(&self, series_len: usize, horizon: usize) -> Vec<Vec<f64>> {
-        let psi = psi_weights(&self.model, series_len + horizon);
+        let psi = psi_weights(&self.model.forecaster, series_len + horizon);
         self.events
             .iter()
             .map(|e| {
@@ -268,61 +225,6 @@ impl EventSearch {
                     .collect()
             })
             .collect()
-    }
-}
-
-/// ψ-weights of the model's full (differenced) ARIMA operator θ(B)/(φ(B)α(B)).
-fn psi_weights(model: &FittedModel, n: usize) -> Vec<f64> {
-    let m = &model.forecaster;
-    let denom = full_ar(m);
-    let mut psi = vec![0.0; n];
-    for k in 0..n {
-        let mut v = if k < m.rvec.len() { m.rvec[k] } else { 0.0 };
-        for (j, &a) in denom.iter().enumerate().skip(1) {
-            if j > k {
-                break;
-            }
-            v -= a * psi[k - j];
-        }
-        psi[k] = v;
-    }
-    psi
-}
-
-/// φ(B)α(B) as coefficients with the constant 1 first.
-fn full_ar(m: &crate::filter::forecasting::ForecastModel) -> Vec<f64> {
-    let mut phi = vec![1.0];
-    phi.extend(m.phi.iter().map(|v| -v));
-    let mut alpha = vec![1.0];
-    alpha.extend(m.c.iter().map(|v| -v));
-    crate::model::lag::multiply(&phi, &alpha)
-}
-
-/// π-weights of the residual filter φ(B)α(B)/θ(B), n of them.
-fn pi_weights(m: &crate::filter::forecasting::ForecastModel, n: usize) -> Vec<f64> {
-    let num = full_ar(m);
-    let mut pi = vec![0.0; n];
-    for k in 0..n {
-        let mut v = if k < num.len() { num[k] } else { 0.0 };
-        for j in 1..m.rvec.len().min(k + 1) {
-            v -= m.rvec[j] * pi[k - j];
-        }
-        pi[k] = v;
-    }
-    pi
-}
-
-/// Effect of a unit event of `kind` at `at` on the series at time `t`.
-fn effect_at(kind: EventKind, at: usize, t: usize, decay: f64, psi: &[f64]) -> f64 {
-    if t < at {
-        return 0.0;
-    }
-    let k = t - at;
-    match kind {
-        EventKind::AdditiveOutlier => f64::from(k == 0),
-        EventKind::InnovationalOutlier => psi.get(k).copied().unwrap_or(0.0),
-        EventKind::LevelShift => 1.0,
-        EventKind::TemporaryChange => decay.powi(k.min(i32::MAX as usize) as i32),
     }
 }
 
@@ -336,26 +238,8 @@ struct Pattern {
 }
 
 fn pattern(kind: EventKind, pi: &[f64], decay: f64) -> Pattern {
-    let n = pi.len();
-    let mut x = vec![0.0; n];
-    match kind {
-        EventKind::AdditiveOutlier => x.copy_from_slice(pi),
-        EventKind::InnovationalOutlier => x[0] = 1.0,
-        EventKind::LevelShift => {
-            let mut acc = 0.0;
-            for k in 0..n {
-                acc += pi[k];
-                x[k] = acc;
-            }
-        }
-        EventKind::TemporaryChange => {
-            let mut prev = 0.0;
-            for k in 0..n {
-                prev = pi[k] + decay * prev;
-                x[k] = prev;
-            }
-        }
-    }
+    let x = event_response(kind, pi, decay);
+    let n = x.len();
     let tail = x[n - 1];
     let scale = x
         .iter()
@@ -625,7 +509,7 @@ fn retype(
     }
     let n = series.len();
     let pi = pi_weights(&current.forecaster, n);
-    let psi = psi_weights(current, n);
+    let psi = psi_weights(&current.forecaster, n);
     let base = residuals_of(current);
     let Some(sigma) = robust_scale(&base) else {
         return;
@@ -811,7 +695,7 @@ impl FittedModel {
             if found.is_empty() || same || rounds == settings.max_rounds {
                 break;
             }
-            let psi = psi_weights(&current, n);
+            let psi = psi_weights(&current.forecaster, n);
             retype(
                 &mut found,
                 series,
@@ -851,7 +735,7 @@ impl FittedModel {
         // the critical value there is dropped and the model refitted.
         loop {
             found.sort_by_key(|f| f.at);
-            let psi = psi_weights(&current, n);
+            let psi = psi_weights(&current.forecaster, n);
             let columns: Vec<Vec<f64>> = found
                 .iter()
                 .map(|f| {
