@@ -169,6 +169,7 @@ pub use stats::correlogram::{
     cross_correlogram_with, partial_from_autocorrelations,
 };
 pub use stats::criteria::{Criterion, InformationCriteria};
+pub use stats::cusum::{cusum_run_length, cusum_threshold};
 pub use stats::portmanteau::{LagPValue, PortmanteauRow, PortmanteauScan};
 pub use stats::shape::{NormalityTest, VarianceChangeTest, jarque_bera, mcleod_li};
 pub use stats::stuck::{DEFAULT_STUCK_RUN, StuckRun, find_stuck_runs, mask_runs};

@@ -8,6 +8,7 @@ mod common;
 mod concurrency;
 mod correlogram_reference;
 mod covariance_reference;
+mod cusum_reference;
 mod estimation_checks;
 mod events_checks;
 mod fit_corpus;

@@ -12,6 +12,50 @@ pub(crate) fn cholesky_solve(a: &mut [f64], b: &mut [f64], k: usize) -> bool {
     true
 }
 
+/// Solve `A x = b` for a general square `A` (row-major `k×k`) by LU with partial
+/// pivoting, in place: `a` is overwritten by its factors, `b` by the solution. Returns
+/// `false` if a pivot vanishes (numerically singular `A`). Allocation-free.
+pub(crate) fn lu_solve(a: &mut [f64], b: &mut [f64], k: usize) -> bool {
+    let scale = a.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    let floor = scale * 1e-14;
+    for col in 0..k {
+        let mut best = col;
+        for row in col + 1..k {
+            if a[row * k + col].abs() > a[best * k + col].abs() {
+                best = row;
+            }
+        }
+        let pivot = a[best * k + col];
+        if !(pivot.abs() > floor) || !pivot.is_finite() {
+            return false;
+        }
+        if best != col {
+            for j in 0..k {
+                a.swap(best * k + j, col * k + j);
+            }
+            b.swap(best, col);
+        }
+        for row in col + 1..k {
+            let f = a[row * k + col] / pivot;
+            if f != 0.0 {
+                for j in col + 1..k {
+                    a[row * k + j] -= f * a[col * k + j];
+                }
+                b[row] -= f * b[col];
+            }
+            a[row * k + col] = 0.0;
+        }
+    }
+    for i in (0..k).rev() {
+        let mut s = b[i];
+        for j in i + 1..k {
+            s -= a[i * k + j] * b[j];
+        }
+        b[i] = s / a[i * k + i];
+    }
+    true
+}
+
 /// Solve `L Lᵀ x = b` in place given the lower factor `l` (row-major `k×k`).
 fn cholesky_substitute(l: &[f64], b: &mut [f64], k: usize) {
     // Forward: L y = b
@@ -221,6 +265,19 @@ pub(crate) fn least_squares(columns: &[Vec<f64>], y: &[f64]) -> Option<(Vec<f64>
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A system whose first pivot is zero (needs a row swap): x = (1, 2, 3) by hand.
+    #[test]
+    fn lu_solves_with_pivoting() {
+        let mut a = [0.0, 2.0, 1.0, 1.0, 1.0, 1.0, 2.0, -1.0, 4.0];
+        let mut b = [7.0, 6.0, 12.0];
+        assert!(lu_solve(&mut a, &mut b, 3));
+        for (x, want) in b.iter().zip([1.0, 2.0, 3.0]) {
+            assert!((x - want).abs() < 1e-12, "{x}");
+        }
+        let mut singular = [1.0, 2.0, 2.0, 4.0];
+        assert!(!lu_solve(&mut singular, &mut [1.0, 2.0], 2));
+    }
 
     #[test]
     fn cholesky_and_inverse() {

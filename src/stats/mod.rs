@@ -7,3 +7,4 @@ pub(crate) mod portmanteau;
 pub(crate) mod shape;
 pub(crate) mod stuck;
 pub(crate) mod unitroot;
+pub(crate) mod cusum;
