@@ -144,19 +144,19 @@ pub use fleet::{
 };
 pub use forecast::{
     FilledReading, Forecast, ForecastStep, GapFill, KnownModel, Monitor, PredictionInterval,
-    ReadingCheck,
+    ReadingCheck, ShiftFinding, ShiftTest, ShiftTestBuilder,
 };
 pub use model::blueprint::{
     Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
 };
 pub use model::coefficients::Term;
+pub use model::event::EventKind;
 pub use model::lag::{
     Complex, expand_autoregressive, expand_moving_average, inverse_roots, is_invertible,
     is_stationary, multiply, pi_weights, psi_weights, step_down,
 };
 pub use model::simulate::{Dropouts, Innovations, Simulator, SimulatorBuilder};
 pub use ndarray;
-pub use model::event::EventKind;
 pub use select::events::{
     EventSearch, EventSettings, EventSettingsBuilder, SensorEvent, event_critical_value,
 };

@@ -1,4 +1,5 @@
-//! Proof that a likelihood evaluation allocates nothing once the workspace has grown.
+//! Proof that a likelihood evaluation, and a monitor step, allocate nothing once their
+//! buffers have grown.
 //! A separate test binary because it installs a counting global allocator. Only the test's
 //! own thread is counted: the harness's main thread prints test names concurrently, and on
 //! a loaded machine that printing can fall inside the counting window (seen once in CI: 4
@@ -8,24 +9,27 @@
 
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::cell::Cell;
-use std::sync::atomic::{AtomicUsize, Ordering};
 
 use lagwise::{Blueprint, FitWorkspace, Simulator};
 
 struct Counting;
 
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
-
 thread_local! {
     /// Whether allocations on this thread are counted (const-initialised: reading it
     /// does not allocate).
     static COUNTED: Cell<bool> = const { Cell::new(false) };
+    /// This thread's count (tests run side by side on their own threads).
+    static ALLOCATIONS: Cell<usize> = const { Cell::new(0) };
 }
 
 fn note_allocation() {
     if COUNTED.try_with(|c| c.get()).unwrap_or(false) {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        let _ = ALLOCATIONS.try_with(|n| n.set(n.get() + 1));
     }
+}
+
+fn allocations() -> usize {
+    ALLOCATIONS.with(|n| n.get())
 }
 
 unsafe impl GlobalAlloc for Counting {
@@ -104,7 +108,7 @@ fn likelihood_evaluations_do_not_allocate() {
         // evaluation on, and reports what it holds.
         let mut sized = surface.workspace();
         assert!(sized.heap_bytes() >= 8 * x.len(), "{}", sized.heap_bytes());
-        let before_first = ALLOCATIONS.load(Ordering::SeqCst);
+        let before_first = allocations();
         surface
             .exact_log_likelihood_with(coefs, &mut sized)
             .unwrap();
@@ -112,7 +116,7 @@ fn likelihood_evaluations_do_not_allocate() {
             .conditional_log_likelihood_with(coefs, &mut sized)
             .unwrap();
         assert_eq!(
-            ALLOCATIONS.load(Ordering::SeqCst),
+            allocations(),
             before_first,
             "{}: first evaluations on a sized workspace allocated",
             bp.shape_label()
@@ -122,16 +126,16 @@ fn likelihood_evaluations_do_not_allocate() {
         surface
             .conditional_log_likelihood_with(coefs, &mut ws)
             .unwrap();
-        let before = ALLOCATIONS.load(Ordering::SeqCst);
+        let before = allocations();
         let mut total = 0.0;
         for k in 0..50 {
             let c: Vec<f64> = coefs.iter().map(|v| v * (1.0 - 0.001 * k as f64)).collect();
-            let after_vec = ALLOCATIONS.load(Ordering::SeqCst);
+            let after_vec = allocations();
             total += surface.exact_log_likelihood_with(&c, &mut ws).unwrap();
             total += surface
                 .conditional_log_likelihood_with(&c, &mut ws)
                 .unwrap();
-            let now = ALLOCATIONS.load(Ordering::SeqCst);
+            let now = allocations();
             assert_eq!(
                 now,
                 after_vec,
@@ -141,7 +145,7 @@ fn likelihood_evaluations_do_not_allocate() {
             );
         }
         // Only the 50 coefficient vectors built by this test itself allocated.
-        assert_eq!(ALLOCATIONS.load(Ordering::SeqCst) - before, 50);
+        assert_eq!(allocations() - before, 50);
         assert!(total.is_finite());
 
         // Batches of points (lanes where the shape allows): warm up, then none allocate,
@@ -156,7 +160,7 @@ fn likelihood_evaluations_do_not_allocate() {
         surface
             .conditional_log_likelihoods_with(&grid, &mut ws, &mut css)
             .unwrap();
-        let before = ALLOCATIONS.load(Ordering::SeqCst);
+        let before = allocations();
         for _ in 0..20 {
             surface
                 .exact_log_likelihoods_with(&grid, &mut ws, &mut exact)
@@ -166,7 +170,7 @@ fn likelihood_evaluations_do_not_allocate() {
                 .unwrap();
         }
         assert_eq!(
-            ALLOCATIONS.load(Ordering::SeqCst),
+            allocations(),
             before,
             "{}: batch evaluations allocated",
             bp.shape_label()
@@ -180,4 +184,39 @@ fn likelihood_evaluations_do_not_allocate() {
             assert_eq!(one.to_bits(), css[i].to_bits(), "conditional point {i}");
         }
     }
+}
+
+/// A monitor running the shift test takes in-control readings without allocating once
+/// its buffers are reserved (decisions, which replay, are rare and may allocate).
+#[test]
+fn monitoring_with_the_shift_test_does_not_allocate() {
+    let sim = Simulator::builder()
+        .autoregressive(&[0.6])
+        .level(40.0)
+        .build()
+        .unwrap();
+    let x = sim.generate(3_000, 9);
+    let fit = Blueprint::builder()
+        .nonseasonal(1, 0, 0)
+        .build()
+        .unwrap()
+        .fit(&x[..1_000])
+        .unwrap();
+    let test = lagwise::ShiftTest::builder().build().unwrap();
+    let mut watch = fit.monitor(0.999).unwrap().with_shift_test(&test);
+    COUNTED.with(|c| c.set(true));
+    let before = allocations();
+    let mut decided = 0;
+    for v in &x[1_000..] {
+        // Readings clamped to ±1 innovation sd of the level keep the test quiet.
+        let check = watch.observe(v.clamp(39.0, 41.0)).unwrap();
+        decided += usize::from(check.finding.is_some());
+    }
+    let allocated = allocations() - before;
+    COUNTED.with(|c| c.set(false));
+    assert_eq!(decided, 0);
+    assert_eq!(
+        allocated, 0,
+        "2,000 quiet readings allocated {allocated} times"
+    );
 }

@@ -26,6 +26,7 @@ mod robustness;
 mod search_checks;
 mod serialise_checks;
 mod shape_reference;
+mod shift_checks;
 mod simulation_facts;
 mod smoother_reference;
 mod stuck_checks;

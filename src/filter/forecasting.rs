@@ -192,6 +192,14 @@ impl FilterState {
         Ok(())
     }
 
+    /// Become a copy of `other`, reusing this state's buffers (no allocation once they
+    /// have grown to size).
+    pub(crate) fn copy_from(&mut self, other: &FilterState) {
+        self.s.clone_from(&other.s);
+        self.cov.clone_from(&other.cov);
+        self.next_index = other.next_index;
+    }
+
     pub(crate) fn steady(&self) -> bool {
         self.cov.is_empty()
     }

@@ -6,5 +6,5 @@ pub(crate) mod forecasting;
 pub(crate) mod innovations;
 pub(crate) mod kalman;
 pub(crate) mod lanes;
-pub(crate) mod smoothing;
 pub(crate) mod patterns;
+pub(crate) mod smoothing;

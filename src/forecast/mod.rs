@@ -13,8 +13,11 @@ use crate::model::blueprint::Blueprint;
 
 mod fill;
 mod known;
+mod online;
 pub use fill::{FilledReading, GapFill};
 pub use known::KnownModel;
+use online::ShiftState;
+pub use online::{ShiftFinding, ShiftTest, ShiftTestBuilder};
 
 /// One horizon step of a [`Forecast`].
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -292,6 +295,14 @@ pub struct ReadingCheck {
     pub standardized: Option<f64>,
     /// Whether the reading fell outside the interval.
     pub outside: bool,
+    /// With a shift test: the larger of its two CUSUMs after this reading, signed
+    /// (+ upward), in innovation standard deviations; it signals above
+    /// [`ShiftTest::threshold`].
+    #[serde(default)]
+    pub cusum: Option<f64>,
+    /// With a shift test: the spike or level shift it called at this reading.
+    #[serde(default)]
+    pub finding: Option<ShiftFinding>,
 }
 
 /// Online monitor: updates a fitted model's filter with each new reading, flags
@@ -318,6 +329,8 @@ pub struct Monitor {
     pub(crate) alarm_level: f64,
     pub(crate) alarm_z: f64,
     pub(crate) axis: Option<TimeAxis>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub(crate) shift: Option<Box<ShiftState>>,
 }
 
 /// The stored form of a monitor; restoring validates it.
@@ -328,12 +341,16 @@ struct MonitorRecord {
     alarm_level: f64,
     #[serde(default)]
     axis: Option<TimeAxis>,
+    #[serde(default)]
+    shift: Option<Box<ShiftState>>,
 }
 
 impl TryFrom<MonitorRecord> for Monitor {
     type Error = String;
     fn try_from(r: MonitorRecord) -> std::result::Result<Self, String> {
-        let m = Monitor::new(r.model, r.state, r.alarm_level, r.axis).map_err(|e| e.to_string())?;
+        let mut m =
+            Monitor::new(r.model, r.state, r.alarm_level, r.axis).map_err(|e| e.to_string())?;
+        m.shift = r.shift;
         m.validate()?;
         Ok(m)
     }
@@ -353,7 +370,49 @@ impl Monitor {
             alarm_level,
             alarm_z,
             axis,
+            shift: None,
         })
+    }
+
+    /// The same monitor running the online shift test `test` from its next reading
+    /// (replacing any test it had; the level offset starts at 0).
+    ///
+    /// ```
+    /// use lagwise::{Blueprint, EventKind, ShiftTest, Simulator};
+    /// # fn main() -> Result<(), lagwise::Error> {
+    /// let sim = Simulator::builder().autoregressive(&[0.6]).level(85.0).build()?;
+    /// let x = sim.generate(1_300, 3);
+    /// let fit = Blueprint::builder().nonseasonal(1, 0, 0).build()?.fit(&x[..1_000])?;
+    /// let mut watch = fit.monitor(0.999)?.with_shift_test(&ShiftTest::builder().build()?);
+    /// // Readings after valve work sit 6 units higher (the innovations' sd is 1).
+    /// let called: Vec<_> = x[1_000..]
+    ///     .iter()
+    ///     .enumerate()
+    ///     .map(|(i, v)| watch.observe(if i >= 100 { v + 6.0 } else { *v }))
+    ///     .collect::<Result<Vec<_>, _>>()?
+    ///     .into_iter()
+    ///     .filter_map(|c| c.finding)
+    ///     .collect();
+    /// assert_eq!(called.len(), 1);
+    /// assert_eq!((called[0].kind, called[0].onset), (EventKind::LevelShift, 1_100));
+    /// assert!((called[0].size - 6.0).abs() < 1.0);
+    /// assert!((watch.level_offset() - 6.0).abs() < 0.5); // re-levelled, estimate refined
+    /// # Ok(()) }
+    /// ```
+    pub fn with_shift_test(mut self, test: &ShiftTest) -> Self {
+        self.shift = Some(Box::new(ShiftState::new(test.clone(), &self.state)));
+        self
+    }
+
+    /// The shift test the monitor runs, if any.
+    pub fn shift_test(&self) -> Option<&ShiftTest> {
+        self.shift.as_deref().map(ShiftState::test)
+    }
+
+    /// The level the shift test has added to the model's mean: the sum of the
+    /// re-levelled shifts, the latest at its current estimate (0 without a test).
+    pub fn level_offset(&self) -> f64 {
+        self.shift.as_deref().map_or(0.0, ShiftState::level)
     }
 
     /// The same monitor with another alarm level.
@@ -425,10 +484,16 @@ impl Monitor {
         }
         let m = &self.model;
         let index = self.state.next_index;
-        let reg = m.regression_at(index, regressors);
+        let applied = self.shift.as_deref().map_or(0.0, |s| s.offset);
+        let reg = m.regression_at(index, regressors) + applied;
         let (zm, f) = self.state.predict(m);
-        let predicted = zm + reg;
-        let sd = (m.sigma2 * f).sqrt();
+        let (shift_mean, shift_var) = self
+            .shift
+            .as_deref()
+            .map_or((0.0, 0.0), |s| s.correction(index));
+        let predicted = zm + reg + shift_mean;
+        let filter_sd = (m.sigma2 * f).sqrt();
+        let sd = (m.sigma2 * f + shift_var).sqrt();
         let (lower, upper) = (predicted - self.alarm_z * sd, predicted + self.alarm_z * sd);
         let z = if reading.is_nan() {
             f64::NAN
@@ -437,6 +502,25 @@ impl Monitor {
         };
         self.state.step(m, z);
         let standardized = (!reading.is_nan()).then(|| (reading - predicted) / sd);
+        let outside = !reading.is_nan() && (reading < lower || reading > upper);
+        let (cusum, finding) = match self.shift.as_deref_mut() {
+            Some(test) => {
+                let step = test.record(
+                    m,
+                    &mut self.state,
+                    index,
+                    z,
+                    z - zm - shift_mean,
+                    sd,
+                    filter_sd,
+                    outside,
+                    self.alarm_z,
+                    self.axis,
+                );
+                (Some(step.cusum), step.finding)
+            }
+            None => (None, None),
+        };
         Ok(ReadingCheck {
             index,
             time_ms: self.axis.and_then(|a| a.time_of(index)),
@@ -446,7 +530,9 @@ impl Monitor {
             lower,
             upper,
             standardized,
-            outside: !reading.is_nan() && (reading < lower || reading > upper),
+            outside,
+            cusum,
+            finding,
         })
     }
 
@@ -457,7 +543,7 @@ impl Monitor {
 
     /// Forecast `horizon` steps from the latest reading, with intervals at `levels`.
     pub fn forecast(&self, horizon: usize, levels: &[f64]) -> Result<Forecast> {
-        forecast_from(&self.model, &self.state, self.axis, horizon, levels, &[])
+        self.forecast_given_regressors(horizon, levels, &[])
     }
 
     /// Forecast with future values of the exogenous regressors (one column per
@@ -468,11 +554,33 @@ impl Monitor {
         levels: &[f64],
         future: &[&[f64]],
     ) -> Result<Forecast> {
-        forecast_from(&self.model, &self.state, self.axis, horizon, levels, future)
+        // An unsettled level shift enters at its latest estimate.
+        let settled = self
+            .shift
+            .as_deref()
+            .and_then(|s| s.settled_copy(&self.model, &self.state));
+        let (state, offset) = match &settled {
+            Some((s, state)) => (state, s.offset),
+            None => (&self.state, self.level_offset()),
+        };
+        let mut fc = forecast_from(&self.model, state, self.axis, horizon, levels, future)?;
+        if offset != 0.0 {
+            for step in &mut fc.steps {
+                step.mean += offset;
+                for i in &mut step.intervals {
+                    i.lower += offset;
+                    i.upper += offset;
+                }
+            }
+        }
+        Ok(fc)
     }
 
     pub(crate) fn validate(&self) -> std::result::Result<(), String> {
         self.state.validate_for(&self.model)?;
+        if let Some(test) = &self.shift {
+            test.validate(&self.model, self.state.next_index)?;
+        }
         if !(self.alarm_level > 0.0 && self.alarm_level < 1.0) {
             return Err(format!("alarm level {} outside (0, 1)", self.alarm_level));
         }

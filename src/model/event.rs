@@ -62,4 +62,3 @@ pub(crate) fn effect_at(kind: EventKind, at: usize, t: usize, decay: f64, psi: &
         EventKind::TemporaryChange => decay.powi(k.min(i32::MAX as usize) as i32),
     }
 }
-

@@ -3,6 +3,6 @@
 
 pub(crate) mod blueprint;
 pub(crate) mod coefficients;
+pub(crate) mod event;
 pub(crate) mod lag;
 pub(crate) mod simulate;
-pub(crate) mod event;

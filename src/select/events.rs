@@ -31,8 +31,8 @@ use serde::{Deserialize, Serialize};
 use crate::base::dist::two_sided_quantile;
 use crate::base::error::{Error, Result};
 use crate::base::screen::{ConstantPolicy, screen};
-use crate::fit::fitted::{FitWorkspace, FittedModel};
 use crate::filter::patterns::{event_response, pi_weights, psi_weights};
+use crate::fit::fitted::{FitWorkspace, FittedModel};
 use crate::model::coefficients::Term;
 use crate::model::event::{EventKind, effect_at};
 

@@ -3,8 +3,8 @@
 
 pub(crate) mod correlogram;
 pub(crate) mod criteria;
+pub(crate) mod cusum;
 pub(crate) mod portmanteau;
 pub(crate) mod shape;
 pub(crate) mod stuck;
 pub(crate) mod unitroot;
-pub(crate) mod cusum;
