@@ -253,3 +253,41 @@ fn whiteness_digest_and_monitors_match_single_fits() {
         );
     }
 }
+
+/// A fleet built with a shift test hands out monitors that run it, and they call a
+/// step in new readings just as a monitor armed by hand does.
+#[test]
+fn fleet_monitors_carry_the_shift_test() {
+    let data = fleet_data(4);
+    let refs: Vec<&[f64]> = data.iter().map(|v| &v[..]).collect();
+    let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
+    let test = lagwise::ShiftTest::builder()
+        .in_control_run(5_000.0)
+        .build()
+        .unwrap();
+    let report = Fleet::builder()
+        .shift_test(&test)
+        .build()
+        .unwrap()
+        .fit_slices(&bp, &refs);
+    for (i, outcome) in report.outcomes().iter().enumerate() {
+        let summary = outcome.result.as_ref().unwrap();
+        let mut fleet_watch = summary.monitor().unwrap().clone();
+        assert_eq!(fleet_watch.shift_test(), Some(&test));
+        let mut own = bp
+            .fit(&data[i])
+            .unwrap()
+            .monitor(0.999)
+            .unwrap()
+            .with_shift_test(&test);
+        let last = *data[i].last().unwrap();
+        let mut called = 0;
+        for t in 0..60 {
+            let v = last + if t >= 10 { 8.0 } else { 0.0 };
+            let check = fleet_watch.observe(v).unwrap();
+            called += usize::from(check.finding.is_some());
+            assert_eq!(check, own.observe(v).unwrap());
+        }
+        assert!(called >= 1, "series {i}: the step was not called");
+    }
+}

@@ -164,11 +164,34 @@ pub(crate) fn monitor(data: &[u8]) {
     let Ok(mut m) = fit.monitor(alarm) else {
         return;
     };
+    // The same watch with the online shift test, its settings from the input.
+    let window = 1 + (b.byte() as usize % 16);
+    let run = 50.0 * 1.06f64.powi(b.byte() as i32);
+    let test = lagwise::ShiftTest::builder()
+        .decision_window(window)
+        .look_back(window + b.byte() as usize % 64)
+        .in_control_run(run)
+        .catch_shift(0.2 + b.byte() as f64 / 50.0)
+        .build();
+    let mut armed = test.ok().map(|t| m.clone().with_shift_test(&t));
     for &r in &x[half..] {
         let _ = m.observe(r);
+        if let Some(a) = armed.as_mut()
+            && let Ok(check) = a.observe(r)
+            && let Some(f) = check.finding
+        {
+            assert!(f.se > 0.0 && f.onset <= check.index, "{f:?}");
+        }
     }
     let _ = m.forecast(horizon, &[alarm]);
     let _ = fit.forecast(horizon, &[0.5, alarm]);
+    if let Some(a) = armed {
+        let _ = a.forecast(horizon, &[alarm]);
+        let text = lagwise::monitor_to_json(&a).expect("a monitor serialises");
+        let back = lagwise::monitor_from_json(&text).expect("a stored monitor restores");
+        // Compared as text: missing readings (NaN) are never equal to themselves.
+        assert_eq!(lagwise::monitor_to_json(&back).unwrap(), text);
+    }
 }
 
 /// Deserialising stored models and monitors: arbitrary text must be refused cleanly.

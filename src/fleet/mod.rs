@@ -12,7 +12,7 @@ use crate::fit::fitted::{
     CoefficientEstimate, FitWarning, FitWorkspace, FittedModel, LogLikelihood, ReadingCounts,
     ResidualCheck,
 };
-use crate::forecast::Monitor;
+use crate::forecast::{Monitor, ShiftTest};
 use crate::model::blueprint::{Blueprint, ModelShape};
 use crate::model::coefficients::Term;
 use crate::select::events::{EventSettings, SensorEvent};
@@ -62,6 +62,7 @@ pub struct Fleet {
     progress: Option<Arc<ProgressFn>>,
     cancel: Option<Arc<AtomicBool>>,
     events: Option<EventSettings>,
+    shift_test: Option<ShiftTest>,
 }
 
 impl std::fmt::Debug for Fleet {
@@ -90,6 +91,7 @@ pub struct FleetBuilder {
     progress: Option<Arc<ProgressFn>>,
     cancel: Option<Arc<AtomicBool>>,
     events: Option<EventSettings>,
+    shift_test: Option<ShiftTest>,
 }
 
 impl std::fmt::Debug for FleetBuilder {
@@ -140,7 +142,6 @@ impl FleetBuilder {
         self.cancel = Some(flag);
         self
     }
-    /// Validate and build.
     /// Also look for sensor events in every series (see
     /// [`FittedModel::find_events`](crate::FittedModel::find_events)); each summary lists
     /// them in [`FitSummary::events`]. The summary still describes the model fitted
@@ -148,6 +149,13 @@ impl FleetBuilder {
     /// one `find_events` away for a series that needs it.
     pub fn find_events(&mut self, settings: &EventSettings) -> &mut Self {
         self.events = Some(settings.clone());
+        self
+    }
+    /// Give every ready monitor the online shift test `test` (see
+    /// [`Monitor::with_shift_test`]); without ready monitors it has no effect. A monitor
+    /// with the test keeps up to two look-backs of readings (≈ 5 KB at the default 96).
+    pub fn shift_test(&mut self, test: &ShiftTest) -> &mut Self {
+        self.shift_test = Some(test.clone());
         self
     }
     /// Build the fleet (checks the settings).
@@ -182,6 +190,7 @@ impl FleetBuilder {
             progress: self.progress.clone(),
             cancel: self.cancel.clone(),
             events: self.events.clone(),
+            shift_test: self.shift_test.clone(),
         })
     }
 }
@@ -469,17 +478,21 @@ impl Fleet {
     ) -> FleetReport<I> {
         self.run_with(items, |x, ws| {
             let out = crate::select::search::search_orders_with(x, settings, ws)?;
-            let mut s =
-                FitSummary::from_model(&out.model, self.check_lags, self.alpha, self.alarm())?;
+            let mut s = self.summary(&out.model)?;
             s.search_note = Some(out.explanation);
             self.add_events(&mut s, &out.model, x)?;
             Ok(s)
         })
     }
 
-    /// The alarm level for the summaries' monitors, if they are kept.
-    fn alarm(&self) -> Option<f64> {
-        self.monitors.then_some(self.alarm_level)
+    /// A summary of `model` with its ready monitor (armed with the shift test) if kept.
+    fn summary(&self, model: &FittedModel) -> Result<FitSummary> {
+        let alarm = self.monitors.then_some(self.alarm_level);
+        let mut s = FitSummary::from_model(model, self.check_lags, self.alpha, alarm)?;
+        if let (Some(test), Some(m)) = (&self.shift_test, s.monitor.take()) {
+            s.monitor = Some(Box::new(m.with_shift_test(test)));
+        }
+        Ok(s)
     }
 
     fn run<I: Clone + Send + Sync>(
@@ -489,7 +502,7 @@ impl Fleet {
     ) -> FleetReport<I> {
         self.run_with(items, |x, ws| {
             let m = blueprint.fit_with(x, ws)?;
-            let mut s = FitSummary::from_model(&m, self.check_lags, self.alpha, self.alarm())?;
+            let mut s = self.summary(&m)?;
             self.add_events(&mut s, &m, x)?;
             Ok(s)
         })

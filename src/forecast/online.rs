@@ -307,8 +307,9 @@ pub(crate) struct ShiftStep {
 
 impl ShiftState {
     pub(crate) fn new(test: ShiftTest, state: &FilterState) -> Self {
-        let mut kept = VecDeque::new();
-        kept.reserve(3 * test.look_back + test.window + 2);
+        // The kept inputs grow to between one and two look-backs (three while a shift
+        // settles) in the first readings and are reused from then on.
+        let kept = VecDeque::new();
         let at = state.next_index;
         ShiftState {
             test,

@@ -14,7 +14,7 @@ use lagwise::search_orders_with;
 use lagwise::{
     BandRule, Blueprint, Correlogram, Dropouts, EventKind, EventSettings, FitWorkspace,
     FittedModel, Forecast, Innovations, LagValues, PortmanteauScan, ReadingCheck, ResidualCheck,
-    SearchOutcome, SearchSettings, SensorEvent, Simulator, TimeAxis,
+    SearchOutcome, SearchSettings, SensorEvent, ShiftFinding, ShiftTest, Simulator, TimeAxis,
 };
 use lagwise_figures::{
     Caption, Card, FleetPage, TagSheet, correlogram_card, fan_card, residual_card, search_card,
@@ -107,6 +107,12 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
         .build()?
         .generate(n, seed + 3);
     let mut dp: Vec<f64> = dp_noise.iter().map(|e| 1.10 + e).collect();
+    if id == 418 {
+        // Valve work overnight: the differential pressure drops by 0.1 bar at 03:00.
+        for v in &mut dp[PER_DAY * DAYS + 12..] {
+            *v -= 0.10;
+        }
+    }
     let story_dp = if id % 2 == 1 {
         for v in &mut dp[4 * PER_DAY..] {
             *v += 0.08;
@@ -230,6 +236,34 @@ fn event_text(e: &SensorEvent, unit: &str) -> String {
     )
 }
 
+/// The overnight watch's shift test (default settings: 20,000 readings between false
+/// shift signals, an 8-reading decision window), solved once.
+fn shift_test() -> &'static ShiftTest {
+    static TEST: std::sync::OnceLock<ShiftTest> = std::sync::OnceLock::new();
+    TEST.get_or_init(|| ShiftTest::builder().build().expect("default shift test"))
+}
+
+/// `overnight: level shift of −0.10 bar from 11-30 03:00 UTC (called at 05:00, t = −9.8;
+/// re-levelled)`.
+fn finding_text(f: &ShiftFinding, called_at: u64, unit: &str) -> String {
+    let (what, act) = match f.kind {
+        EventKind::LevelShift => ("level shift", "re-levelled"),
+        _ => ("spike", "discounted"),
+    };
+    format!(
+        "overnight: {what} of {:+.2} {unit} at {} (called at {}, t = {:.1}{})",
+        f.size,
+        stamp(f.onset),
+        clock(called_at),
+        f.statistic,
+        if f.applied {
+            format!("; {act}")
+        } else {
+            String::new()
+        }
+    )
+}
+
 /// `06:15` for a reading number.
 fn clock(index: u64) -> String {
     let minutes = (index as usize % PER_DAY) * 15;
@@ -306,7 +340,8 @@ fn assess(tag: Tag, ws: &mut FitWorkspace) -> Result<Assessed, (Tag, lagwise::Er
             .map(|p| (h, p));
         // The events' regressors continue past the history (a level shift stays).
         let ahead = found.columns_ahead(history_len, NIGHT + PER_DAY);
-        let mut monitor = model.monitor(ALARM_LEVEL)?;
+        // The overnight watch tells a spike from a shift that stays (and re-levels).
+        let mut monitor = model.monitor(ALARM_LEVEL)?.with_shift_test(shift_test());
         let mut checks = Vec::with_capacity(NIGHT);
         let mut row = vec![0.0; ahead.len()];
         for (i, &reading) in night.iter().enumerate() {
@@ -315,6 +350,11 @@ fn assess(tag: Tag, ws: &mut FitWorkspace) -> Result<Assessed, (Tag, lagwise::Er
             }
             checks.push(monitor.observe_given_regressors(reading, &row)?);
         }
+        events.extend(
+            checks
+                .iter()
+                .filter_map(|c| c.finding.map(|f| finding_text(&f, c.index, tag.unit))),
+        );
         let forecast = if tag.name.ends_with("-FL") || tag.name.ends_with("-TR") {
             let future: Vec<&[f64]> = ahead.iter().map(|c| &c[NIGHT..]).collect();
             Some(monitor.forecast_given_regressors(PER_DAY, &[0.8, 0.95], &future)?)
@@ -403,7 +443,7 @@ fn print_substation(id: u32, tags: &[Assessed]) {
         })
         .collect();
     if !events.is_empty() {
-        println!("Sensor events in the history:");
+        println!("Sensor events (history and overnight):");
         for e in &events {
             println!("  {e}");
         }
