@@ -489,7 +489,9 @@ impl Fleet {
     fn summary(&self, model: &FittedModel) -> Result<FitSummary> {
         let alarm = self.monitors.then_some(self.alarm_level);
         let mut s = FitSummary::from_model(model, self.check_lags, self.alpha, alarm)?;
-        if let (Some(test), Some(m)) = (&self.shift_test, s.monitor.take()) {
+        if let Some(test) = &self.shift_test
+            && let Some(m) = s.monitor.take()
+        {
             s.monitor = Some(Box::new(m.with_shift_test(test)));
         }
         Ok(s)
