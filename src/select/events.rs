@@ -235,6 +235,9 @@ struct Pattern {
     tail: f64,
     /// `head_k² + 2·tail·head_k`: the head's share of Σx² (see [`score`]).
     square: Vec<f64>,
+    /// Prefix sums of `square`: the head's share of Σx² where every reading has a
+    /// residual, in O(1).
+    square_prefix: Vec<f64>,
 }
 
 fn pattern(kind: EventKind, pi: &[f64], decay: f64) -> Pattern {
@@ -250,8 +253,18 @@ fn pattern(kind: EventKind, pi: &[f64], decay: f64) -> Pattern {
         .rposition(|v| (v - tail).abs() > 1e-8 * scale)
         .map_or(1, |k| k + 1);
     let head: Vec<f64> = x[..keep].iter().map(|v| v - tail).collect();
-    let square = head.iter().map(|h| h * h + 2.0 * tail * h).collect();
-    Pattern { head, tail, square }
+    let square: Vec<f64> = head.iter().map(|h| h * h + 2.0 * tail * h).collect();
+    let mut square_prefix = Vec::with_capacity(square.len() + 1);
+    square_prefix.push(0.0);
+    for q in &square {
+        square_prefix.push(square_prefix.last().copied().unwrap_or(0.0) + q);
+    }
+    Pattern {
+        head,
+        tail,
+        square,
+        square_prefix,
+    }
 }
 
 /// The residuals as the scan reads them: values with missing ones as 0, a 1/0 mask, and
@@ -318,14 +331,78 @@ fn score(p: &Pattern, scan: &Scan, at: usize, sigma: f64) -> Option<(f64, f64)> 
     Some((omega, omega * sxx.sqrt() / sigma))
 }
 
+/// Σx_k e_{at+k} for every reading and every kind from one correlation: with `a` the
+/// additive outlier's sums (x = π), a level shift's (x = π/(1 − B)) satisfy
+/// l(at) = a(at) + l(at + 1), a temporary change's (x = π/(1 − δB)) t(at) = a(at) +
+/// δ·t(at + 1), and an innovational outlier's (x = 1) are the residuals themselves — so
+/// the scan's cost is that of the additive outlier's pattern alone.
+#[derive(Default)]
+struct CrossSums {
+    spike: Vec<f64>,
+    shift: Vec<f64>,
+    temporary: Vec<f64>,
+    shock: Vec<f64>,
+}
+
+impl CrossSums {
+    fn refresh(&mut self, spike: &Pattern, scan: &Scan, decay: f64) {
+        let n = scan.values.len();
+        for v in [
+            &mut self.spike,
+            &mut self.shift,
+            &mut self.temporary,
+            &mut self.shock,
+        ] {
+            v.clear();
+            v.resize(n, 0.0);
+        }
+        let c = spike.tail;
+        for at in 0..n {
+            let m = spike.head.len().min(n - at);
+            self.spike[at] =
+                dot(&spike.head[..m], &scan.values[at..at + m]) + c * scan.suffix_sum[at];
+        }
+        let (mut shift, mut temporary) = (0.0, 0.0);
+        for at in (0..n).rev() {
+            shift += self.spike[at];
+            temporary = self.spike[at] + decay * temporary;
+            self.shift[at] = shift;
+            self.temporary[at] = temporary;
+        }
+        self.shock.copy_from_slice(&scan.values);
+    }
+    fn of(&self, kind: EventKind) -> &[f64] {
+        match kind {
+            EventKind::AdditiveOutlier => &self.spike,
+            EventKind::LevelShift => &self.shift,
+            EventKind::TemporaryChange => &self.temporary,
+            _ => &self.shock,
+        }
+    }
+}
+
+/// Σx_k² over the readings with a residual (see [`score`]).
+fn squares(p: &Pattern, scan: &Scan, at: usize) -> f64 {
+    let n = scan.values.len();
+    let m = p.head.len().min(n - at);
+    let c = p.tail;
+    // Σx² depends only on which readings have a residual: without a gap under the
+    // pattern's head it is a prefix sum.
+    let head_share = if scan.suffix_count[at] - scan.suffix_count[at + m] == m as f64 {
+        p.square_prefix[m]
+    } else {
+        dot(&p.square[..m], &scan.mask[at..at + m])
+    };
+    head_share + c * c * scan.suffix_count[at]
+}
+
 /// Σx_k e_{at+k} and Σx_k² (see [`score`]).
 fn sums(p: &Pattern, scan: &Scan, at: usize) -> (f64, f64) {
     let n = scan.values.len();
     let m = p.head.len().min(n - at);
     let c = p.tail;
     let sxe = dot(&p.head[..m], &scan.values[at..at + m]) + c * scan.suffix_sum[at];
-    let sxx = dot(&p.square[..m], &scan.mask[at..at + m]) + c * c * scan.suffix_count[at];
-    (sxe, sxx)
+    (sxe, squares(p, scan, at))
 }
 
 fn robust_scale(e: &[f64]) -> Option<f64> {
@@ -369,31 +446,49 @@ fn detect(
         .iter()
         .map(|&k| (k, pattern(k, pi, settings.decay)))
         .collect();
+    let spike = pattern(EventKind::AdditiveOutlier, pi, settings.decay);
     let mut scan = Scan::new(&e);
+    let mut cross = CrossSums::default();
     let mut taken = vec![false; n];
     // A level shift at the first reading with a residual is the series' own level (the
     // mean, or the start of an integrated model): not an event, and not estimable
     // beside it.
     let first = e.iter().position(|v| v.is_finite()).unwrap_or(n);
+    // Σx² per kind and reading: it depends only on which readings have a residual, so
+    // it holds for every scan of this round. Readings that cannot take an event hold 0.
+    let squares_at: Vec<Vec<f64>> = patterns
+        .iter()
+        .map(|(kind, p)| {
+            (0..n)
+                .map(|at| {
+                    let barred =
+                        scan.mask[at] == 0.0 || (at == first && *kind == EventKind::LevelShift);
+                    if barred { 0.0 } else { squares(p, &scan, at) }
+                })
+                .collect()
+        })
+        .collect();
     let mut found = Vec::new();
     while found.len() < budget {
-        // The largest |τ| is the largest (Σxe)²/Σx²: no square root or size per reading.
+        // The largest |τ| is the largest (Σxe)²/Σx²: no square root or size per reading;
+        // ties go to the earlier reading, then the earlier kind.
         let mut best: Option<(usize, usize, f64)> = None;
-        for at in 0..n {
-            if scan.mask[at] == 0.0 || taken[at] {
-                continue;
-            }
-            for (j, (kind, p)) in patterns.iter().enumerate() {
-                if at == first && *kind == EventKind::LevelShift {
-                    continue;
-                }
-                let (sxe, sxx) = sums(p, &scan, at);
-                if sxx > 1e-12 {
+        cross.refresh(&spike, &scan, settings.decay);
+        for (j, (kind, _)) in patterns.iter().enumerate() {
+            let sums = cross.of(*kind);
+            let mut top = (f64::NEG_INFINITY, 0usize);
+            for (at, (&sxe, &sxx)) in sums.iter().zip(&squares_at[j]).enumerate() {
+                if sxx > 1e-12 && !taken[at] {
                     let r = sxe * sxe / sxx;
-                    if best.is_none_or(|b| r > b.2) {
-                        best = Some((at, j, r));
+                    if r > top.0 {
+                        top = (r, at);
                     }
                 }
+            }
+            if top.0 > f64::NEG_INFINITY
+                && best.is_none_or(|b| top.0 > b.2 || (top.0 == b.2 && top.1 < b.0))
+            {
+                best = Some((top.1, j, top.0));
             }
         }
         let best = best.and_then(|(at, j, _)| {
@@ -497,7 +592,7 @@ fn retype(
     current: &FittedModel,
     settings: &EventSettings,
     workspace: &mut FitWorkspace,
-) {
+) -> Option<FittedModel> {
     let suspect = |f: &Found| {
         matches!(
             f.kind,
@@ -505,24 +600,18 @@ fn retype(
         )
     };
     if !settings.kinds.contains(&EventKind::LevelShift) || !found.iter().any(suspect) {
-        return;
+        return None;
     }
     let n = series.len();
     let pi = pi_weights(&current.forecaster, n);
     let psi = psi_weights(&current.forecaster, n);
     let base = residuals_of(current);
-    let Some(sigma) = robust_scale(&base) else {
-        return;
-    };
-    let variance_after = |trial: &[Found], workspace: &mut FitWorkspace| {
+    let sigma = robust_scale(&base)?;
+    let refit_after = |trial: &[Found], workspace: &mut FitWorkspace| {
         let adjusted = adjust(series, trial, settings.decay, &psi);
-        quick_refit(quick_bp, &adjusted, regressors, current, workspace)
-            .map(|m| m.innovation_variance())
-            .ok()
+        quick_refit(quick_bp, &adjusted, regressors, current, workspace).ok()
     };
-    let Some(mut as_found) = variance_after(found, workspace) else {
-        return;
-    };
+    let mut best = refit_after(found, workspace)?;
     let shift = pattern(EventKind::LevelShift, &pi, settings.decay);
     for i in 0..found.len() {
         if !suspect(&found[i]) {
@@ -545,13 +634,14 @@ fn retype(
             tau,
             ..found[i]
         };
-        if let Some(v) = variance_after(&trial, workspace)
-            && v < as_found
+        if let Some(m) = refit_after(&trial, workspace)
+            && m.innovation_variance() < best.innovation_variance()
         {
             found[i] = trial[i];
-            as_found = v;
+            best = m;
         }
     }
+    Some(best)
 }
 
 /// A provisional refit for the detection rounds: conditional sum of squares started from
@@ -692,11 +782,18 @@ impl FittedModel {
                     .iter()
                     .all(|a| found.iter().any(|b| a.at == b.at && a.kind == b.kind));
             found = new;
-            if found.is_empty() || same || rounds == settings.max_rounds {
+            // Additive outliers below the critical value barely move the model: no
+            // refit for them (stage II drops them). A level shift below it may be one
+            // the contaminated model hides (φ drawn towards 1); it gets the refit.
+            let quiet = found
+                .iter()
+                .all(|f| f.tau.abs() < critical && f.kind == EventKind::AdditiveOutlier);
+            if found.is_empty() || same || quiet || rounds == settings.max_rounds {
                 break;
             }
             let psi = psi_weights(&current.forecaster, n);
-            retype(
+            // The retyping refits the model for the events it settles on; reuse it.
+            let refitted = match retype(
                 &mut found,
                 series,
                 regressors,
@@ -704,9 +801,14 @@ impl FittedModel {
                 &current,
                 settings,
                 &mut workspace,
-            );
-            let adjusted = adjust(series, &found, settings.decay, &psi);
-            match quick_refit(&quick_bp, &adjusted, regressors, &current, &mut workspace) {
+            ) {
+                Some(m) => Ok(m),
+                None => {
+                    let adjusted = adjust(series, &found, settings.decay, &psi);
+                    quick_refit(&quick_bp, &adjusted, regressors, &current, &mut workspace)
+                }
+            };
+            match refitted {
                 Ok(m) => {
                     current = m;
                     adjusted_by = found.clone();
@@ -717,8 +819,10 @@ impl FittedModel {
         // Stage II: the sizes jointly, by least squares of the original series' residuals
         // on the events' patterns (the model's coefficients held); the least significant
         // dropped while its |t| is below the critical value.
-        let (e, pi) = original_residuals(&current, &adjusted_by);
-        confirm_on_residuals(&mut found, &e, &pi, settings.decay, critical);
+        if !found.is_empty() {
+            let (e, pi) = original_residuals(&current, &adjusted_by);
+            confirm_on_residuals(&mut found, &e, &pi, settings.decay, critical);
+        }
         let none = |rounds| EventSearch {
             events: Vec::new(),
             model: base_model.clone(),
@@ -885,6 +989,52 @@ mod tests {
                 "TC at {k}: {} vs {want}",
                 tc[k]
             );
+        }
+    }
+
+    /// The scan's sums from one correlation and two recursions equal each pattern's own
+    /// dot products, and Σx² from prefix sums equals the masked dot product — on an
+    /// ARMA(1,1) model's residuals with gaps (MA part: patterns with long heads).
+    #[test]
+    fn recursive_sums_equal_the_direct_ones() {
+        let m = crate::filter::forecasting::ForecastModel {
+            r: 2,
+            phi: vec![0.6, 0.0],
+            rvec: vec![1.0, 0.4],
+            c: vec![1.0],
+            sigma2: 1.0,
+            regression: Vec::new(),
+        };
+        let n = 300;
+        let pi = pi_weights(&m, n);
+        let mut e: Vec<f64> = (0..n)
+            .map(|t| ((t * 7919 % 101) as f64 - 50.0) / 17.0)
+            .collect();
+        for t in [0, 40, 41, 42, 150, 299] {
+            e[t] = f64::NAN;
+        }
+        let scan = Scan::new(&e);
+        let spike = pattern(EventKind::AdditiveOutlier, &pi, 0.7);
+        let mut cross = CrossSums::default();
+        cross.refresh(&spike, &scan, 0.7);
+        for kind in EventKind::ALL {
+            let p = pattern(kind, &pi, 0.7);
+            for at in 0..n {
+                let (sxe, sxx) = sums(&p, &scan, at);
+                let direct_sxx = dot(&p.square[..p.head.len().min(n - at)], &scan.mask[at..])
+                    + p.tail * p.tail * scan.suffix_count[at];
+                // Both truncate the patterns where their terms fall below 1e-8 of the
+                // largest: they agree to about that, summed over the readings.
+                assert!(
+                    (cross.of(kind)[at] - sxe).abs() <= 1e-6 * (1.0 + sxe.abs()),
+                    "{kind:?} {at}: {} vs {sxe}",
+                    cross.of(kind)[at]
+                );
+                assert!(
+                    (sxx - direct_sxx).abs() <= 1e-12 * (1.0 + sxx),
+                    "{kind:?} {at}"
+                );
+            }
         }
     }
 
