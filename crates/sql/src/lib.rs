@@ -1,0 +1,801 @@
+//! lagwise as SQL aggregate functions on DataFusion: each tag's readings, gathered by a
+//! `GROUP BY`, are placed on a regular grid and fitted, searched, forecast or checked —
+//! inside the query engine, in parallel over partitions, with the rows never leaving it.
+//!
+//! ```sql
+//! SELECT tag, lw_fit(ts, value, '<blueprint JSON>', 900000) AS fit
+//! FROM readings GROUP BY tag
+//! ```
+//!
+//! | function | arguments | returns |
+//! |---|---|---|
+//! | `lw_fit` | `ts, value, blueprint, cadence_ms` | a model row (see [`MODEL_FIELDS`]) |
+//! | `lw_choose` | `ts, value, cadence_ms, period` | a model row for the order search's choice |
+//! | `lw_ahead` | `ts, value, blueprint, cadence_ms, horizon, levels` | `{steps, error}`: one step per horizon step with its UTC time, mean, sd and bounds per level |
+//! | `lw_check` | `ts, value, blueprint, cadence_ms` | the residual check: whiteness, normality, changing variance, verdict |
+//!
+//! `ts` is a timestamp column of any unit (or `BIGINT` epoch milliseconds); `value` any
+//! numeric column, `NULL` = a missing reading; `blueprint` the persisted blueprint text
+//! (`lagwise::blueprint_to_json`); `cadence_ms` the grid's spacing; `levels` a JSON list
+//! such as `'[0.8, 0.95]'`. The settings must be constants: every executor reads them
+//! from the query itself (a function object's own fields never travel between engine
+//! processes). A malformed setting fails the query with a message that names it; a group
+//! that cannot be fitted (no readings, all missing, an infinite reading, too few
+//! readings) gets its error text in the row's `error` field and nulls elsewhere.
+//!
+//! Time order inside the aggregate: the accumulator keeps (time, value) pairs and the grid
+//! sorts them, so no `ORDER BY` is needed and the plan carries no extra sort; its state
+//! between the partial and final stages is the two lists, and [`Accumulator::size`]
+//! counts their capacity so memory pools and spilling see the true cost.
+
+use std::hash::{Hash, Hasher};
+use std::sync::Arc;
+
+use datafusion::arrow::array::{
+    Array, ArrayRef, AsArray, BooleanBuilder, Float64Builder, Int64Builder, ListBuilder,
+    StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
+};
+use datafusion::arrow::datatypes::{
+    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, TimeUnit, TimestampMillisecondType,
+};
+use datafusion::common::utils::SingleRowListArrayBuilder;
+use datafusion::common::{DataFusionError, Result, ScalarValue, exec_err, plan_err};
+use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
+use datafusion::logical_expr::{
+    Accumulator, AggregateUDF, AggregateUDFImpl, Signature, Volatility,
+};
+use datafusion::physical_expr::expressions::Literal;
+use datafusion::prelude::SessionContext;
+use lagwise::{Blueprint, FittedModel, GridSettings, SearchSettings};
+
+/// The functions this crate provides, ready to register.
+pub fn functions() -> Vec<AggregateUDF> {
+    [Job::Fit, Job::Choose, Job::Ahead, Job::Check]
+        .into_iter()
+        .map(|job| AggregateUDF::from(SeriesFunction::new(job)))
+        .collect()
+}
+
+/// Register every function on `ctx` (for a Ballista client: after the context has been
+/// made remote).
+pub fn register(ctx: &SessionContext) {
+    for f in functions() {
+        ctx.register_udaf(f);
+    }
+}
+
+/// Which job a function does.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+enum Job {
+    Fit,
+    Choose,
+    Ahead,
+    Check,
+}
+
+impl Job {
+    fn name(self) -> &'static str {
+        match self {
+            Job::Fit => "lw_fit",
+            Job::Choose => "lw_choose",
+            Job::Ahead => "lw_ahead",
+            Job::Check => "lw_check",
+        }
+    }
+    /// Arguments after `ts, value`.
+    fn settings(self) -> &'static [&'static str] {
+        match self {
+            Job::Fit | Job::Check => &["blueprint", "cadence_ms"],
+            Job::Choose => &["cadence_ms", "period"],
+            Job::Ahead => &["blueprint", "cadence_ms", "horizon", "levels"],
+        }
+    }
+}
+
+/// The fields of the row `lw_fit` and `lw_choose` return.
+pub const MODEL_FIELDS: [&str; 13] = [
+    "model",
+    "coefficients",
+    "sigma2",
+    "log_likelihood",
+    "aicc",
+    "bic",
+    "white",
+    "whiteness_p",
+    "readings",
+    "missing",
+    "stored",
+    "note",
+    "error",
+];
+
+fn utc_ms() -> DataType {
+    DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into()))
+}
+
+fn coefficient_fields() -> Fields {
+    Fields::from(vec![
+        Field::new("term", DataType::Utf8, false),
+        Field::new("value", DataType::Float64, false),
+        Field::new("se", DataType::Float64, true),
+    ])
+}
+
+fn model_fields() -> Fields {
+    Fields::from(vec![
+        Field::new("model", DataType::Utf8, true),
+        Field::new(
+            "coefficients",
+            DataType::List(Arc::new(Field::new(
+                "item",
+                DataType::Struct(coefficient_fields()),
+                true,
+            ))),
+            true,
+        ),
+        Field::new("sigma2", DataType::Float64, true),
+        Field::new("log_likelihood", DataType::Float64, true),
+        Field::new("aicc", DataType::Float64, true),
+        Field::new("bic", DataType::Float64, true),
+        Field::new("white", DataType::Boolean, true),
+        Field::new("whiteness_p", DataType::Float64, true),
+        Field::new("readings", DataType::Int64, true),
+        Field::new("missing", DataType::Int64, true),
+        Field::new("stored", DataType::Utf8, true),
+        Field::new("note", DataType::Utf8, true),
+        Field::new("error", DataType::Utf8, true),
+    ])
+}
+
+fn float_list() -> DataType {
+    DataType::List(Arc::new(Field::new("item", DataType::Float64, true)))
+}
+
+fn step_fields() -> Fields {
+    Fields::from(vec![
+        Field::new("step", DataType::Int64, false),
+        Field::new("at", utc_ms(), true),
+        Field::new("mean", DataType::Float64, false),
+        Field::new("sd", DataType::Float64, false),
+        Field::new("lower", float_list(), true),
+        Field::new("upper", float_list(), true),
+    ])
+}
+
+fn ahead_fields() -> Fields {
+    Fields::from(vec![
+        Field::new(
+            "steps",
+            DataType::List(Arc::new(Field::new(
+                "item",
+                DataType::Struct(step_fields()),
+                true,
+            ))),
+            true,
+        ),
+        Field::new("error", DataType::Utf8, true),
+    ])
+}
+
+fn check_fields() -> Fields {
+    Fields::from(vec![
+        Field::new("white", DataType::Boolean, true),
+        Field::new("whiteness_p", DataType::Float64, true),
+        Field::new("lags", DataType::Int64, true),
+        Field::new("normality_p", DataType::Float64, true),
+        Field::new("variance_change_p", DataType::Float64, true),
+        Field::new("verdict", DataType::Utf8, true),
+        Field::new("error", DataType::Utf8, true),
+    ])
+}
+
+/// One of the crate's aggregate functions.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+struct SeriesFunction {
+    job: Job,
+    signature: Signature,
+}
+
+impl SeriesFunction {
+    fn new(job: Job) -> Self {
+        SeriesFunction {
+            job,
+            signature: Signature::user_defined(Volatility::Immutable),
+        }
+    }
+}
+
+impl AggregateUDFImpl for SeriesFunction {
+    fn name(&self) -> &str {
+        self.job.name()
+    }
+    fn signature(&self) -> &Signature {
+        &self.signature
+    }
+    fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
+        let names = self.job.settings();
+        if arg_types.len() != 2 + names.len() {
+            return plan_err!(
+                "{} takes (ts, value, {}); {} arguments given",
+                self.job.name(),
+                names.join(", "),
+                arg_types.len()
+            );
+        }
+        let ts = match &arg_types[0] {
+            DataType::Timestamp(_, _) | DataType::Int64 => arg_types[0].clone(),
+            DataType::Int32 | DataType::UInt32 | DataType::UInt64 => DataType::Int64,
+            other => {
+                return plan_err!(
+                    "{}: the time column must be a timestamp or BIGINT epoch milliseconds, not {other}",
+                    self.job.name()
+                );
+            }
+        };
+        if !(arg_types[1].is_numeric() || arg_types[1] == DataType::Null) {
+            return plan_err!(
+                "{}: the value column must be numeric, not {}",
+                self.job.name(),
+                arg_types[1]
+            );
+        }
+        let mut out = vec![ts, DataType::Float64];
+        for (name, t) in names.iter().zip(&arg_types[2..]) {
+            out.push(match *name {
+                "blueprint" | "levels" => DataType::Utf8,
+                "cadence_ms" | "horizon" | "period" => {
+                    if !t.is_integer() {
+                        return plan_err!(
+                            "{}: {name} must be an integer, not {t}",
+                            self.job.name()
+                        );
+                    }
+                    DataType::Int64
+                }
+                _ => t.clone(),
+            });
+        }
+        Ok(out)
+    }
+    fn return_type(&self, _arg_types: &[DataType]) -> Result<DataType> {
+        Ok(DataType::Struct(match self.job {
+            Job::Fit | Job::Choose => model_fields(),
+            Job::Ahead => ahead_fields(),
+            Job::Check => check_fields(),
+        }))
+    }
+    fn accumulator(&self, acc_args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        let task = Task::from_literals(self.job, acc_args.exprs)?;
+        Ok(Box::new(SeriesAccumulator {
+            task,
+            times: Vec::new(),
+            values: Vec::new(),
+        }))
+    }
+    fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
+        Ok(vec![
+            Arc::new(Field::new(
+                format!("{}[times]", args.name),
+                DataType::List(Arc::new(Field::new("item", DataType::Int64, true))),
+                true,
+            )),
+            Arc::new(Field::new(
+                format!("{}[values]", args.name),
+                float_list(),
+                true,
+            )),
+        ])
+    }
+}
+
+/// A function's settings, read from its constant arguments.
+#[derive(Debug, Clone)]
+struct Task {
+    job: Job,
+    grid: GridSettings,
+    blueprint: Option<Blueprint>,
+    period: usize,
+    horizon: usize,
+    levels: Vec<f64>,
+}
+
+impl Task {
+    fn from_literals(
+        job: Job,
+        exprs: &[Arc<dyn datafusion::physical_expr::PhysicalExpr>],
+    ) -> Result<Self> {
+        let names = job.settings();
+        if exprs.len() != 2 + names.len() {
+            return plan_err!("{}: expected {} arguments", job.name(), 2 + names.len());
+        }
+        let literal = |i: usize| -> Result<&ScalarValue> {
+            match exprs[i].downcast_ref::<Literal>() {
+                Some(l) => Ok(l.value()),
+                None => plan_err!(
+                    "{}: {} must be a constant (executors read settings from the query)",
+                    job.name(),
+                    names[i - 2]
+                ),
+            }
+        };
+        let text = |i: usize| -> Result<String> {
+            match literal(i)? {
+                ScalarValue::Utf8(Some(s))
+                | ScalarValue::LargeUtf8(Some(s))
+                | ScalarValue::Utf8View(Some(s)) => Ok(s.clone()),
+                other => plan_err!("{}: {} must be text, got {other}", job.name(), names[i - 2]),
+            }
+        };
+        let integer = |i: usize| -> Result<i64> {
+            match literal(i)? {
+                ScalarValue::Int64(Some(v)) => Ok(*v),
+                other => other
+                    .cast_to(&DataType::Int64)
+                    .ok()
+                    .and_then(|v| match v {
+                        ScalarValue::Int64(Some(v)) => Some(v),
+                        _ => None,
+                    })
+                    .map_or_else(
+                        || {
+                            plan_err!(
+                                "{}: {} must be an integer, got {other}",
+                                job.name(),
+                                names[i - 2]
+                            )
+                        },
+                        Ok,
+                    ),
+            }
+        };
+        let at = |name: &str| {
+            2 + names
+                .iter()
+                .position(|n| *n == name)
+                .expect("known setting")
+        };
+        let cadence = integer(at("cadence_ms"))?;
+        let grid = GridSettings::builder(cadence)
+            .build()
+            .map_err(|e| DataFusionError::Plan(format!("{}: cadence_ms: {e}", job.name())))?;
+        let blueprint =
+            if names.contains(&"blueprint") {
+                let json = text(at("blueprint"))?;
+                Some(lagwise::blueprint_from_json(&json).map_err(|e| {
+                    DataFusionError::Plan(format!("{}: blueprint: {e}", job.name()))
+                })?)
+            } else {
+                None
+            };
+        let period = if names.contains(&"period") {
+            let p = integer(at("period"))?;
+            if !(1..=lagwise::MAX_PERIOD as i64).contains(&p) {
+                return plan_err!(
+                    "{}: period {p} must be 1 (no seasonal cycle) to {}",
+                    job.name(),
+                    lagwise::MAX_PERIOD
+                );
+            }
+            p as usize
+        } else {
+            1
+        };
+        let (horizon, levels) = if job == Job::Ahead {
+            let h = integer(at("horizon"))?;
+            if !(1..=100_000).contains(&h) {
+                return plan_err!("{}: horizon {h} must be 1 to 100,000 steps", job.name());
+            }
+            let text = text(at("levels"))?;
+            let levels: Vec<f64> = serde_json::from_str(&text).map_err(|e| {
+                DataFusionError::Plan(format!(
+                    "{}: levels must be a JSON list of numbers such as [0.8, 0.95]: {e}",
+                    job.name()
+                ))
+            })?;
+            if levels.is_empty() || levels.iter().any(|l| !(*l > 0.0 && *l < 1.0)) {
+                return plan_err!(
+                    "{}: levels {text} must be one or more numbers in (0, 1)",
+                    job.name()
+                );
+            }
+            (h as usize, levels)
+        } else {
+            (0, Vec::new())
+        };
+        Ok(Task {
+            job,
+            grid,
+            blueprint,
+            period,
+            horizon,
+            levels,
+        })
+    }
+}
+
+/// Gathers one group's (time, value) pairs; fits at the end.
+#[derive(Debug)]
+struct SeriesAccumulator {
+    task: Task,
+    /// Epoch milliseconds.
+    times: Vec<i64>,
+    /// NaN = missing.
+    values: Vec<f64>,
+}
+
+/// Epoch milliseconds from a timestamp or integer column; a null time is an error.
+fn times_ms(array: &ArrayRef, what: &str) -> Result<Vec<i64>> {
+    let ms = match array.data_type() {
+        DataType::Timestamp(TimeUnit::Millisecond, _) => array
+            .as_primitive::<TimestampMillisecondType>()
+            .values()
+            .to_vec(),
+        DataType::Timestamp(unit, _) => {
+            let per_ms: i64 = match unit {
+                TimeUnit::Second => return Ok(scale(array, 1_000)),
+                TimeUnit::Microsecond => 1_000,
+                TimeUnit::Nanosecond => 1_000_000,
+                TimeUnit::Millisecond => 1,
+            };
+            let raw = datafusion::arrow::compute::cast(array, &DataType::Int64)?;
+            raw.as_primitive::<Int64Type>()
+                .values()
+                .iter()
+                .map(|v| v.div_euclid(per_ms))
+                .collect()
+        }
+        DataType::Int64 => array.as_primitive::<Int64Type>().values().to_vec(),
+        other => return exec_err!("{what}: time column of type {other}"),
+    };
+    if array.null_count() > 0 {
+        return exec_err!("{what}: a reading has no time (NULL timestamp)");
+    }
+    Ok(ms)
+}
+
+fn scale(array: &ArrayRef, factor: i64) -> Vec<i64> {
+    match datafusion::arrow::compute::cast(array, &DataType::Int64) {
+        Ok(raw) => raw
+            .as_primitive::<Int64Type>()
+            .values()
+            .iter()
+            .map(|v| v.saturating_mul(factor))
+            .collect(),
+        Err(_) => Vec::new(),
+    }
+}
+
+impl Accumulator for SeriesAccumulator {
+    fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        let what = self.task.job.name();
+        let times = times_ms(&values[0], what)?;
+        let readings = datafusion::arrow::compute::cast(&values[1], &DataType::Float64)?;
+        let readings = readings.as_primitive::<Float64Type>();
+        if times.len() != readings.len() {
+            return exec_err!("{what}: time and value columns differ in length");
+        }
+        self.times.extend_from_slice(&times);
+        self.values.extend((0..readings.len()).map(|i| {
+            if readings.is_null(i) {
+                f64::NAN
+            } else {
+                readings.value(i)
+            }
+        }));
+        Ok(())
+    }
+
+    fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
+        let (times, values) = (states[0].as_list::<i32>(), states[1].as_list::<i32>());
+        for row in 0..times.len() {
+            if times.is_null(row) {
+                continue;
+            }
+            let t = times.value(row);
+            let v = values.value(row);
+            self.times
+                .extend_from_slice(t.as_primitive::<Int64Type>().values());
+            let v = v.as_primitive::<Float64Type>();
+            self.values
+                .extend((0..v.len()).map(|i| if v.is_null(i) { f64::NAN } else { v.value(i) }));
+        }
+        Ok(())
+    }
+
+    fn state(&mut self) -> Result<Vec<ScalarValue>> {
+        let times: ArrayRef = Arc::new(datafusion::arrow::array::Int64Array::from(std::mem::take(
+            &mut self.times,
+        )));
+        let values: ArrayRef = Arc::new(datafusion::arrow::array::Float64Array::from(
+            std::mem::take(&mut self.values),
+        ));
+        Ok(vec![
+            SingleRowListArrayBuilder::new(times).build_list_scalar(),
+            SingleRowListArrayBuilder::new(values).build_list_scalar(),
+        ])
+    }
+
+    fn evaluate(&mut self) -> Result<ScalarValue> {
+        let outcome = run(&self.task, &self.times, &self.values);
+        let array = match self.task.job {
+            Job::Fit | Job::Choose => model_row(outcome),
+            Job::Ahead => ahead_row(outcome, &self.task),
+            Job::Check => check_row(outcome),
+        }?;
+        Ok(ScalarValue::Struct(Arc::new(array)))
+    }
+
+    fn size(&self) -> usize {
+        std::mem::size_of_val(self)
+            + self.times.capacity() * std::mem::size_of::<i64>()
+            + self.values.capacity() * std::mem::size_of::<f64>()
+            + self.task.levels.capacity() * std::mem::size_of::<f64>()
+    }
+}
+
+/// What one group comes to.
+struct Outcome {
+    model: FittedModel,
+    note: Option<String>,
+    present: usize,
+    missing: usize,
+}
+
+fn run(task: &Task, times: &[i64], values: &[f64]) -> std::result::Result<Outcome, String> {
+    if times.is_empty() {
+        return Err("the group has no readings".into());
+    }
+    let grid = lagwise::place_on_grid(times, values, &task.grid).map_err(|e| e.to_string())?;
+    let present = grid.values.iter().filter(|v| !v.is_nan()).count();
+    let missing = grid.values.len() - present;
+    let (model, note) = match (&task.blueprint, task.job) {
+        (_, Job::Choose) => {
+            let mut settings = SearchSettings::builder();
+            settings.period(task.period);
+            let settings = settings.build().map_err(|e| e.to_string())?;
+            let out = lagwise::search_orders(&grid.values, &settings).map_err(|e| e.to_string())?;
+            (out.model, Some(out.explanation))
+        }
+        (Some(bp), _) => (bp.fit(&grid.values).map_err(|e| e.to_string())?, None),
+        (None, _) => return Err("no blueprint".into()),
+    };
+    Ok(Outcome {
+        model: model.with_time_axis(grid.axis),
+        note,
+        present,
+        missing,
+    })
+}
+
+fn one_row(fields: Fields, build: impl FnOnce(&mut StructBuilder)) -> Result<StructArray> {
+    let mut b = StructBuilder::from_fields(fields, 1);
+    build(&mut b);
+    b.append(true);
+    Ok(b.finish())
+}
+
+fn model_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArray> {
+    one_row(model_fields(), |b| {
+        let (o, err) = match &outcome {
+            Ok(o) => (Some(o), None),
+            Err(e) => (None, Some(e.as_str())),
+        };
+        let m = o.map(|o| &o.model);
+        let check = m.and_then(|m| m.residual_check(m.default_check_lags(), 0.05).ok());
+        let criteria = m.and_then(|m| m.criteria().ok());
+        b.field_builder::<StringBuilder>(0)
+            .expect("model")
+            .append_option(m.map(|m| m.blueprint().shape_label()));
+        {
+            let list = b
+                .field_builder::<ListBuilder<Box<dyn datafusion::arrow::array::ArrayBuilder>>>(1)
+                .expect("coefficients");
+            match m {
+                Some(m) => {
+                    let items = list
+                        .values()
+                        .as_any_mut()
+                        .downcast_mut::<StructBuilder>()
+                        .expect("coefficient struct");
+                    for c in m.coefficients() {
+                        items
+                            .field_builder::<StringBuilder>(0)
+                            .expect("term")
+                            .append_value(c.term.to_string());
+                        items
+                            .field_builder::<Float64Builder>(1)
+                            .expect("value")
+                            .append_value(c.value);
+                        items
+                            .field_builder::<Float64Builder>(2)
+                            .expect("se")
+                            .append_option(c.std_error);
+                        items.append(true);
+                    }
+                    list.append(true);
+                }
+                None => list.append(false),
+            }
+        }
+        let f = |b: &mut StructBuilder, i: usize, v: Option<f64>| {
+            b.field_builder::<Float64Builder>(i)
+                .expect("float")
+                .append_option(v);
+        };
+        f(b, 2, m.map(|m| m.innovation_variance()));
+        f(b, 3, m.map(|m| m.log_likelihood().value()));
+        f(b, 4, criteria.as_ref().and_then(|c| c.akaike_corrected));
+        f(b, 5, criteria.as_ref().map(|c| c.schwarz));
+        b.field_builder::<BooleanBuilder>(6)
+            .expect("white")
+            .append_option(check.as_ref().map(|c| c.white));
+        f(
+            b,
+            7,
+            check.as_ref().and_then(|c| {
+                c.portmanteau
+                    .rows()
+                    .last()
+                    .and_then(|r| r.ljung_box_p_value)
+            }),
+        );
+        let i = |b: &mut StructBuilder, k: usize, v: Option<usize>| {
+            b.field_builder::<Int64Builder>(k)
+                .expect("integer")
+                .append_option(v.map(|v| v as i64));
+        };
+        i(b, 8, o.map(|o| o.present));
+        i(b, 9, o.map(|o| o.missing));
+        b.field_builder::<StringBuilder>(10)
+            .expect("stored")
+            .append_option(m.and_then(|m| lagwise::model_to_json(m).ok()));
+        b.field_builder::<StringBuilder>(11)
+            .expect("note")
+            .append_option(o.and_then(|o| o.note.clone()));
+        b.field_builder::<StringBuilder>(12)
+            .expect("error")
+            .append_option(err);
+    })
+}
+
+fn ahead_row(outcome: std::result::Result<Outcome, String>, task: &Task) -> Result<StructArray> {
+    let forecast = outcome.and_then(|o| {
+        o.model
+            .forecast(task.horizon, &task.levels)
+            .map_err(|e| e.to_string())
+    });
+    one_row(ahead_fields(), |b| {
+        {
+            let list = b
+                .field_builder::<ListBuilder<Box<dyn datafusion::arrow::array::ArrayBuilder>>>(0)
+                .expect("steps");
+            match &forecast {
+                Ok(fc) => {
+                    let items = list
+                        .values()
+                        .as_any_mut()
+                        .downcast_mut::<StructBuilder>()
+                        .expect("step struct");
+                    for s in &fc.steps {
+                        items
+                            .field_builder::<Int64Builder>(0)
+                            .expect("step")
+                            .append_value(s.step as i64);
+                        items
+                            .field_builder::<TimestampMillisecondBuilder>(1)
+                            .expect("at")
+                            .append_option(s.time_ms);
+                        items
+                            .field_builder::<Float64Builder>(2)
+                            .expect("mean")
+                            .append_value(s.mean);
+                        items
+                            .field_builder::<Float64Builder>(3)
+                            .expect("sd")
+                            .append_value(s.sd);
+                        for (k, bound) in [(4, true), (5, false)] {
+                            let l = items
+                                .field_builder::<ListBuilder<Box<dyn datafusion::arrow::array::ArrayBuilder>>>(k)
+                                .expect("bounds");
+                            let vals = l
+                                .values()
+                                .as_any_mut()
+                                .downcast_mut::<Float64Builder>()
+                                .expect("bound values");
+                            for i in &s.intervals {
+                                vals.append_value(if bound { i.lower } else { i.upper });
+                            }
+                            l.append(true);
+                        }
+                        items.append(true);
+                    }
+                    list.append(true);
+                }
+                Err(_) => list.append(false),
+            }
+        }
+        b.field_builder::<StringBuilder>(1)
+            .expect("error")
+            .append_option(forecast.as_ref().err());
+    })
+}
+
+fn check_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArray> {
+    let check = outcome.and_then(|o| {
+        let m = &o.model;
+        m.residual_check(m.default_check_lags(), 0.05)
+            .map_err(|e| e.to_string())
+    });
+    one_row(check_fields(), |b| {
+        let c = check.as_ref().ok();
+        b.field_builder::<BooleanBuilder>(0)
+            .expect("white")
+            .append_option(c.map(|c| c.white));
+        b.field_builder::<Float64Builder>(1)
+            .expect("p")
+            .append_option(c.and_then(|c| {
+                c.portmanteau
+                    .rows()
+                    .last()
+                    .and_then(|r| r.ljung_box_p_value)
+            }));
+        b.field_builder::<Int64Builder>(2)
+            .expect("lags")
+            .append_option(c.map(|c| c.portmanteau.rows().len() as i64));
+        b.field_builder::<Float64Builder>(3)
+            .expect("normality")
+            .append_option(c.and_then(|c| c.normality.as_ref().map(|t| t.p_value)));
+        b.field_builder::<Float64Builder>(4)
+            .expect("variance")
+            .append_option(c.and_then(|c| c.variance_change.as_ref().map(|t| t.p_value)));
+        b.field_builder::<StringBuilder>(5)
+            .expect("verdict")
+            .append_option(c.map(|c| c.verdict_line()));
+        b.field_builder::<StringBuilder>(6)
+            .expect("error")
+            .append_option(check.as_ref().err());
+    })
+}
+
+impl Hash for Task {
+    fn hash<H: Hasher>(&self, state: &mut H) {
+        self.job.hash(state);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use datafusion::arrow::array::{Float64Array, Int64Array};
+
+    /// The memory the accumulator reports covers what it holds: 16 bytes per reading
+    /// (time and value) at least, and not more than twice that plus its fixed part.
+    #[test]
+    fn size_counts_the_readings_held() {
+        let task = Task {
+            job: Job::Fit,
+            grid: GridSettings::builder(1_000).build().unwrap(),
+            blueprint: None,
+            period: 1,
+            horizon: 0,
+            levels: Vec::new(),
+        };
+        let mut acc = SeriesAccumulator {
+            task,
+            times: Vec::new(),
+            values: Vec::new(),
+        };
+        let empty = acc.size();
+        let n = 10_000;
+        let times: ArrayRef = Arc::new(Int64Array::from_iter_values(0..n as i64));
+        let values: ArrayRef = Arc::new(Float64Array::from_iter_values((0..n).map(|i| i as f64)));
+        acc.update_batch(&[times, values]).unwrap();
+        let held = acc.size() - empty;
+        assert!(held >= 16 * n, "{held}");
+        assert!(held <= 32 * n, "{held}");
+        // The state hands the readings over and the accumulator shrinks back.
+        let state = acc.state().unwrap();
+        assert_eq!(state.len(), 2);
+        assert_eq!(acc.size(), empty);
+    }
+}

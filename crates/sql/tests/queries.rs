@@ -1,0 +1,364 @@
+//! The SQL functions against the in-process library: every tag's fit and forecast from a
+//! `GROUP BY` query (several partitions, so partial states are merged) equals, bitwise,
+//! the same readings placed on the grid and fitted by lagwise directly; Parquet input
+//! (strings as `Utf8View`); errors for bad settings, and per-group error texts.
+
+use std::sync::Arc;
+
+use datafusion::arrow::array::{
+    Array, AsArray, Float64Array, RecordBatch, StringArray, StructArray, TimestampMillisecondArray,
+};
+use datafusion::arrow::datatypes::{DataType, Field, Float64Type, Int64Type, Schema, TimeUnit};
+use datafusion::datasource::MemTable;
+use datafusion::prelude::{ParquetReadOptions, SessionConfig, SessionContext};
+use lagwise::{Blueprint, GridSettings, Simulator};
+
+const CADENCE: i64 = 900_000;
+const ORIGIN: i64 = 1_795_996_800_000; // 2026-11-30 00:00 UTC
+
+/// One tag's readings as the library sees them: name, epoch ms, values (NaN = missing).
+type TagSeries = (String, Vec<i64>, Vec<f64>);
+
+/// `tags` tags of `n` readings each, rows shuffled (out of time order), a few missing.
+fn readings(tags: usize, n: usize) -> (RecordBatch, Vec<TagSeries>) {
+    let sim = Simulator::builder()
+        .autoregressive(&[0.7])
+        .level(52.0)
+        .innovation_sd(0.3)
+        .build()
+        .unwrap();
+    let mut rows: Vec<(String, i64, Option<f64>)> = Vec::new();
+    let mut truth = Vec::new();
+    for k in 0..tags {
+        let tag = format!("KB-SS{:04}-TR", 400 + k);
+        let x = sim.generate(n, 70 + k as u64);
+        let times: Vec<i64> = (0..n as i64).map(|i| ORIGIN + i * CADENCE).collect();
+        let values: Vec<f64> = x
+            .iter()
+            .enumerate()
+            .map(|(i, v)| if (i + k) % 97 == 0 { f64::NAN } else { *v })
+            .collect();
+        for i in 0..n {
+            rows.push((
+                tag.clone(),
+                times[i],
+                (!values[i].is_nan()).then_some(values[i]),
+            ));
+        }
+        truth.push((tag, times, values));
+    }
+    // A fixed shuffle: rows arrive out of order across tags and times.
+    let len = rows.len();
+    for i in 0..len {
+        rows.swap(i, (i * 7_919 + 13) % len);
+    }
+    let schema = Arc::new(Schema::new(vec![
+        Field::new("tag", DataType::Utf8, false),
+        Field::new(
+            "ts",
+            DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into())),
+            false,
+        ),
+        Field::new("value", DataType::Float64, true),
+    ]));
+    let batch = RecordBatch::try_new(
+        schema,
+        vec![
+            Arc::new(StringArray::from_iter_values(
+                rows.iter().map(|r| r.0.as_str()),
+            )),
+            Arc::new(
+                TimestampMillisecondArray::from_iter_values(rows.iter().map(|r| r.1))
+                    .with_timezone("UTC"),
+            ),
+            Arc::new(Float64Array::from_iter(rows.iter().map(|r| r.2))),
+        ],
+    )
+    .unwrap();
+    (batch, truth)
+}
+
+fn context(partitions: usize) -> SessionContext {
+    let ctx = SessionContext::new_with_config(
+        SessionConfig::new()
+            .with_target_partitions(partitions)
+            .with_batch_size(512),
+    );
+    lagwise_sql::register(&ctx);
+    ctx
+}
+
+fn blueprint() -> (Blueprint, String) {
+    let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
+    let json = lagwise::blueprint_to_json(&bp).unwrap();
+    (bp, json)
+}
+
+async fn rows_of(ctx: &SessionContext, sql: &str) -> Vec<RecordBatch> {
+    ctx.sql(sql).await.unwrap().collect().await.unwrap()
+}
+
+fn own_fit(bp: &Blueprint, times: &[i64], values: &[f64]) -> lagwise::FittedModel {
+    let grid = lagwise::place_on_grid(
+        times,
+        values,
+        &GridSettings::builder(CADENCE).build().unwrap(),
+    )
+    .unwrap();
+    bp.fit(&grid.values).unwrap().with_time_axis(grid.axis)
+}
+
+#[tokio::test]
+async fn fits_equal_the_library_bitwise() {
+    let (batch, truth) = readings(24, 600);
+    let ctx = context(4);
+    // Two batches in separate partitions of a memory table: the aggregate runs in
+    // partial and final stages and merges states.
+    let half = batch.num_rows() / 2;
+    let table = MemTable::try_new(
+        batch.schema(),
+        vec![
+            vec![batch.slice(0, half)],
+            vec![batch.slice(half, batch.num_rows() - half)],
+        ],
+    )
+    .unwrap();
+    ctx.register_table("readings", Arc::new(table)).unwrap();
+    let (bp, json) = blueprint();
+    let sql = format!(
+        "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE}) AS fit FROM readings GROUP BY tag ORDER BY tag"
+    );
+    // The plan aggregates in two stages (partial states merged after repartitioning by
+    // tag) and sorts only the output rows, never the readings.
+    let plan = rows_of(&ctx, &format!("EXPLAIN {sql}")).await;
+    let plan = datafusion::arrow::util::pretty::pretty_format_batches(&plan)
+        .unwrap()
+        .to_string();
+    assert!(plan.contains("mode=Partial"), "{plan}");
+    assert!(plan.contains("mode=FinalPartitioned"), "{plan}");
+    let sorts = plan.matches("SortExec").count() + plan.matches("SortPreservingMergeExec").count();
+    assert!(sorts <= 2, "{plan}");
+    assert!(!plan.contains("SortExec: expr=[ts"), "{plan}");
+    let out = rows_of(&ctx, &sql).await;
+    let mut seen = 0;
+    for b in &out {
+        let tags = b.column(0).as_string::<i32>();
+        let fit = b.column(1).as_struct();
+        for r in 0..b.num_rows() {
+            let (tag, times, values) = truth.iter().find(|t| t.0 == tags.value(r)).unwrap();
+            let own = own_fit(&bp, times, values);
+            let field = |name: &str| fit.column_by_name(name).unwrap().clone();
+            assert!(field("error").is_null(r), "{tag}");
+            let coefs = field("coefficients");
+            let coefs = coefs.as_list::<i32>().value(r);
+            let coefs: &StructArray = coefs.as_struct();
+            let vals = coefs
+                .column_by_name("value")
+                .unwrap()
+                .as_primitive::<Float64Type>();
+            assert_eq!(vals.len(), own.coefficients().len());
+            for (i, c) in own.coefficients().iter().enumerate() {
+                assert_eq!(
+                    vals.value(i).to_bits(),
+                    c.value.to_bits(),
+                    "{tag} {}",
+                    c.term
+                );
+            }
+            let sigma2 = field("sigma2");
+            assert_eq!(
+                sigma2.as_primitive::<Float64Type>().value(r).to_bits(),
+                own.innovation_variance().to_bits()
+            );
+            let readings = field("readings");
+            assert_eq!(
+                readings.as_primitive::<Int64Type>().value(r) as usize,
+                values.iter().filter(|v| !v.is_nan()).count()
+            );
+            // The stored model restores and forecasts like the library's own.
+            let stored = field("stored");
+            let back = lagwise::model_from_json(stored.as_string::<i32>().value(r)).unwrap();
+            assert_eq!(
+                back.forecast(3, &[0.9]).unwrap(),
+                own.forecast(3, &[0.9]).unwrap()
+            );
+            seen += 1;
+        }
+    }
+    assert_eq!(seen, 24);
+}
+
+#[tokio::test]
+async fn forecasts_from_parquet_equal_the_library() {
+    let (batch, truth) = readings(6, 400);
+    let dir = std::env::temp_dir().join(format!("lagwise-sql-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let file = dir.join("part-0.parquet");
+    let mut writer = datafusion::parquet::arrow::ArrowWriter::try_new(
+        std::fs::File::create(&file).unwrap(),
+        batch.schema(),
+        None,
+    )
+    .unwrap();
+    writer.write(&batch).unwrap();
+    writer.close().unwrap();
+    let ctx = context(3);
+    ctx.register_parquet(
+        "readings",
+        dir.to_str().unwrap(),
+        ParquetReadOptions::default(),
+    )
+    .await
+    .unwrap();
+    let (bp, json) = blueprint();
+    let out = rows_of(
+        &ctx,
+        &format!(
+            "SELECT tag, s.step, s.at, s.mean, s.lower[2] AS low95 FROM (
+               SELECT tag, unnest(lw_ahead(ts, value, '{json}', {CADENCE}, 96, '[0.8, 0.95]')['steps']) AS s
+               FROM readings GROUP BY tag) ORDER BY tag, s.step"
+        ),
+    )
+    .await;
+    let total: usize = out.iter().map(|b| b.num_rows()).sum();
+    assert_eq!(total, 6 * 96);
+    for b in &out {
+        let tags = b.column(0).as_string_view_or_utf8();
+        for r in 0..b.num_rows() {
+            let tag = tags(r);
+            let (_, times, values) = truth.iter().find(|t| t.0 == tag).unwrap();
+            let own = own_fit(&bp, times, values)
+                .forecast(96, &[0.8, 0.95])
+                .unwrap();
+            let step = b.column(1).as_primitive::<Int64Type>().value(r) as usize;
+            let s = &own.steps[step - 1];
+            assert_eq!(
+                b.column(3).as_primitive::<Float64Type>().value(r).to_bits(),
+                s.mean.to_bits()
+            );
+            assert_eq!(
+                b.column(4).as_primitive::<Float64Type>().value(r).to_bits(),
+                s.intervals[1].lower.to_bits()
+            );
+            let at = b
+                .column(2)
+                .as_primitive::<datafusion::arrow::datatypes::TimestampMillisecondType>();
+            assert_eq!(Some(at.value(r)), s.time_ms);
+        }
+    }
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+trait TagText {
+    fn as_string_view_or_utf8(&self) -> Box<dyn Fn(usize) -> String + '_>;
+}
+
+impl TagText for Arc<dyn Array> {
+    fn as_string_view_or_utf8(&self) -> Box<dyn Fn(usize) -> String + '_> {
+        match self.data_type() {
+            DataType::Utf8View => {
+                let a = self.as_string_view();
+                Box::new(move |i| a.value(i).to_string())
+            }
+            DataType::LargeUtf8 => {
+                let a = self.as_string::<i64>();
+                Box::new(move |i| a.value(i).to_string())
+            }
+            _ => {
+                let a = self.as_string::<i32>();
+                Box::new(move |i| a.value(i).to_string())
+            }
+        }
+    }
+}
+
+#[tokio::test]
+async fn bad_settings_fail_the_query_and_bad_groups_their_row() {
+    let (batch, _) = readings(3, 200);
+    let ctx = context(2);
+    ctx.register_batch("readings", batch).unwrap();
+    let (_, json) = blueprint();
+    let fails = |sql: String| {
+        let ctx = ctx.clone();
+        async move {
+            match ctx.sql(&sql).await {
+                Err(e) => e.to_string(),
+                Ok(df) => match df.collect().await {
+                    Err(e) => e.to_string(),
+                    Ok(_) => panic!("query succeeded: {sql}"),
+                },
+            }
+        }
+    };
+    let e = fails(format!(
+        "SELECT tag, lw_fit(ts, value, '{{\"not\": 1}}', {CADENCE}) FROM readings GROUP BY tag"
+    ))
+    .await;
+    assert!(e.contains("blueprint"), "{e}");
+    let e = fails(format!(
+        "SELECT tag, lw_fit(ts, value, '{json}', 0) FROM readings GROUP BY tag"
+    ))
+    .await;
+    assert!(e.contains("cadence"), "{e}");
+    let e = fails(format!(
+        "SELECT tag, lw_ahead(ts, value, '{json}', {CADENCE}, 4, '[1.5]') FROM readings GROUP BY tag"
+    ))
+    .await;
+    assert!(e.contains("levels"), "{e}");
+    let e = fails(format!(
+        "SELECT tag, lw_fit(ts, value, tag, {CADENCE}) FROM readings GROUP BY tag"
+    ))
+    .await;
+    assert!(e.contains("constant"), "{e}");
+    let e = fails(format!(
+        "SELECT tag, lw_fit(tag, value, '{json}', {CADENCE}) FROM readings GROUP BY tag"
+    ))
+    .await;
+    assert!(e.contains("time column"), "{e}");
+    // A group whose readings are all missing: its own row says why; the others fit.
+    let out = rows_of(
+        &ctx,
+        &format!(
+            "SELECT tag, lw_fit(ts, CASE WHEN tag = 'KB-SS0401-TR' THEN NULL ELSE value END, '{json}', {CADENCE})['error'] AS error
+             FROM readings GROUP BY tag ORDER BY tag"
+        ),
+    )
+    .await;
+    let errors: Vec<Option<String>> = out
+        .iter()
+        .flat_map(|b| {
+            let e = b.column(1).as_string::<i32>();
+            (0..b.num_rows())
+                .map(|i| (!e.is_null(i)).then(|| e.value(i).to_string()))
+                .collect::<Vec<_>>()
+        })
+        .collect();
+    assert_eq!(errors.len(), 3);
+    assert!(errors[0].is_none() && errors[2].is_none());
+    assert!(
+        errors[1].as_deref().is_some_and(|e| e.contains("missing")),
+        "{errors:?}"
+    );
+}
+
+#[tokio::test]
+async fn order_search_and_residual_check_run_per_tag() {
+    let (batch, _) = readings(2, 500);
+    let ctx = context(2);
+    ctx.register_batch("readings", batch).unwrap();
+    let (_, json) = blueprint();
+    let out = rows_of(
+        &ctx,
+        &format!(
+            "SELECT tag, lw_choose(ts, value, {CADENCE}, 1)['model'] AS chosen,
+                    lw_check(ts, value, '{json}', {CADENCE})['white'] AS white
+             FROM readings GROUP BY tag ORDER BY tag"
+        ),
+    )
+    .await;
+    let b = &out[0];
+    assert_eq!(b.num_rows(), 2);
+    let chosen = b.column(1).as_string::<i32>();
+    assert!(chosen.value(0).starts_with("ARMA"), "{}", chosen.value(0));
+    assert!(!b.column(2).is_null(0));
+}
