@@ -13,6 +13,7 @@
 //! | `lw_choose` | `ts, value, cadence_ms, period` | a model row for the order search's choice |
 //! | `lw_ahead` | `ts, value, blueprint, cadence_ms, horizon, levels` | `{steps, error}`: one step per horizon step with its UTC time, mean, sd and bounds per level |
 //! | `lw_check` | `ts, value, blueprint, cadence_ms` | the residual check: whiteness, normality, changing variance, verdict |
+//! | `lw_watch` (window) | `ts, value, stored, alarm_level` | per new reading: prediction, sd, interval, z, outside, slot (see [`watch_function`]) |
 //!
 //! `ts` is a timestamp column of any unit (or `BIGINT` epoch milliseconds); `value` any
 //! numeric column, `NULL` = a missing reading; `blueprint` the persisted blueprint text
@@ -41,8 +42,10 @@ use datafusion::arrow::datatypes::{
 use datafusion::common::utils::SingleRowListArrayBuilder;
 use datafusion::common::{DataFusionError, Result, ScalarValue, exec_err, plan_err};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
+use datafusion::logical_expr::function::{PartitionEvaluatorArgs, WindowUDFFieldArgs};
 use datafusion::logical_expr::{
-    Accumulator, AggregateUDF, AggregateUDFImpl, Signature, Volatility,
+    Accumulator, AggregateUDF, AggregateUDFImpl, PartitionEvaluator, Signature, Volatility,
+    WindowUDF, WindowUDFImpl,
 };
 use datafusion::physical_expr::expressions::Literal;
 use datafusion::prelude::SessionContext;
@@ -62,6 +65,7 @@ pub fn register(ctx: &SessionContext) {
     for f in functions() {
         ctx.register_udaf(f);
     }
+    ctx.register_udwf(watch_function());
 }
 
 /// Which job a function does.
@@ -760,6 +764,151 @@ fn check_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArra
 impl Hash for Task {
     fn hash<H: Hasher>(&self, state: &mut H) {
         self.job.hash(state);
+    }
+}
+
+/// The window function `lw_watch(ts, value, stored, alarm_level) OVER (PARTITION BY tag
+/// ORDER BY ts)`: each new reading checked against its one-step prediction interval by a
+/// monitor that starts where the stored model's series ended (`stored` is `lw_fit`'s
+/// `stored` field, e.g. joined from a models table). Rows are placed on the model's time
+/// axis by their times (slots without a row are missing readings, so the monitor's time
+/// runs on); a row at or before a slot already seen, or a partition without a usable
+/// model, gets a null result.
+pub fn watch_function() -> WindowUDF {
+    WindowUDF::from(WatchFunction {
+        signature: Signature::user_defined(Volatility::Immutable),
+    })
+}
+
+/// The fields of each `lw_watch` row.
+pub const WATCH_FIELDS: [&str; 7] = ["predicted", "sd", "lower", "upper", "z", "outside", "at"];
+
+fn watch_fields() -> Fields {
+    Fields::from(vec![
+        Field::new("predicted", DataType::Float64, true),
+        Field::new("sd", DataType::Float64, true),
+        Field::new("lower", DataType::Float64, true),
+        Field::new("upper", DataType::Float64, true),
+        Field::new("z", DataType::Float64, true),
+        Field::new("outside", DataType::Boolean, true),
+        Field::new("at", DataType::Int64, true),
+    ])
+}
+
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+struct WatchFunction {
+    signature: Signature,
+}
+
+impl WindowUDFImpl for WatchFunction {
+    fn name(&self) -> &str {
+        "lw_watch"
+    }
+    fn signature(&self) -> &Signature {
+        &self.signature
+    }
+    fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
+        if arg_types.len() != 4 {
+            return plan_err!(
+                "lw_watch takes (ts, value, stored model, alarm level); {} arguments given",
+                arg_types.len()
+            );
+        }
+        let ts = match &arg_types[0] {
+            DataType::Timestamp(_, _) | DataType::Int64 => arg_types[0].clone(),
+            other => {
+                return plan_err!(
+                    "lw_watch: the time column must be a timestamp or BIGINT epoch milliseconds, not {other}"
+                );
+            }
+        };
+        if !matches!(
+            arg_types[2],
+            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View
+        ) {
+            return plan_err!(
+                "lw_watch: the stored model must be text, not {}",
+                arg_types[2]
+            );
+        }
+        Ok(vec![
+            ts,
+            DataType::Float64,
+            DataType::Utf8,
+            DataType::Float64,
+        ])
+    }
+    fn partition_evaluator(
+        &self,
+        _args: PartitionEvaluatorArgs,
+    ) -> Result<Box<dyn PartitionEvaluator>> {
+        Ok(Box::new(WatchEvaluator))
+    }
+    fn field(&self, field_args: WindowUDFFieldArgs) -> Result<FieldRef> {
+        Ok(Arc::new(Field::new(
+            field_args.name(),
+            DataType::Struct(watch_fields()),
+            true,
+        )))
+    }
+}
+
+#[derive(Debug)]
+struct WatchEvaluator;
+
+impl PartitionEvaluator for WatchEvaluator {
+    fn evaluate_all(&mut self, values: &[ArrayRef], num_rows: usize) -> Result<ArrayRef> {
+        let times = times_ms(&values[0], "lw_watch")?;
+        let readings = datafusion::arrow::compute::cast(&values[1], &DataType::Float64)?;
+        let readings = readings.as_primitive::<Float64Type>();
+        let stored = datafusion::arrow::compute::cast(&values[2], &DataType::Utf8)?;
+        let stored = stored.as_string::<i32>();
+        let levels = datafusion::arrow::compute::cast(&values[3], &DataType::Float64)?;
+        let levels = levels.as_primitive::<Float64Type>();
+        // The partition's model: its first non-null stored text and alarm level.
+        let first = (0..num_rows).find(|&i| !stored.is_null(i) && !levels.is_null(i));
+        let monitor = first.and_then(|i| {
+            let model = lagwise::model_from_json(stored.value(i)).ok()?;
+            let axis = model.time_axis()?;
+            Some((model.monitor(levels.value(i)).ok()?, axis))
+        });
+        let mut b = StructBuilder::from_fields(watch_fields(), num_rows);
+        let mut watch = monitor;
+        for row in 0..num_rows {
+            let check = watch.as_mut().and_then(|(m, axis)| {
+                let (slot, _) = axis.nearest_slot(times[row])?;
+                if slot < m.next_index() {
+                    return None;
+                }
+                while m.next_index() < slot {
+                    m.observe(f64::NAN).ok()?;
+                }
+                let v = if readings.is_null(row) {
+                    f64::NAN
+                } else {
+                    readings.value(row)
+                };
+                m.observe(v).ok()
+            });
+            let f = |b: &mut StructBuilder, k: usize, v: Option<f64>| {
+                b.field_builder::<Float64Builder>(k)
+                    .expect("float")
+                    .append_option(v);
+            };
+            f(&mut b, 0, check.map(|c| c.predicted));
+            f(&mut b, 1, check.map(|c| c.sd));
+            f(&mut b, 2, check.map(|c| c.lower));
+            f(&mut b, 3, check.map(|c| c.upper));
+            f(&mut b, 4, check.and_then(|c| c.standardized));
+            b.field_builder::<BooleanBuilder>(5)
+                .expect("outside")
+                .append_option(check.map(|c| c.outside));
+            b.field_builder::<Int64Builder>(6)
+                .expect("at")
+                .append_option(check.map(|c| c.index as i64));
+            b.append(true);
+        }
+        Ok(Arc::new(b.finish()))
     }
 }
 

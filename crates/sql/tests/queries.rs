@@ -362,3 +362,87 @@ async fn order_search_and_residual_check_run_per_tag() {
     assert!(chosen.value(0).starts_with("ARMA"), "{}", chosen.value(0));
     assert!(!b.column(2).is_null(0));
 }
+
+/// `lw_watch` over new readings joined with the stored models from `lw_fit`: every
+/// check equals the library's monitor on the same readings (a dropped row is a missing
+/// reading; a spike breaks its interval).
+#[tokio::test]
+async fn watching_new_readings_equals_the_library_monitor() {
+    let (batch, truth) = readings(4, 700);
+    let ctx = context(3);
+    ctx.register_batch("everything", batch).unwrap();
+    let (bp, json) = blueprint();
+    let split = ORIGIN + 600 * CADENCE;
+    rows_of(
+        &ctx,
+        &format!(
+            "CREATE TABLE models AS SELECT tag, lw_fit(ts, value, '{json}', {CADENCE})['stored'] AS stored
+             FROM everything WHERE ts < to_timestamp_millis({split}) GROUP BY tag"
+        ),
+    )
+    .await;
+    // New readings: one row dropped (slot 650 of the first tag), one spike.
+    rows_of(
+        &ctx,
+        &format!(
+            "CREATE TABLE news AS SELECT tag, ts,
+                    CASE WHEN tag = 'KB-SS0401-TR' AND ts = to_timestamp_millis({spike}) THEN value + 5 ELSE value END AS value
+             FROM everything
+             WHERE ts >= to_timestamp_millis({split})
+               AND NOT (tag = 'KB-SS0400-TR' AND ts = to_timestamp_millis({gap}))",
+            spike = ORIGIN + 620 * CADENCE,
+            gap = ORIGIN + 650 * CADENCE
+        ),
+    )
+    .await;
+    let out = rows_of(
+        &ctx,
+        "SELECT n.tag, n.ts, lw_watch(n.ts, n.value, m.stored, 0.999)
+                OVER (PARTITION BY n.tag ORDER BY n.ts) AS w
+         FROM news n JOIN models m ON n.tag = m.tag ORDER BY n.tag, n.ts",
+    )
+    .await;
+    let mut checked = 0;
+    let mut outside = 0;
+    for (tag, times, values) in &truth {
+        let own = own_fit(&bp, &times[..600], &values[..600]);
+        let mut monitor = own.monitor(0.999).unwrap();
+        let mut expected = Vec::new();
+        for i in 600..700 {
+            let mut v = values[i];
+            if tag == "KB-SS0401-TR" && i == 620 {
+                v += 5.0;
+            }
+            if tag == "KB-SS0400-TR" && i == 650 {
+                monitor.observe(f64::NAN).unwrap();
+                continue;
+            }
+            expected.push(monitor.observe(v).unwrap());
+        }
+        let mut got = Vec::new();
+        for b in &out {
+            let tags = b.column(0).as_string::<i32>();
+            let w = b.column(2).as_struct();
+            let predicted = w
+                .column_by_name("predicted")
+                .unwrap()
+                .as_primitive::<Float64Type>()
+                .clone();
+            let flags = w.column_by_name("outside").unwrap().as_boolean().clone();
+            for r in 0..b.num_rows() {
+                if tags.value(r) == tag {
+                    got.push((predicted.value(r), flags.value(r)));
+                }
+            }
+        }
+        assert_eq!(got.len(), expected.len(), "{tag}");
+        for (g, e) in got.iter().zip(&expected) {
+            assert_eq!(g.0.to_bits(), e.predicted.to_bits(), "{tag}");
+            assert_eq!(g.1, e.outside, "{tag}");
+            checked += 1;
+            outside += usize::from(g.1);
+        }
+    }
+    assert_eq!(checked, 4 * 100 - 1);
+    assert!(outside >= 1, "the spike broke no interval");
+}
