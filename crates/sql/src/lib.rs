@@ -9,7 +9,7 @@
 //!
 //! | function | arguments | returns |
 //! |---|---|---|
-//! | `lw_fit` | `ts, value, blueprint, cadence_ms` | a model row (see [`MODEL_FIELDS`]) |
+//! | `lw_fit` | `ts, value, blueprint, cadence_ms` | a model row: model, coefficients (term, value, se), sigma2, log_likelihood, aicc, bic, white, whiteness_p, readings, missing, stored, note, error |
 //! | `lw_choose` | `ts, value, cadence_ms, period` | a model row for the order search's choice |
 //! | `lw_ahead` | `ts, value, blueprint, cadence_ms, horizon, levels` | `{steps, error}`: one step per horizon step with its UTC time, mean, sd and bounds per level |
 //! | `lw_check` | `ts, value, blueprint, cadence_ms` | the residual check: whiteness, normality, changing variance, verdict |
@@ -96,22 +96,23 @@ impl Job {
     }
 }
 
-/// The fields of the row `lw_fit` and `lw_choose` return.
-pub const MODEL_FIELDS: [&str; 13] = [
-    "model",
-    "coefficients",
-    "sigma2",
-    "log_likelihood",
-    "aicc",
-    "bic",
-    "white",
-    "whiteness_p",
-    "readings",
-    "missing",
-    "stored",
-    "note",
-    "error",
-];
+/// Nullable fields from (name, type) pairs.
+fn nullable(spec: Vec<(&str, DataType)>) -> Fields {
+    spec.into_iter()
+        .map(|(name, t)| Field::new(name, t, true))
+        .collect()
+}
+
+/// The time argument's type: any timestamp, or integers as epoch milliseconds.
+fn time_type(function: &str, t: &DataType) -> Result<DataType> {
+    match t {
+        DataType::Timestamp(_, _) | DataType::Int64 => Ok(t.clone()),
+        DataType::Int32 | DataType::UInt32 | DataType::UInt64 => Ok(DataType::Int64),
+        other => plan_err!(
+            "{function}: the time column must be a timestamp or BIGINT epoch milliseconds, not {other}"
+        ),
+    }
+}
 
 fn utc_ms() -> DataType {
     DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into()))
@@ -182,14 +183,14 @@ fn ahead_fields() -> Fields {
 }
 
 fn check_fields() -> Fields {
-    Fields::from(vec![
-        Field::new("white", DataType::Boolean, true),
-        Field::new("whiteness_p", DataType::Float64, true),
-        Field::new("lags", DataType::Int64, true),
-        Field::new("normality_p", DataType::Float64, true),
-        Field::new("variance_change_p", DataType::Float64, true),
-        Field::new("verdict", DataType::Utf8, true),
-        Field::new("error", DataType::Utf8, true),
+    nullable(vec![
+        ("white", DataType::Boolean),
+        ("whiteness_p", DataType::Float64),
+        ("lags", DataType::Int64),
+        ("normality_p", DataType::Float64),
+        ("variance_change_p", DataType::Float64),
+        ("verdict", DataType::Utf8),
+        ("error", DataType::Utf8),
     ])
 }
 
@@ -226,16 +227,7 @@ impl AggregateUDFImpl for SeriesFunction {
                 arg_types.len()
             );
         }
-        let ts = match &arg_types[0] {
-            DataType::Timestamp(_, _) | DataType::Int64 => arg_types[0].clone(),
-            DataType::Int32 | DataType::UInt32 | DataType::UInt64 => DataType::Int64,
-            other => {
-                return plan_err!(
-                    "{}: the time column must be a timestamp or BIGINT epoch milliseconds, not {other}",
-                    self.job.name()
-                );
-            }
-        };
+        let ts = time_type(self.job.name(), &arg_types[0])?;
         if !(arg_types[1].is_numeric() || arg_types[1] == DataType::Null) {
             return plan_err!(
                 "{}: the value column must be numeric, not {}",
@@ -780,18 +772,15 @@ pub fn watch_function() -> WindowUDF {
     })
 }
 
-/// The fields of each `lw_watch` row.
-pub const WATCH_FIELDS: [&str; 7] = ["predicted", "sd", "lower", "upper", "z", "outside", "at"];
-
 fn watch_fields() -> Fields {
-    Fields::from(vec![
-        Field::new("predicted", DataType::Float64, true),
-        Field::new("sd", DataType::Float64, true),
-        Field::new("lower", DataType::Float64, true),
-        Field::new("upper", DataType::Float64, true),
-        Field::new("z", DataType::Float64, true),
-        Field::new("outside", DataType::Boolean, true),
-        Field::new("at", DataType::Int64, true),
+    nullable(vec![
+        ("predicted", DataType::Float64),
+        ("sd", DataType::Float64),
+        ("lower", DataType::Float64),
+        ("upper", DataType::Float64),
+        ("z", DataType::Float64),
+        ("outside", DataType::Boolean),
+        ("at", DataType::Int64),
     ])
 }
 
@@ -814,14 +803,7 @@ impl WindowUDFImpl for WatchFunction {
                 arg_types.len()
             );
         }
-        let ts = match &arg_types[0] {
-            DataType::Timestamp(_, _) | DataType::Int64 => arg_types[0].clone(),
-            other => {
-                return plan_err!(
-                    "lw_watch: the time column must be a timestamp or BIGINT epoch milliseconds, not {other}"
-                );
-            }
-        };
+        let ts = time_type("lw_watch", &arg_types[0])?;
         if !matches!(
             arg_types[2],
             DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View
