@@ -55,24 +55,22 @@ pub(crate) fn screen(
     let mut lo8 = [f64::INFINITY; 8];
     let mut hi8 = [f64::NEG_INFINITY; 8];
     let mut big8 = [0.0f64; 8];
-    let chunks = values.chunks_exact(8);
-    let rest = chunks.remainder();
-    for c in chunks {
-        for k in 0..8 {
-            let v = c[k];
-            count[k] += u64::from(!v.is_nan());
-            lo8[k] = if v < lo8[k] { v } else { lo8[k] };
-            hi8[k] = if v > hi8[k] { v } else { hi8[k] };
-            let a = v.abs();
-            big8[k] = if a > big8[k] { a } else { big8[k] };
-        }
-    }
-    for (k, &v) in rest.iter().enumerate() {
+    let mut take = |k: usize, v: f64| {
         count[k] += u64::from(!v.is_nan());
         lo8[k] = if v < lo8[k] { v } else { lo8[k] };
         hi8[k] = if v > hi8[k] { v } else { hi8[k] };
         let a = v.abs();
         big8[k] = if a > big8[k] { a } else { big8[k] };
+    };
+    let chunks = values.chunks_exact(8);
+    let rest = chunks.remainder();
+    for c in chunks {
+        for k in 0..8 {
+            take(k, c[k]);
+        }
+    }
+    for (k, &v) in rest.iter().enumerate() {
+        take(k, v);
     }
     let present = count.iter().sum::<u64>() as usize;
     let lo = lo8.iter().fold(f64::INFINITY, |m, &v| m.min(v));
@@ -114,17 +112,19 @@ pub(crate) fn screen(
     let corr = lane_sum(values, |v| v * inv - mean_scaled);
     let mean = (mean_scaled + corr / m) * s1;
     let mut dev8 = [0.0f64; 8];
+    let mut spread = |k: usize, v: f64| {
+        let d = (v - mean).abs();
+        dev8[k] = if d > dev8[k] { d } else { dev8[k] };
+    };
     let chunks = values.chunks_exact(8);
     let rest = chunks.remainder();
     for c in chunks {
         for k in 0..8 {
-            let d = (c[k] - mean).abs();
-            dev8[k] = if d > dev8[k] { d } else { dev8[k] };
+            spread(k, c[k]);
         }
     }
     for (k, &v) in rest.iter().enumerate() {
-        let d = (v - mean).abs();
-        dev8[k] = if d > dev8[k] { d } else { dev8[k] };
+        spread(k, v);
     }
     let dev_max = dev8.iter().fold(0.0f64, |m, &v| m.max(v));
     let scale = power_of_two_at_least(dev_max);

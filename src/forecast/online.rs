@@ -484,7 +484,9 @@ impl ShiftState {
     ) -> Option<ShiftFinding> {
         self.settle(model, state);
         let earliest = p.earliest.max(self.starts[0]);
-        let pi = pi_weights(model, (now - earliest + 1) as usize);
+        // One set of π-weights serves the fits here and a settling shift's pattern.
+        let look = self.test.look_back;
+        let pi = pi_weights(model, ((now - earliest + 1) as usize).max(look));
         let spike_x = event_response(EventKind::AdditiveOutlier, &pi, 0.0);
         let shift_x = event_response(EventKind::LevelShift, &pi, 0.0);
         let kept = &self.kept;
@@ -550,14 +552,13 @@ impl ShiftState {
         let applied = match kind {
             EventKind::LevelShift if self.test.relevel => {
                 self.move_level(first, size);
-                let look = self.test.look_back;
                 self.settling = Some(Settling {
                     onset,
                     applied: size,
                     estimate: size,
                     sxe,
                     sxx: 1.0 / (se * se),
-                    pattern: event_response(EventKind::LevelShift, &pi_weights(model, look), 0.0),
+                    pattern: shift_x[..look].to_vec(),
                     until: (onset + look as u64).max(now + 1),
                 });
                 true

@@ -29,7 +29,7 @@
 //! between the partial and final stages is the two lists, and [`Accumulator::size`]
 //! counts their capacity so memory pools and spilling see the true cost.
 
-use std::hash::{Hash, Hasher};
+use std::hash::Hash;
 use std::sync::Arc;
 
 use datafusion::arrow::array::{
@@ -37,7 +37,7 @@ use datafusion::arrow::array::{
     StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
 };
 use datafusion::arrow::datatypes::{
-    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, TimeUnit, TimestampMillisecondType,
+    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, TimeUnit,
 };
 use datafusion::common::utils::SingleRowListArrayBuilder;
 use datafusion::common::{DataFusionError, Result, ScalarValue, exec_err, plan_err};
@@ -421,63 +421,45 @@ struct SeriesAccumulator {
 
 /// Epoch milliseconds from a timestamp or integer column; a null time is an error.
 fn times_ms(array: &ArrayRef, what: &str) -> Result<Vec<i64>> {
-    let ms = match array.data_type() {
-        DataType::Timestamp(TimeUnit::Millisecond, _) => array
-            .as_primitive::<TimestampMillisecondType>()
-            .values()
-            .to_vec(),
-        DataType::Timestamp(unit, _) => {
-            let per_ms: i64 = match unit {
-                TimeUnit::Second => return Ok(scale(array, 1_000)),
-                TimeUnit::Microsecond => 1_000,
-                TimeUnit::Nanosecond => 1_000_000,
-                TimeUnit::Millisecond => 1,
-            };
-            let raw = datafusion::arrow::compute::cast(array, &DataType::Int64)?;
-            raw.as_primitive::<Int64Type>()
-                .values()
-                .iter()
-                .map(|v| v.div_euclid(per_ms))
-                .collect()
-        }
-        DataType::Int64 => array.as_primitive::<Int64Type>().values().to_vec(),
-        other => return exec_err!("{what}: time column of type {other}"),
-    };
     if array.null_count() > 0 {
         return exec_err!("{what}: a reading has no time (NULL timestamp)");
     }
-    Ok(ms)
+    // (multiply, divide) from the column's unit to milliseconds.
+    let (up, down): (i64, i64) = match array.data_type() {
+        DataType::Timestamp(TimeUnit::Second, _) => (1_000, 1),
+        DataType::Timestamp(TimeUnit::Millisecond, _) | DataType::Int64 => (1, 1),
+        DataType::Timestamp(TimeUnit::Microsecond, _) => (1, 1_000),
+        DataType::Timestamp(TimeUnit::Nanosecond, _) => (1, 1_000_000),
+        other => return exec_err!("{what}: time column of type {other}"),
+    };
+    let raw = datafusion::arrow::compute::cast(array, &DataType::Int64)?;
+    Ok(raw
+        .as_primitive::<Int64Type>()
+        .values()
+        .iter()
+        .map(|v| v.saturating_mul(up).div_euclid(down))
+        .collect())
 }
 
-fn scale(array: &ArrayRef, factor: i64) -> Vec<i64> {
-    match datafusion::arrow::compute::cast(array, &DataType::Int64) {
-        Ok(raw) => raw
-            .as_primitive::<Int64Type>()
-            .values()
-            .iter()
-            .map(|v| v.saturating_mul(factor))
-            .collect(),
-        Err(_) => Vec::new(),
-    }
+/// Readings as `f64` from any numeric column, `NULL` as NaN (missing).
+fn readings_of(array: &ArrayRef) -> Result<Vec<f64>> {
+    let v = datafusion::arrow::compute::cast(array, &DataType::Float64)?;
+    let v = v.as_primitive::<Float64Type>();
+    Ok((0..v.len())
+        .map(|i| if v.is_null(i) { f64::NAN } else { v.value(i) })
+        .collect())
 }
 
 impl Accumulator for SeriesAccumulator {
     fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
         let what = self.task.job.name();
         let times = times_ms(&values[0], what)?;
-        let readings = datafusion::arrow::compute::cast(&values[1], &DataType::Float64)?;
-        let readings = readings.as_primitive::<Float64Type>();
+        let readings = readings_of(&values[1])?;
         if times.len() != readings.len() {
             return exec_err!("{what}: time and value columns differ in length");
         }
         self.times.extend_from_slice(&times);
-        self.values.extend((0..readings.len()).map(|i| {
-            if readings.is_null(i) {
-                f64::NAN
-            } else {
-                readings.value(i)
-            }
-        }));
+        self.values.extend_from_slice(&readings);
         Ok(())
     }
 
@@ -487,13 +469,9 @@ impl Accumulator for SeriesAccumulator {
             if times.is_null(row) {
                 continue;
             }
-            let t = times.value(row);
-            let v = values.value(row);
             self.times
-                .extend_from_slice(t.as_primitive::<Int64Type>().values());
-            let v = v.as_primitive::<Float64Type>();
-            self.values
-                .extend((0..v.len()).map(|i| if v.is_null(i) { f64::NAN } else { v.value(i) }));
+                .extend_from_slice(times.value(row).as_primitive::<Int64Type>().values());
+            self.values.extend(readings_of(&values.value(row))?);
         }
         Ok(())
     }
@@ -753,12 +731,6 @@ fn check_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArra
     })
 }
 
-impl Hash for Task {
-    fn hash<H: Hasher>(&self, state: &mut H) {
-        self.job.hash(state);
-    }
-}
-
 /// The window function `lw_watch(ts, value, stored, alarm_level) OVER (PARTITION BY tag
 /// ORDER BY ts)`: each new reading checked against its one-step prediction interval by a
 /// monitor that starts where the stored model's series ended (`stored` is `lw_fit`'s
@@ -841,8 +813,7 @@ struct WatchEvaluator;
 impl PartitionEvaluator for WatchEvaluator {
     fn evaluate_all(&mut self, values: &[ArrayRef], num_rows: usize) -> Result<ArrayRef> {
         let times = times_ms(&values[0], "lw_watch")?;
-        let readings = datafusion::arrow::compute::cast(&values[1], &DataType::Float64)?;
-        let readings = readings.as_primitive::<Float64Type>();
+        let readings = readings_of(&values[1])?;
         let stored = datafusion::arrow::compute::cast(&values[2], &DataType::Utf8)?;
         let stored = stored.as_string::<i32>();
         let levels = datafusion::arrow::compute::cast(&values[3], &DataType::Float64)?;
@@ -865,12 +836,7 @@ impl PartitionEvaluator for WatchEvaluator {
                 while m.next_index() < slot {
                     m.observe(f64::NAN).ok()?;
                 }
-                let v = if readings.is_null(row) {
-                    f64::NAN
-                } else {
-                    readings.value(row)
-                };
-                m.observe(v).ok()
+                m.observe(readings[row]).ok()
             });
             let f = |b: &mut StructBuilder, k: usize, v: Option<f64>| {
                 b.field_builder::<Float64Builder>(k)
