@@ -1,8 +1,8 @@
 #!/usr/bin/env bash
 # The project's one test command (README "Quick start"; .ci/run calls exactly this).
 # Formatting, lints, every test of every workspace crate (unit, integration, doc), a build
-# of every example and benchmark and the fuzz-corpus replay, and the demo's HTML page in a
-# headless browser. Needs a Rust toolchain, crates.io, Python 3, and Chromium (installed
+# of every example and benchmark and the fuzz-corpus replay, a Ballista cluster started
+# and stopped on loopback, and the demo's HTML page in a headless browser. Needs a Rust toolchain, crates.io, Python 3, and Chromium (installed
 # from the distribution's packages when absent).
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -12,6 +12,13 @@ echo "== clippy"
 cargo clippy --locked --workspace --all-targets -- -D warnings
 echo "== tests (unit, integration, examples)"
 cargo test --locked --workspace --lib --tests --examples --bins
+echo "== a Ballista cluster on loopback (scheduler and two executors as processes)"
+bash scripts/cluster_check.sh
+if pgrep -f target/debug/lagwise-node > /dev/null; then
+    echo "lagwise-node processes left running after the tests:" >&2
+    pgrep -af target/debug/lagwise-node >&2
+    exit 1
+fi
 echo "== doc tests"
 cargo test --locked --workspace --doc
 echo "== docs (warnings are errors)"

@@ -110,6 +110,8 @@ async fn main() -> Result<(), Box<dyn std::error::Error>> {
         .seasonal(0, 1, 1, 96)
         .build()?;
     let bp = lagwise::blueprint_to_json(&daily_cycle)?;
+    // The same text serves any other engine session (scripts/cluster_check.sh reads it).
+    println!("blueprint: {bp}");
     println!("Models, one row per tag ({substations} substations, 7 days of 15-minute readings):");
     let models = ctx
         .sql(&format!(

@@ -796,7 +796,7 @@ impl WindowUDFImpl for WatchFunction {
         &self,
         _args: PartitionEvaluatorArgs,
     ) -> Result<Box<dyn PartitionEvaluator>> {
-        Ok(Box::new(WatchEvaluator))
+        Ok(Box::<WatchEvaluator>::default())
     }
     fn field(&self, field_args: WindowUDFFieldArgs) -> Result<FieldRef> {
         Ok(Arc::new(Field::new(
@@ -807,47 +807,74 @@ impl WindowUDFImpl for WatchFunction {
     }
 }
 
-#[derive(Debug)]
-struct WatchEvaluator;
+/// The monitor of one partition (one tag): made from the first row that carries a stored
+/// model and an alarm level, then fed every row in time order.
+#[derive(Debug, Default)]
+struct WatchEvaluator {
+    watch: Option<(lagwise::Monitor, lagwise::TimeAxis)>,
+}
 
-impl PartitionEvaluator for WatchEvaluator {
-    fn evaluate_all(&mut self, values: &[ArrayRef], num_rows: usize) -> Result<ArrayRef> {
-        let times = times_ms(&values[0], "lw_watch")?;
-        let readings = readings_of(&values[1])?;
-        let stored = datafusion::arrow::compute::cast(&values[2], &DataType::Utf8)?;
-        let stored = stored.as_string::<i32>();
-        let levels = datafusion::arrow::compute::cast(&values[3], &DataType::Float64)?;
-        let levels = levels.as_primitive::<Float64Type>();
-        // The partition's model: its first non-null stored text and alarm level.
-        let first = (0..num_rows).find(|&i| !stored.is_null(i) && !levels.is_null(i));
-        let monitor = first.and_then(|i| {
-            let model = lagwise::model_from_json(stored.value(i)).ok()?;
+/// One row's inputs, read from the argument arrays.
+struct WatchRow<'a> {
+    time: i64,
+    reading: f64,
+    stored: Option<&'a str>,
+    level: Option<f64>,
+}
+
+impl WatchEvaluator {
+    /// Checks one reading: `None` when the partition has no usable model yet or the
+    /// reading falls before the monitor's next slot (already seen).
+    fn check(&mut self, row: WatchRow<'_>) -> Option<lagwise::ReadingCheck> {
+        if self.watch.is_none() {
+            let (text, level) = (row.stored?, row.level?);
+            let model = lagwise::model_from_json(text).ok()?;
             let axis = model.time_axis()?;
-            Some((model.monitor(levels.value(i)).ok()?, axis))
-        });
-        let mut b = StructBuilder::from_fields(watch_fields(), num_rows);
-        let mut watch = monitor;
-        for row in 0..num_rows {
-            let check = watch.as_mut().and_then(|(m, axis)| {
-                let (slot, _) = axis.nearest_slot(times[row])?;
-                if slot < m.next_index() {
-                    return None;
-                }
-                while m.next_index() < slot {
-                    m.observe(f64::NAN).ok()?;
-                }
-                m.observe(readings[row]).ok()
+            self.watch = Some((model.monitor(level).ok()?, axis));
+        }
+        let (m, axis) = self.watch.as_mut()?;
+        let (slot, _) = axis.nearest_slot(row.time)?;
+        if slot < m.next_index() {
+            return None;
+        }
+        while m.next_index() < slot {
+            m.observe(f64::NAN).ok()?;
+        }
+        m.observe(row.reading).ok()
+    }
+
+    /// Checks rows `rows` of the argument arrays into `b` (only those rows are read).
+    fn check_rows(
+        &mut self,
+        values: &[ArrayRef],
+        rows: std::ops::Range<usize>,
+        b: &mut StructBuilder,
+    ) -> Result<()> {
+        let (start, n) = (rows.start, rows.len());
+        let times = times_ms(&values[0].slice(start, n), "lw_watch")?;
+        let readings = readings_of(&values[1].slice(start, n))?;
+        let stored = datafusion::arrow::compute::cast(&values[2].slice(start, n), &DataType::Utf8)?;
+        let stored = stored.as_string::<i32>();
+        let levels =
+            datafusion::arrow::compute::cast(&values[3].slice(start, n), &DataType::Float64)?;
+        let levels = levels.as_primitive::<Float64Type>();
+        for row in 0..n {
+            let check = self.check(WatchRow {
+                time: times[row],
+                reading: readings[row],
+                stored: (!stored.is_null(row)).then(|| stored.value(row)),
+                level: (!levels.is_null(row)).then(|| levels.value(row)),
             });
             let f = |b: &mut StructBuilder, k: usize, v: Option<f64>| {
                 b.field_builder::<Float64Builder>(k)
                     .expect("float")
                     .append_option(v);
             };
-            f(&mut b, 0, check.map(|c| c.predicted));
-            f(&mut b, 1, check.map(|c| c.sd));
-            f(&mut b, 2, check.map(|c| c.lower));
-            f(&mut b, 3, check.map(|c| c.upper));
-            f(&mut b, 4, check.and_then(|c| c.standardized));
+            f(b, 0, check.map(|c| c.predicted));
+            f(b, 1, check.map(|c| c.sd));
+            f(b, 2, check.map(|c| c.lower));
+            f(b, 3, check.map(|c| c.upper));
+            f(b, 4, check.and_then(|c| c.standardized));
             b.field_builder::<BooleanBuilder>(5)
                 .expect("outside")
                 .append_option(check.map(|c| c.outside));
@@ -856,6 +883,36 @@ impl PartitionEvaluator for WatchEvaluator {
                 .append_option(check.map(|c| c.index as i64));
             b.append(true);
         }
+        Ok(())
+    }
+}
+
+impl PartitionEvaluator for WatchEvaluator {
+    /// Row by row, in time order, needing nothing but the current row: the engine can
+    /// stream a partition through the monitor instead of holding it whole (and plans a
+    /// streaming window operator, which also travels between cluster nodes).
+    fn supports_bounded_execution(&self) -> bool {
+        true
+    }
+
+    fn is_causal(&self) -> bool {
+        true
+    }
+
+    fn evaluate(
+        &mut self,
+        values: &[ArrayRef],
+        range: &std::ops::Range<usize>,
+    ) -> Result<ScalarValue> {
+        let row = range.start;
+        let mut b = StructBuilder::from_fields(watch_fields(), 1);
+        self.check_rows(values, row..row + 1, &mut b)?;
+        Ok(ScalarValue::Struct(Arc::new(b.finish())))
+    }
+
+    fn evaluate_all(&mut self, values: &[ArrayRef], num_rows: usize) -> Result<ArrayRef> {
+        let mut b = StructBuilder::from_fields(watch_fields(), num_rows);
+        self.check_rows(values, 0..num_rows, &mut b)?;
         Ok(Arc::new(b.finish()))
     }
 }
