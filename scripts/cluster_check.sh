@@ -11,9 +11,14 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 bin=target/debug
 node="$bin/lagwise-node"
-example="$bin/examples/historian_sql"
+# `cargo test --examples` leaves the example under its hashed name only: take the newest.
+example=$(ls -t "$bin"/examples/historian_sql "$bin"/examples/historian_sql-* 2>/dev/null \
+    | grep -v '\.d$' | head -n 1 || true)
 for f in "$node" "$example"; do
-    [[ -x "$f" ]] || { echo "missing $f: run cargo test --workspace --no-run first" >&2; exit 1; }
+    [[ -n "$f" && -x "$f" ]] || {
+        echo "missing lagwise-node or the historian_sql example: run cargo test --workspace --examples --no-run first" >&2
+        exit 1
+    }
 done
 work=$(mktemp -d "${TMPDIR:-/tmp}/lagwise-cluster.XXXXXX")
 pids=()

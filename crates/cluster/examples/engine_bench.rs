@@ -1,0 +1,249 @@
+//! What the engines cost on top of lagwise: the same series fitted (AR(1) + mean, exact
+//! likelihood) three ways in one run —
+//! 1. `Fleet::fit_slices` on the series already in memory (the reference),
+//! 2. DataFusion in this process: `SELECT tag, lw_fit(ts, value, …) FROM readings GROUP
+//!    BY tag` over a Parquet directory of the same readings (tag, timestamp, value; rows
+//!    in time order per file, tags spread over files),
+//! 3. the same query on a Ballista cluster: a scheduler and two executors started here
+//!    from `lagwise-node` (next to this example's binary) as separate processes on
+//!    127.0.0.1, stopped at the end; their peak resident memory is read from /proc.
+//!
+//! ```text
+//! cargo build --profile engine --workspace --bins --examples
+//! target/engine/examples/engine_bench [series] [readings] [threads]   (default 100000 1000 2)
+//! ```
+//!
+//! The `engine` profile (root Cargo.toml) compiles the engine's dependencies at
+//! opt-level 1 (a full release build of DataFusion and Ballista takes more than 25
+//! minutes on 2 cores) and lagwise with its numeric dependencies at opt-level 3. Writes
+//! the Parquet files under `target/engine-bench/`. Invented data from lagwise's simulator.
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+use datafusion::arrow::array::{Float64Array, RecordBatch, StringArray, TimestampMillisecondArray};
+use datafusion::arrow::datatypes::{DataType, Field, Schema, TimeUnit};
+use datafusion::parquet::arrow::ArrowWriter;
+use datafusion::prelude::{ParquetReadOptions, SessionConfig, SessionContext};
+use lagwise::{Blueprint, Fleet, Simulator};
+
+type Failure = Box<dyn std::error::Error>;
+
+const CADENCE_MS: i64 = 900_000;
+/// 2026-11-25 00:00 UTC.
+const ORIGIN_MS: i64 = 1_795_564_800_000;
+const FILES: usize = 16;
+
+fn main() -> Result<(), Failure> {
+    let args: Vec<usize> = std::env::args()
+        .skip(1)
+        .map(|a| a.parse())
+        .collect::<Result<_, _>>()?;
+    let series = args.first().copied().unwrap_or(100_000);
+    let readings = args.get(1).copied().unwrap_or(1_000);
+    let threads = args.get(2).copied().unwrap_or(2);
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../target/engine-bench");
+    println!(
+        "{series} series × {readings} readings, AR(1) + mean by exact likelihood, {threads} threads"
+    );
+
+    // The readings: Kestrel Bay's differential pressures, one simulator per tag.
+    let started = Instant::now();
+    let sim = Simulator::builder()
+        .autoregressive(&[0.6])
+        .level(4.2)
+        .innovation_sd(0.05)
+        .build()?;
+    let data: Vec<Vec<f64>> = (0..series)
+        .map(|k| sim.generate(readings, 5_000 + k as u64))
+        .collect();
+    let tags: Vec<String> = (0..series).map(|k| format!("KB-SS{k:06}-DP")).collect();
+    write_parquet(&dir, &tags, &data)?;
+    println!(
+        "readings simulated and written as {FILES} Parquet files in {:.1} s",
+        started.elapsed().as_secs_f64()
+    );
+    let bp = Blueprint::builder().nonseasonal(1, 0, 0).build()?;
+    let json = lagwise::blueprint_to_json(&bp)?;
+    let sql = format!(
+        "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE_MS})['sigma2'] AS sigma2 FROM readings GROUP BY tag"
+    );
+
+    // 1. The fleet on the slices.
+    let fleet = Fleet::builder().threads(threads).build()?;
+    let slices: Vec<&[f64]> = data.iter().map(Vec::as_slice).collect();
+    let t = Instant::now();
+    let report = fleet.fit_slices(&bp, &slices);
+    let fleet_s = t.elapsed().as_secs_f64();
+    assert_eq!(report.fitted(), series, "every series fits");
+    drop(report);
+    println!("Fleet on the slices:             {fleet_s:8.2} s");
+
+    // 2. DataFusion in this process.
+    let runtime = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(threads)
+        .enable_all()
+        .build()?;
+    let config = SessionConfig::new().with_target_partitions(threads);
+    let ctx = SessionContext::new_with_config(config.clone());
+    lagwise_sql::register(&ctx);
+    let (rows, in_process_s) = runtime.block_on(async {
+        ctx.register_parquet("readings", path_text(&dir)?, ParquetReadOptions::default())
+            .await?;
+        let t = Instant::now();
+        let out = ctx.sql(&sql).await?.collect().await?;
+        Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64()))
+    })?;
+    assert_eq!(rows, series);
+    println!(
+        "DataFusion in process:           {in_process_s:8.2} s  ({:+.1}% against the fleet)",
+        100.0 * (in_process_s / fleet_s - 1.0)
+    );
+    drop(ctx);
+
+    // 3. A Ballista cluster on loopback: a scheduler and two executors with
+    // `threads / 2` slots each (at least one), so the cluster uses the same cores.
+    let node = std::env::current_exe()?
+        .parent()
+        .and_then(Path::parent)
+        .map(|p| p.join("lagwise-node"))
+        .ok_or("cannot locate lagwise-node")?;
+    let slots = (threads / 2).max(1).to_string();
+    let (scheduler, line) = start(&node, &["scheduler", "--ready-executors", "2"])?;
+    let address = line
+        .strip_prefix("scheduler listening on ")
+        .ok_or("unexpected scheduler output")?
+        .to_string();
+    let mut executors = Vec::new();
+    for _ in 0..2 {
+        executors.push(
+            start(
+                &node,
+                &["executor", "--scheduler", &address, "--slots", &slots],
+            )?
+            .0,
+        );
+    }
+    let mut nodes = Nodes(vec![scheduler]);
+    nodes.0.extend(executors);
+    std::thread::sleep(Duration::from_secs(3));
+    let cluster_s = runtime.block_on(async {
+        let ctx = lagwise_cluster::connect_with(
+            &format!("df://{address}"),
+            config.with_target_partitions(2 * FILES),
+        )
+        .await?;
+        ctx.register_parquet("readings", path_text(&dir)?, ParquetReadOptions::default())
+            .await?;
+        let t = Instant::now();
+        let out = lagwise_cluster::collect(&ctx, &sql).await?;
+        let s = t.elapsed().as_secs_f64();
+        assert_eq!(row_count(&out), series);
+        Ok::<_, Failure>(s)
+    })?;
+    println!(
+        "Ballista, 2 executors × {slots} slots: {cluster_s:8.2} s  ({:+.1}% against the fleet)",
+        100.0 * (cluster_s / fleet_s - 1.0)
+    );
+    for (k, child) in nodes.0.iter().enumerate().skip(1) {
+        println!(
+            "  executor {k}: peak resident memory {:.0} MB",
+            peak_mb(child.id()).unwrap_or(f64::NAN)
+        );
+    }
+    println!(
+        "  scheduler:  peak resident memory {:.0} MB",
+        peak_mb(nodes.0[0].id()).unwrap_or(f64::NAN)
+    );
+    Ok(())
+}
+
+/// The nodes started here, killed and reaped when dropped (also on an early return).
+struct Nodes(Vec<Child>);
+
+impl Drop for Nodes {
+    fn drop(&mut self) {
+        for c in &mut self.0 {
+            let _ = c.kill();
+            let _ = c.wait();
+        }
+    }
+}
+
+fn start(node: &Path, args: &[&str]) -> Result<(Child, String), Failure> {
+    let mut child = Command::new(node)
+        .args(args)
+        .arg("--exit-with-parent")
+        .stdout(Stdio::piped())
+        .stderr(Stdio::null())
+        .spawn()
+        .map_err(|e| format!("cannot start {}: {e}", node.display()))?;
+    let mut out = BufReader::new(child.stdout.take().ok_or("no stdout")?);
+    let mut line = String::new();
+    out.read_line(&mut line)?;
+    std::thread::spawn(move || std::io::copy(&mut out, &mut std::io::sink()));
+    Ok((child, line.trim().to_string()))
+}
+
+/// Peak resident set (VmHWM) of a process, in MB.
+fn peak_mb(pid: u32) -> Option<f64> {
+    let status = std::fs::read_to_string(format!("/proc/{pid}/status")).ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
+fn row_count(batches: &[RecordBatch]) -> usize {
+    batches.iter().map(RecordBatch::num_rows).sum()
+}
+
+fn path_text(dir: &Path) -> Result<&str, Failure> {
+    dir.to_str().ok_or_else(|| "path is not UTF-8".into())
+}
+
+/// The long table, tags spread over `FILES` files, each tag's rows in time order.
+fn write_parquet(dir: &PathBuf, tags: &[String], data: &[Vec<f64>]) -> Result<(), Failure> {
+    let _ = std::fs::remove_dir_all(dir);
+    std::fs::create_dir_all(dir)?;
+    let schema = Arc::new(Schema::new(vec![
+        Field::new("tag", DataType::Utf8, false),
+        Field::new(
+            "ts",
+            DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into())),
+            false,
+        ),
+        Field::new("value", DataType::Float64, true),
+    ]));
+    for f in 0..FILES {
+        let file = std::fs::File::create(dir.join(format!("part-{f:02}.parquet")))?;
+        let mut w = ArrowWriter::try_new(file, schema.clone(), None)?;
+        // Batches of about 64 tags.
+        let members: Vec<usize> = (f..tags.len()).step_by(FILES).collect();
+        for group in members.chunks(64) {
+            let n: usize = group.iter().map(|&k| data[k].len()).sum();
+            let mut tag = Vec::with_capacity(n);
+            let mut ts = Vec::with_capacity(n);
+            let mut value = Vec::with_capacity(n);
+            for &k in group {
+                for (i, v) in data[k].iter().enumerate() {
+                    tag.push(tags[k].as_str());
+                    ts.push(ORIGIN_MS + i as i64 * CADENCE_MS);
+                    value.push(*v);
+                }
+            }
+            w.write(&RecordBatch::try_new(
+                schema.clone(),
+                vec![
+                    Arc::new(StringArray::from(tag)),
+                    Arc::new(TimestampMillisecondArray::from(ts).with_timezone("UTC")),
+                    Arc::new(Float64Array::from(value)),
+                ],
+            )?)?;
+        }
+        w.close()?;
+    }
+    Ok(())
+}
