@@ -63,6 +63,21 @@ impl TimeAxis {
     /// The slot nearest to `time_ms` and the offset from it (`time − slot time`, in
     /// `(−cadence/2, cadence/2]`), or `None` before the origin's half slot or past `i64`.
     pub fn nearest_slot(&self, time_ms: i64) -> Option<(u64, i64)> {
+        // In i64 where nothing can overflow (every real timestamp); the same arithmetic
+        // in i128 otherwise. A 128-bit division costs several times a 64-bit one, and
+        // this runs once per reading.
+        let c = self.cadence_ms;
+        if let Some(shifted) = time_ms
+            .checked_sub(self.origin_ms)
+            .and_then(|from| from.checked_add((c - 1) / 2))
+        {
+            let k = shifted.div_euclid(c);
+            if k < 0 {
+                return None;
+            }
+            let offset = shifted - (c - 1) / 2 - k * c;
+            return Some((k as u64, offset));
+        }
         let from = i128::from(time_ms) - i128::from(self.origin_ms);
         let c = i128::from(self.cadence_ms);
         // Round half down: an offset of exactly +c/2 belongs to the earlier slot.
@@ -426,4 +441,52 @@ fn mean_of(group: &[(u64, i64, usize, f64)]) -> f64 {
     let lo = group.iter().map(|g| g.3).fold(f64::INFINITY, f64::min);
     let hi = group.iter().map(|g| g.3).fold(f64::NEG_INFINITY, f64::max);
     scaled.clamp(lo, hi)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The reference: the nearest slot computed in i128 throughout.
+    fn wide(axis: &TimeAxis, t: i64) -> Option<(u64, i64)> {
+        let from = i128::from(t) - i128::from(axis.origin_ms);
+        let c = i128::from(axis.cadence_ms);
+        let k = (from + (c - 1) / 2).div_euclid(c);
+        let offset = from - k * c;
+        if k < 0 {
+            return None;
+        }
+        Some((u64::try_from(k).ok()?, i64::try_from(offset).ok()?))
+    }
+
+    /// The 64-bit path equals the 128-bit arithmetic everywhere, including half slots,
+    /// times before the origin and both ends of the i64 range (where it falls back).
+    #[test]
+    fn nearest_slot_equals_wide_arithmetic() {
+        let origins = [0, 1_795_564_800_000, -86_400_000, i64::MIN, i64::MAX];
+        let cadences = [1, 2, 3, 900_000, 3_600_000, i64::MAX];
+        let mut times = vec![0, 1, -1, i64::MIN, i64::MAX, i64::MIN + 1, i64::MAX - 1];
+        let mut state = 0x9e37_79b9_7f4a_7c15_u64;
+        for _ in 0..2_000 {
+            state = state
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1);
+            times.push(state as i64);
+            times.push(1_795_564_800_000 + (state % 10_000_000_000) as i64 - 5_000_000_000);
+        }
+        for &o in &origins {
+            for &c in &cadences {
+                let axis = TimeAxis::new(o, c).unwrap();
+                for &t in &times {
+                    for t in [t, t.saturating_add(c / 2), t.saturating_sub(c / 2)] {
+                        assert_eq!(
+                            axis.nearest_slot(t),
+                            wide(&axis, t),
+                            "origin {o}, cadence {c}, t {t}"
+                        );
+                    }
+                }
+            }
+        }
+    }
 }

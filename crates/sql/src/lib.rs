@@ -515,6 +515,14 @@ struct Outcome {
     missing: usize,
 }
 
+thread_local! {
+    /// One fit workspace per engine thread, reused by every group that thread evaluates
+    /// (as a fleet reuses one per worker): the fit's buffers are not allocated anew for
+    /// each tag. Results do not depend on what a workspace held before.
+    static WORKSPACE: std::cell::RefCell<lagwise::FitWorkspace> =
+        std::cell::RefCell::new(lagwise::FitWorkspace::new());
+}
+
 fn run(task: &Task, times: &[i64], values: &[f64]) -> std::result::Result<Outcome, String> {
     if times.is_empty() {
         return Err("the group has no readings".into());
@@ -530,7 +538,10 @@ fn run(task: &Task, times: &[i64], values: &[f64]) -> std::result::Result<Outcom
             let out = lagwise::search_orders(&grid.values, &settings).map_err(|e| e.to_string())?;
             (out.model, Some(out.explanation))
         }
-        (Some(bp), _) => (bp.fit(&grid.values).map_err(|e| e.to_string())?, None),
+        (Some(bp), _) => {
+            let fitted = WORKSPACE.with_borrow_mut(|ws| bp.fit_with(&grid.values, ws));
+            (fitted.map_err(|e| e.to_string())?, None)
+        }
         (None, _) => return Err("no blueprint".into()),
     };
     Ok(Outcome {
