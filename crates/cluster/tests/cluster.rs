@@ -197,32 +197,11 @@ fn write_readings(dir: &Path, tags: usize, n: usize, files: usize) -> PathBuf {
     for i in 0..len {
         rows.swap(i, (i * 7_919 + 13) % len);
     }
-    let schema = Arc::new(Schema::new(vec![
-        Field::new("tag", DataType::Utf8, false),
-        Field::new(
-            "ts",
-            DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into())),
-            false,
-        ),
-        Field::new("value", DataType::Float64, true),
-    ]));
     let per_file = len.div_ceil(files);
     for (f, chunk) in rows.chunks(per_file).enumerate() {
-        let batch = RecordBatch::try_new(
-            schema.clone(),
-            vec![
-                Arc::new(StringArray::from_iter_values(
-                    chunk.iter().map(|r| r.0.as_str()),
-                )),
-                Arc::new(
-                    TimestampMillisecondArray::from_iter_values(chunk.iter().map(|r| r.1))
-                        .with_timezone("UTC"),
-                ),
-                Arc::new(Float64Array::from_iter(chunk.iter().map(|r| r.2))),
-            ],
-        )
-        .unwrap();
-        lagwise_columnar::write_parquet(data.join(format!("part-{f}.parquet")), &[batch]).unwrap();
+        let rows: Vec<(&str, i64, Option<f64>)> =
+            chunk.iter().map(|r| (r.0.as_str(), r.1, r.2)).collect();
+        write_rows(&data, &format!("part-{f}.parquet"), &rows);
     }
     data
 }
@@ -382,6 +361,28 @@ fn partitions(n: usize) -> datafusion::prelude::SessionConfig {
     datafusion::prelude::SessionConfig::new().with_target_partitions(n)
 }
 
+/// A client of `cluster` with `partitions` target partitions and the given Parquet
+/// directories registered as tables.
+async fn client(
+    cluster: &Cluster,
+    partitions_wanted: usize,
+    tables: &[(&str, &Path)],
+) -> datafusion::prelude::SessionContext {
+    let ctx = lagwise_cluster::connect_with(&cluster.url(), partitions(partitions_wanted))
+        .await
+        .unwrap();
+    for (name, dir) in tables {
+        ctx.register_parquet(
+            *name,
+            dir.to_str().unwrap(),
+            datafusion::prelude::ParquetReadOptions::default(),
+        )
+        .await
+        .unwrap();
+    }
+    ctx
+}
+
 fn files_under(dir: &Path) -> usize {
     let Ok(entries) = std::fs::read_dir(dir) else {
         return 0;
@@ -401,16 +402,7 @@ async fn fits_and_forecasts_on_two_executors_equal_the_fleet_bitwise() {
     let data = write_readings(&cluster.dir, TAGS, 400, 6);
     let (bp, json) = blueprint();
     let fleet = fleet_answer(&data, &bp);
-    let ctx = lagwise_cluster::connect_with(&cluster.url(), partitions(6))
-        .await
-        .unwrap();
-    ctx.register_parquet(
-        "readings",
-        data.to_str().unwrap(),
-        datafusion::prelude::ParquetReadOptions::default(),
-    )
-    .await
-    .unwrap();
+    let ctx = client(&cluster, 6, &[("readings", &data)]).await;
     let fits = lagwise_cluster::collect(&ctx, &fit_sql(&json))
         .await
         .unwrap();
@@ -438,16 +430,7 @@ async fn a_killed_executor_never_leaves_a_partial_answer() {
     let data = write_readings(&cluster.dir, TAGS, 600, 12);
     let (bp, json) = blueprint();
     let fleet = fleet_answer(&data, &bp);
-    let ctx = lagwise_cluster::connect_with(&cluster.url(), partitions(6))
-        .await
-        .unwrap();
-    ctx.register_parquet(
-        "readings",
-        data.to_str().unwrap(),
-        datafusion::prelude::ParquetReadOptions::default(),
-    )
-    .await
-    .unwrap();
+    let ctx = client(&cluster, 6, &[("readings", &data)]).await;
     let query = {
         let ctx = ctx.clone();
         let sql = fit_sql(&json);
@@ -575,16 +558,7 @@ async fn bad_input_fails_its_row_or_the_query_and_no_executor_goes_down() {
         std::fs::create_dir_all(&text_times).unwrap();
         lagwise_columnar::write_parquet(text_times.join("part-0.parquet"), &[batch]).unwrap();
     }
-    let ctx = lagwise_cluster::connect_with(&cluster.url(), partitions(4))
-        .await
-        .unwrap();
-    let parquet = datafusion::prelude::ParquetReadOptions::default;
-    ctx.register_parquet("readings", data.to_str().unwrap(), parquet())
-        .await
-        .unwrap();
-    ctx.register_parquet("texts", text_times.to_str().unwrap(), parquet())
-        .await
-        .unwrap();
+    let ctx = client(&cluster, 4, &[("readings", &data), ("texts", &text_times)]).await;
     let (_, json) = blueprint();
 
     // Bad groups: their rows carry the reason, the good group fits.
