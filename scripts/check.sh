@@ -13,6 +13,7 @@ cargo clippy --locked --workspace --all-targets -- -D warnings
 echo "== tests (unit, integration, examples)"
 cargo test --locked --workspace --lib --tests --examples --bins
 echo "== a Ballista cluster on loopback (scheduler and two executors as processes)"
+cargo build --locked --workspace --profile test --example historian_sql --bin lagwise-node
 bash scripts/cluster_check.sh
 if pgrep -f target/debug/lagwise-node > /dev/null; then
     echo "lagwise-node processes left running after the tests:" >&2

@@ -3,20 +3,18 @@
 # one `lagwise-node scheduler` and two `lagwise-node executor` processes on free
 # 127.0.0.1 ports, a query from `lagwise-node sql` over the Parquet export of the
 # historian example (invented Kestrel Bay data), then every node stopped and checked
-# gone. Called by scripts/check.sh after the tests (which built the binaries in the
-# test profile); run it on its own after `cargo test --workspace --no-run`.
+# gone. Called by scripts/check.sh, which builds the two programs first in the test
+# profile (`cargo test` builds examples only as test harnesses).
 #
 # The nodes bind 127.0.0.1 only and authenticate nobody: see README "On a cluster".
 set -euo pipefail
 cd "$(dirname "$0")/.."
 bin=target/debug
 node="$bin/lagwise-node"
-# `cargo test --examples` leaves the example under its hashed name only: take the newest.
-example=$(ls -t "$bin"/examples/historian_sql "$bin"/examples/historian_sql-* 2>/dev/null \
-    | grep -v '\.d$' | head -n 1 || true)
+example="$bin/examples/historian_sql"
 for f in "$node" "$example"; do
-    [[ -n "$f" && -x "$f" ]] || {
-        echo "missing lagwise-node or the historian_sql example: run cargo test --workspace --examples --no-run first" >&2
+    [[ -x "$f" ]] || {
+        echo "missing $f: run cargo build --workspace --profile test --example historian_sql --bin lagwise-node first" >&2
         exit 1
     }
 done
@@ -47,7 +45,7 @@ first_line() {
 
 echo "-- Parquet export (historian example, 6 substations)"
 "$example" 6 > "$work/in-process.txt"
-data=target/kestrel-bay/historian
+data="$PWD/target/kestrel-bay/historian/"
 
 echo "-- scheduler"
 "$node" scheduler --ready-executors 2 > "$work/scheduler.out" 2> "$work/scheduler.log" &
@@ -68,7 +66,8 @@ done
 # Ready when the scheduler's /readyz answers 200 (both executors registered).
 ready=""
 for _ in $(seq 1 300); do
-    if exec 3<>"/dev/tcp/${address%:*}/${address#*:}" 2>/dev/null; then
+    # (Braces: a bare `exec … 2>/dev/null` would silence the script's stderr for good.)
+    if { exec 3<>"/dev/tcp/${address%:*}/${address#*:}"; } 2>/dev/null; then
         printf 'GET /readyz HTTP/1.1\r\nHost: %s\r\nConnection: close\r\n\r\n' "$address" >&3
         status=$(head -n 1 <&3 || true)
         exec 3>&- 3<&-

@@ -167,7 +167,14 @@ async fn sql(o: &Options) -> Result<(), ClusterError> {
         let (name, path) = table.split_once('=').ok_or_else(|| {
             ClusterError::Setting(format!("--table wants NAME=PATH, got {table:?}"))
         })?;
-        ctx.register_parquet(name, path, ParquetReadOptions::default())
+        // A directory is a table of all its Parquet files; the engine only treats a path
+        // as a directory when it ends with a slash.
+        let path = if std::path::Path::new(path).is_dir() && !path.ends_with('/') {
+            format!("{path}/")
+        } else {
+            path.to_string()
+        };
+        ctx.register_parquet(name, &path, ParquetReadOptions::default())
             .await?;
     }
     let batches = lagwise_cluster::collect(&ctx, &query).await?;
