@@ -393,9 +393,20 @@ pub async fn connect_with(scheduler_url: &str, config: SessionConfig) -> Result<
             side: "executors",
             detail,
         }),
+        // The session is made lazily: an address nobody listens on shows up here.
+        Err(ClusterError::Engine(e)) if unreachable(&e) => Err(ClusterError::Unreachable {
+            url: scheduler_url.to_string(),
+            detail: e.to_string(),
+        }),
         Err(other) => Err(other),
         Ok(_) => Ok(ctx),
     }
+}
+
+/// Whether an engine error says that the scheduler could not be reached at all.
+fn unreachable(error: &DataFusionError) -> bool {
+    let text = error.to_string();
+    text.contains("ConnectError") || text.contains("Connection refused")
 }
 
 /// The probe: a residual check of two readings (too few to fit, so its row holds an

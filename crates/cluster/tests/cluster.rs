@@ -638,3 +638,21 @@ async fn bad_input_fails_its_row_or_the_query_and_no_executor_goes_down() {
     let rows: usize = out.iter().map(|b| b.num_rows()).sum();
     assert_eq!(rows, 50);
 }
+
+/// A scheduler address nobody listens on: the client says it cannot reach it.
+#[tokio::test]
+async fn an_address_without_a_scheduler_is_reported_unreachable() {
+    // A port that was free a moment ago (bound, then let go).
+    let port = std::net::TcpListener::bind("127.0.0.1:0")
+        .unwrap()
+        .local_addr()
+        .unwrap()
+        .port();
+    match lagwise_cluster::connect(&format!("df://127.0.0.1:{port}")).await {
+        Err(e @ ClusterError::Unreachable { .. }) => {
+            assert!(e.to_string().contains("cannot reach the scheduler"), "{e}")
+        }
+        Err(other) => panic!("expected Unreachable, got {other:?}"),
+        Ok(_) => panic!("connected to nothing"),
+    }
+}
