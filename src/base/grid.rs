@@ -78,6 +78,13 @@ impl TimeAxis {
             let offset = shifted - (c - 1) / 2 - k * c;
             return Some((k as u64, offset));
         }
+        self.nearest_slot_wide(time_ms)
+    }
+
+    /// [`nearest_slot`](Self::nearest_slot) in 128-bit arithmetic throughout: the
+    /// fallback near the ends of the i64 range, and the reference the 64-bit path is
+    /// tested against.
+    fn nearest_slot_wide(&self, time_ms: i64) -> Option<(u64, i64)> {
         let from = i128::from(time_ms) - i128::from(self.origin_ms);
         let c = i128::from(self.cadence_ms);
         // Round half down: an offset of exactly +c/2 belongs to the earlier slot.
@@ -447,18 +454,6 @@ fn mean_of(group: &[(u64, i64, usize, f64)]) -> f64 {
 mod tests {
     use super::*;
 
-    /// The reference: the nearest slot computed in i128 throughout.
-    fn wide(axis: &TimeAxis, t: i64) -> Option<(u64, i64)> {
-        let from = i128::from(t) - i128::from(axis.origin_ms);
-        let c = i128::from(axis.cadence_ms);
-        let k = (from + (c - 1) / 2).div_euclid(c);
-        let offset = from - k * c;
-        if k < 0 {
-            return None;
-        }
-        Some((u64::try_from(k).ok()?, i64::try_from(offset).ok()?))
-    }
-
     /// The 64-bit path equals the 128-bit arithmetic everywhere, including half slots,
     /// times before the origin and both ends of the i64 range (where it falls back).
     #[test]
@@ -481,7 +476,7 @@ mod tests {
                     for t in [t, t.saturating_add(c / 2), t.saturating_sub(c / 2)] {
                         assert_eq!(
                             axis.nearest_slot(t),
-                            wide(&axis, t),
+                            axis.nearest_slot_wide(t),
                             "origin {o}, cadence {c}, t {t}"
                         );
                     }

@@ -241,6 +241,11 @@ fn tag_at(column: &dyn Array, row: usize) -> String {
     }
 }
 
+/// A named float column (present by construction of the result tables).
+fn floats(column: Option<&datafusion::arrow::array::ArrayRef>) -> &Float64Array {
+    column.expect("column").as_primitive::<Float64Type>()
+}
+
 /// Checks every fitted row against the fleet's summary, bit for bit; returns the rows seen.
 fn check_fits(out: &[RecordBatch], fleet: &FleetTables) -> usize {
     let mut seen = 0;
@@ -254,14 +259,8 @@ fn check_fits(out: &[RecordBatch], fleet: &FleetTables) -> usize {
             let coefs = field("coefficients");
             let coefs = coefs.as_list::<i32>().value(r);
             let coefs: &StructArray = coefs.as_struct();
-            let value = coefs
-                .column_by_name("value")
-                .unwrap()
-                .as_primitive::<Float64Type>();
-            let se = coefs
-                .column_by_name("se")
-                .unwrap()
-                .as_primitive::<Float64Type>();
+            let value = floats(coefs.column_by_name("value"));
+            let se = floats(coefs.column_by_name("se"));
             assert_eq!(value.len(), own.coefficients.len(), "{tag}");
             for (i, c) in own.coefficients.iter().enumerate() {
                 assert_eq!(value.value(i).to_bits(), c.value.to_bits(), "{tag}");
@@ -299,14 +298,8 @@ fn check_forecasts(out: &[RecordBatch], fleet: &FleetTables, horizon: usize) -> 
         .as_primitive::<datafusion::arrow::datatypes::UInt32Type>();
     let times = table.column(2).as_primitive::<TimestampMillisecondType>();
     let mean = table.column(3).as_primitive::<Float64Type>();
-    let lower95 = table
-        .column_by_name("lower_95")
-        .unwrap()
-        .as_primitive::<Float64Type>();
-    let upper80 = table
-        .column_by_name("upper_80")
-        .unwrap()
-        .as_primitive::<Float64Type>();
+    let lower95 = floats(table.column_by_name("lower_95"));
+    let upper80 = floats(table.column_by_name("upper_80"));
     for r in 0..table.num_rows() {
         own.insert(
             (tags.value(r).to_string(), steps.value(r) as i64),
