@@ -490,6 +490,18 @@ fn matrix() {
             )),
             "InvalidArgument",
         ),
+        (
+            "no finalists",
+            "search settings",
+            variant(SearchSettings::builder().finalists(0).build()),
+            "InvalidArgument",
+        ),
+        (
+            "21 finalists",
+            "search settings",
+            variant(SearchSettings::builder().finalists(21).build()),
+            "InvalidArgument",
+        ),
         // Timestamped readings onto a grid.
         (
             "empty",

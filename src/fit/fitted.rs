@@ -480,6 +480,30 @@ impl UnfinishedFit {
         &self.coefs
     }
 
+    /// The exact Gaussian log-likelihood (regression terms profiled by GLS) at the fit's
+    /// estimates, in the caller's units: for a CSS fit, one exact evaluation tells how
+    /// good its estimates are without an exact optimisation. `None` where the
+    /// evaluation fails.
+    pub(crate) fn exact_log_likelihood_at_estimates(
+        &self,
+        workspace: &mut FitWorkspace,
+    ) -> Option<f64> {
+        let mut ev = estimate::Evaluation::default();
+        workspace
+            .inner
+            .evaluate(
+                &self.prep,
+                &self.model.blueprint,
+                &self.coefs,
+                ObjectiveKind::Exact,
+                None,
+                &mut ev,
+            )
+            .ok()?;
+        let nll = ev.neg_log_likelihood + ev.used as f64 * self.prep.data_scale.ln();
+        nll.is_finite().then_some(-nll)
+    }
+
     /// The prepared data of the fit (to reuse for a blueprint with the same
     /// differencing and regression terms).
     pub(crate) fn prepared(&self) -> &estimate::Prepared {
