@@ -203,25 +203,31 @@ pub(crate) fn nested_residual_sums(columns: &[Vec<f64>], y: &[f64]) -> Vec<f64> 
 /// coefficients and the unscaled covariance factor `(XᵀX)⁻¹` — or `None` if `X` is
 /// rank deficient to working precision.
 pub(crate) fn least_squares(columns: &[Vec<f64>], y: &[f64]) -> Option<(Vec<f64>, Vec<f64>)> {
-    let k = columns.len();
-    let n = y.len();
-    if k == 0 || n < k || columns.iter().any(|c| c.len() != n) {
+    least_squares_owned(columns.to_vec(), y.to_vec())
+}
+
+/// [`least_squares`] on columns and a target the caller hands over (they are overwritten
+/// by the factorisation): no copy of the data, bitwise the same result.
+pub(crate) fn least_squares_owned(
+    mut a: Vec<Vec<f64>>,
+    mut b: Vec<f64>,
+) -> Option<(Vec<f64>, Vec<f64>)> {
+    let k = a.len();
+    let n = b.len();
+    if k == 0 || n < k || a.iter().any(|c| c.len() != n) {
         return None;
     }
     // Scale columns to unit norm (improves conditioning of the reported covariance).
-    let scales: Vec<f64> = columns
+    let scales: Vec<f64> = a
         .iter()
         .map(|c| {
             let s = c.iter().map(|v| v * v).sum::<f64>().sqrt();
             if s > 0.0 { s } else { 1.0 }
         })
         .collect();
-    let mut a: Vec<Vec<f64>> = columns
-        .iter()
-        .zip(&scales)
-        .map(|(c, s)| c.iter().map(|v| v / s).collect())
-        .collect();
-    let mut b = y.to_vec();
+    for (c, s) in a.iter_mut().zip(&scales) {
+        c.iter_mut().for_each(|v| *v /= s);
+    }
     let mut rdiag = vec![0.0; k];
     if householder(&mut a, &mut b, &mut rdiag) < k {
         return None;

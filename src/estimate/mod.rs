@@ -44,18 +44,26 @@ pub(crate) struct Prepared {
 
 /// Apply `(1 − B)^d (1 − B^s)^D` to `x`, returning a series shorter by `d + D·s`.
 pub(crate) fn difference(x: &[f64], d: usize, seasonal_d: usize, period: usize) -> Vec<f64> {
-    let mut v = x.to_vec();
-    for _ in 0..seasonal_d {
-        if v.len() <= period {
-            return Vec::new();
+    difference_owned(x.to_vec(), d, seasonal_d, period)
+}
+
+/// [`difference`] in place on a vector handed over (no new allocation).
+pub(crate) fn difference_owned(
+    mut v: Vec<f64>,
+    d: usize,
+    seasonal_d: usize,
+    period: usize,
+) -> Vec<f64> {
+    for (lag, times) in [(period, seasonal_d), (1, d)] {
+        for _ in 0..times {
+            if v.len() <= lag {
+                return Vec::new();
+            }
+            for t in (lag..v.len()).rev() {
+                v[t] -= v[t - lag];
+            }
+            v.drain(..lag);
         }
-        v = (period..v.len()).map(|t| v[t] - v[t - period]).collect();
-    }
-    for _ in 0..d {
-        if v.len() <= 1 {
-            return Vec::new();
-        }
-        v = (1..v.len()).map(|t| v[t] - v[t - 1]).collect();
     }
     v
 }
@@ -152,13 +160,13 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
             None => profiled.push(term),
         }
     }
-    let w = difference(&y, bp.d, bp.seasonal_d, bp.period);
+    let w = difference_owned(y, bp.d, bp.seasonal_d, bp.period);
     let n = w.len();
     let present_w = w.iter().filter(|v| !v.is_nan()).count();
     check_orders_fit(bp, s.present, present_w, n)?;
-    let present: Vec<f64> = w.iter().copied().filter(|v| !v.is_nan()).collect();
-    let mean = present.iter().sum::<f64>() / present.len() as f64;
-    let var = present.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / present.len() as f64;
+    let present = || w.iter().copied().filter(|v| !v.is_nan());
+    let mean = present().sum::<f64>() / present_w as f64;
+    let var = present().map(|v| (v - mean) * (v - mean)).sum::<f64>() / present_w as f64;
     if !(var > 0.0) || !var.is_finite() {
         return Err(Error::new(ErrorKind::ConstantSeries {
             what: "fit (after differencing)",
@@ -166,22 +174,18 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         }));
     }
     let ncols = 1 + profiled.len();
-    let mut data = Vec::with_capacity(ncols * n);
-    data.extend_from_slice(&w);
+    let mut data = w;
+    data.reserve_exact((ncols - 1) * n);
     for &term in &profiled {
         let col = regression_column(term, series.len(), regressors);
-        let dcol = difference(&col, bp.d, bp.seasonal_d, bp.period);
+        let dcol = difference_owned(col, bp.d, bp.seasonal_d, bp.period);
         data.extend(dcol);
     }
     // Centre column 0 on a preliminary OLS fit of the regression columns.
     let mut beta_offset = vec![0.0; ncols - 1];
     if ncols > 1 {
-        let rows: Vec<usize> = (0..n).filter(|&t| !data[t].is_nan()).collect();
-        let cols: Vec<Vec<f64>> = (1..ncols)
-            .map(|c| rows.iter().map(|&t| data[c * n + t]).collect())
-            .collect();
-        let y: Vec<f64> = rows.iter().map(|&t| data[t]).collect();
-        if let Some((b, _)) = crate::base::linalg::least_squares(&cols, &y) {
+        let (cols, y) = present_rows(&data, n, ncols, 0);
+        if let Some((b, _)) = crate::base::linalg::least_squares_owned(cols, y) {
             for t in 0..n {
                 let mut fit = 0.0;
                 for c in 1..ncols {
@@ -204,6 +208,22 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         missing_original: series.len() - s.present,
     })
 }
+
+/// The regression columns 1.. and column 0 of column-major `data` (`ncols` columns of
+/// `n`) at the rows from `from` on where column 0 is present, as owned vectors for a
+/// least-squares solve.
+fn present_rows(data: &[f64], n: usize, ncols: usize, from: usize) -> (Vec<Vec<f64>>, Vec<f64>) {
+    let present = |t: &usize| !data[*t].is_nan();
+    let cols = (1..ncols)
+        .map(|c| (from..n).filter(present).map(|t| data[c * n + t]).collect())
+        .collect();
+    let y = (from..n).filter(present).map(|t| data[t]).collect();
+    (cols, y)
+}
+
+/// Longest stretch of differenced readings (the last ones) the starting values are
+/// computed from (see [`starting_values`]).
+const STARTING_SPAN: usize = 16_384;
 
 /// Seasonal terms need at least two full cycles of readings (`n ≥ 2s`): with fewer, a
 /// seasonal difference leaves less than one cycle and seasonal coefficients rest on a
@@ -1350,8 +1370,13 @@ pub(crate) fn minimise(
 /// Hannan–Rissanen starting values (long AR, then least squares on lagged readings and
 /// lagged long-AR residuals), pulled inside the admissible region.
 pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoefficients {
-    let n = prep.n;
-    let w = deregressed(prep);
+    // Hannan–Rissanen on at most the last STARTING_SPAN differenced readings: the
+    // estimates only have to land in the optimiser's basin (their sampling error there
+    // is ≈ 1/√STARTING_SPAN ≈ 0.008), and on longer series the long AR's O(n·m) passes
+    // over fresh memory cost as much as several likelihood evaluations.
+    let from = prep.n.saturating_sub(STARTING_SPAN);
+    let w = deregressed(prep, from);
+    let n = w.len();
     let (p, q, sp, sq, s) = (bp.p, bp.q, bp.seasonal_p, bp.seasonal_q, bp.period);
     let mut out = FactorCoefficients::zeros(p, q, sp, sq);
     // (factor, position from 0, lag) of every coefficient.
@@ -1406,7 +1431,7 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
             }
         }
     }
-    if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
+    if let Some((beta, _)) = linalg::least_squares_owned(cols, y) {
         for (b, &(f, i)) in beta.iter().zip(&slots) {
             if b.is_finite() {
                 out.of_mut(f)[i] = *b;
@@ -1417,26 +1442,22 @@ pub(crate) fn starting_values(prep: &Prepared, bp: &Blueprint) -> FactorCoeffici
     out
 }
 
-/// The prepared series with its regression part (least squares on the present readings)
-/// removed and missing readings set to zero.
-fn deregressed(prep: &Prepared) -> Vec<f64> {
+/// The prepared series from reading `from` on, with its regression part (least squares
+/// on the present readings there) removed and missing readings set to zero.
+fn deregressed(prep: &Prepared, from: usize) -> Vec<f64> {
     let n = prep.n;
     let k = prep.ncols;
     // Remove the regression part by least squares on present readings.
-    let mut w: Vec<f64> = prep.data[..n].to_vec();
+    let mut w: Vec<f64> = prep.data[from..n].to_vec();
     if k > 1 {
-        let rows: Vec<usize> = (0..n).filter(|&t| !w[t].is_nan()).collect();
-        let cols: Vec<Vec<f64>> = (1..k)
-            .map(|c| rows.iter().map(|&t| prep.data[c * n + t]).collect())
-            .collect();
-        let y: Vec<f64> = rows.iter().map(|&t| w[t]).collect();
-        if let Some((beta, _)) = linalg::least_squares(&cols, &y) {
-            for t in 0..n {
+        let (cols, y) = present_rows(&prep.data, n, k, from);
+        if let Some((beta, _)) = linalg::least_squares_owned(cols, y) {
+            for (i, t) in (from..n).enumerate() {
                 let mut fit = 0.0;
                 for c in 1..k {
                     fit += beta[c - 1] * prep.data[c * n + t];
                 }
-                w[t] -= fit;
+                w[i] -= fit;
             }
         }
     }
@@ -1759,7 +1780,32 @@ mod tests {
         assert!(w.iter().all(|v| (*v - 2.0).abs() < 1e-12));
         let w = difference(&x, 1, 1, 12);
         assert_eq!(w.len(), 17);
+        // (1 − B)(1 − B¹²) t² = 24 for every t (hand algebra).
+        assert!(w.iter().all(|v| *v == 24.0), "{w:?}");
         assert!(difference(&x[..5], 0, 1, 12).is_empty());
+    }
+
+    /// Starting values of a long series come from its last `STARTING_SPAN` readings and
+    /// still land near the simulated coefficients (a misaligned regression column or
+    /// lag would not), with the mean column's regression removed on that stretch.
+    #[test]
+    fn long_series_starting_values_from_the_tail() {
+        use crate::model::simulate::Simulator;
+        let n = 3 * STARTING_SPAN;
+        let x = Simulator::builder()
+            .autoregressive(&[0.7])
+            .moving_average(&[0.4])
+            .level(250.0)
+            .build()
+            .unwrap()
+            .generate(n, 31);
+        let bp = Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap();
+        let prep = prepare(&bp, &x, &[]).unwrap();
+        assert_eq!(prep.ncols, 2);
+        let start = starting_values(&prep, &bp);
+        assert!((start.ar[0] - 0.7).abs() < 0.05, "{start:?}");
+        assert!((start.ma[0] - 0.4).abs() < 0.08, "{start:?}");
+        assert_eq!(deregressed(&prep, n - STARTING_SPAN).len(), STARTING_SPAN);
     }
 }
 

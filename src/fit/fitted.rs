@@ -687,22 +687,27 @@ fn final_evaluation(
     let mut beta_cov: Option<Vec<f64>> = None;
     if k > 1 {
         let (innov, fvar) = ws.innovations(kind);
-        let rows: Vec<usize> = (cond..n).filter(|&t| !prep.data[t].is_nan()).collect();
+        let rows = || (cond..n).filter(|&t| !prep.data[t].is_nan());
         let wgt = |t: usize| fvar.map_or(1.0, |f| 1.0 / f[t].sqrt());
-        let y: Vec<f64> = rows.iter().map(|&t| innov[t] * wgt(t)).collect();
-        let cols: Vec<Vec<f64>> = (1..k)
-            .map(|c| rows.iter().map(|&t| innov[c * n + t] * wgt(t)).collect())
-            .collect();
-        if let Some((delta, factor)) = linalg::least_squares(&cols, &y) {
-            let resid_ss: f64 = rows
-                .iter()
-                .enumerate()
-                .map(|(i, _)| {
-                    let fit: f64 = (0..k - 1).map(|c| delta[c] * cols[c][i]).sum();
-                    (y[i] - fit).powi(2)
+        let weighted = |c: usize| {
+            rows()
+                .map(|t| innov[c * n + t] * wgt(t))
+                .collect::<Vec<_>>()
+        };
+        let (cols, y): (Vec<Vec<f64>>, Vec<f64>) = ((1..k).map(weighted).collect(), weighted(0));
+        let used = y.len();
+        if let Some((delta, factor)) = linalg::least_squares_owned(cols, y) {
+            // The factorisation overwrote its inputs: the residuals are read again.
+            let resid_ss: f64 = rows()
+                .map(|t| {
+                    let w = wgt(t);
+                    let fit: f64 = (0..k - 1)
+                        .map(|c| delta[c] * (innov[(c + 1) * n + t] * w))
+                        .sum();
+                    (innov[t] * w - fit).powi(2)
                 })
                 .sum();
-            let s2 = resid_ss / rows.len().max(1) as f64;
+            let s2 = resid_ss / used.max(1) as f64;
             for (b, (d, o)) in beta.iter_mut().zip(delta.iter().zip(&prep.beta_offset)) {
                 *b = o + d;
             }
