@@ -11,6 +11,8 @@ use argmin::solver::quasinewton::BFGS;
 
 use crate::base::error::{Error, ErrorKind, Result};
 use crate::base::linalg;
+
+mod css_gradient;
 use crate::filter::innovations::{direct_recursion, segment_dot};
 use crate::filter::kalman::{DirectPhase, KalmanWorkspace};
 use crate::filter::lanes::add_lane_sums;
@@ -511,6 +513,8 @@ pub(crate) struct EvalWorkspace {
     pub batch_coefs: Vec<FactorCoefficients>,
     pub batch_values: Vec<Option<(f64, usize)>>,
     pub batch_slots: Vec<Option<usize>>,
+    /// Scratch of the analytic CSS gradient.
+    css_grad: css_gradient::CssGradientScratch,
 }
 
 /// How a lane of a batch ended its pre-phase.
@@ -564,6 +568,7 @@ impl EvalWorkspace {
             + self.batch_coefs.iter().map(coefs).sum::<usize>()
             + b(&self.batch_values)
             + b(&self.batch_slots)
+            + self.css_grad.heap_bytes()
     }
 
     /// The innovations of the last single evaluation of `kind` (column-major, one column
@@ -1117,8 +1122,97 @@ impl Objective<'_> {
             .collect()
     }
 
-    /// Central-difference gradient; its 2k points are evaluated as one batch.
+    /// The gradient at `x`: analytic for the CSS objective where the lanes cannot batch
+    /// the central differences (larger or seasonal shapes, several regression columns),
+    /// else central differences, their 2k points evaluated as one batch.
     fn gradient_at(&self, x: &[f64]) -> Vec<f64> {
+        if self.kind == ObjectiveKind::Conditional
+            && !self.prep.has_missing
+            && !self.lanes_batch_css()
+            && let Some(g) = self.css_gradient_at(x)
+        {
+            return g;
+        }
+        self.central_gradient_at(x)
+    }
+
+    /// Whether a CSS batch at this shape runs in lanes (then central differences cost
+    /// about one pass).
+    fn lanes_batch_css(&self) -> bool {
+        let (p, q) = self.bp.expanded_degrees();
+        crate::filter::lanes::fits(p, q, self.prep.ncols)
+    }
+
+    /// The analytic CSS gradient in the optimiser's coordinates: one evaluation and the
+    /// derivative recursions ([`css_gradient`]) give `∂F/∂c` in natural coefficients,
+    /// and the map from coordinates to coefficients (cheap: no data) is differentiated
+    /// by central differences. `None` where the point or a neighbour is inadmissible.
+    fn css_gradient_at(&self, x: &[f64]) -> Option<Vec<f64>> {
+        let k = x.len();
+        self.evals.set(self.evals.get() + 1);
+        let mut ws = self.ws.borrow_mut();
+        let ws = &mut *ws;
+        let mut coefs = std::mem::take(&mut ws.coefs);
+        let mut grad = std::mem::take(&mut ws.scratch_coefs);
+        let ok = self
+            .layout
+            .natural(x, &mut coefs, &mut ws.kappa, &mut ws.tmp)
+            && {
+                let mut out = self.eval_out.borrow_mut();
+                ws.evaluate(self.prep, self.bp, &coefs, self.kind, None, &mut out)
+                    .is_ok()
+                    && ws.css_coefficient_gradient(
+                        self.prep,
+                        &coefs,
+                        self.bp.period,
+                        &out,
+                        &mut grad,
+                    )
+            };
+        let mut result = None;
+        if ok {
+            let mut g = vec![0.0; k];
+            let mut plus = FactorCoefficients::default();
+            let mut minus = FactorCoefficients::default();
+            let mut z = x.to_vec();
+            let mut admissible = true;
+            for i in 0..k {
+                let h = 1e-6 * x[i].abs().max(1.0);
+                z[i] = x[i] + h;
+                let up = self
+                    .layout
+                    .natural(&z, &mut plus, &mut ws.kappa, &mut ws.tmp);
+                z[i] = x[i] - h;
+                let down = self
+                    .layout
+                    .natural(&z, &mut minus, &mut ws.kappa, &mut ws.tmp);
+                z[i] = x[i];
+                if !(up && down) {
+                    admissible = false;
+                    break;
+                }
+                g[i] = Factor::ALL
+                    .iter()
+                    .flat_map(|&f| {
+                        let (a, b, d) = (plus.of(f), minus.of(f), grad.of(f));
+                        a.iter()
+                            .zip(b)
+                            .zip(d)
+                            .map(|((a, b), d)| d * (a - b) / (2.0 * h))
+                    })
+                    .sum();
+            }
+            if admissible && g.iter().all(|v| v.is_finite()) {
+                result = Some(g);
+            }
+        }
+        ws.coefs = coefs;
+        ws.scratch_coefs = grad;
+        result
+    }
+
+    /// Central-difference gradient; its 2k points are evaluated as one batch.
+    fn central_gradient_at(&self, x: &[f64]) -> Vec<f64> {
         let k = x.len();
         let steps: Vec<f64> = x.iter().map(|v| 1e-5 * v.abs().max(1.0)).collect();
         let mut points = Vec::with_capacity(2 * k);
