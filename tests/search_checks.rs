@@ -440,3 +440,25 @@ fn css_search_ranks_by_screening_values() {
         "{out}"
     );
 }
+
+/// A seasonal search's candidates without seasonal terms carry the label their model
+/// has (`ARMA(0,0) + mean`, not a seasonal form with zero orders), so the account marks
+/// the chosen one.
+#[test]
+fn non_seasonal_candidates_of_a_seasonal_search_are_labelled_as_fitted() {
+    let x = Simulator::builder()
+        .level(1.1)
+        .innovation_sd(0.02)
+        .build()
+        .unwrap()
+        .generate(700, 9);
+    let out = search_orders(&x, &SearchSettings::builder().period(96).build().unwrap()).unwrap();
+    assert_eq!(out.differencing.seasonal_d, 0, "{out}");
+    let chosen = out.model.blueprint().shape();
+    assert!(out.candidates.iter().any(|c| c.shape == chosen), "{out}");
+    assert!(out.to_string().contains("◀ chosen"), "{out}");
+    for c in &out.candidates {
+        let seasonal = c.shape.seasonal_p + c.shape.seasonal_d + c.shape.seasonal_q > 0;
+        assert_eq!(c.shape.period > 1, seasonal, "{}", c.shape);
+    }
+}

@@ -626,10 +626,16 @@ impl<'a> CandidateBench<'a> {
         ws: &mut FitWorkspace,
     ) -> (Candidate, Option<UnfinishedFit>) {
         let (d, sd, s) = (self.d, self.seasonal_d, self.period);
+        // The period in force, as the blueprint has it: 1 without seasonal terms.
+        let in_force = if o.seasonal_p + sd + o.seasonal_q == 0 {
+            1
+        } else {
+            s
+        };
         let shape = ModelShape::of_orders(
             [o.p, d, o.q],
             [o.seasonal_p, sd, o.seasonal_q],
-            s,
+            in_force,
             o.constant && d + sd == 0,
             o.constant && d + sd == 1,
         );

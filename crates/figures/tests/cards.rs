@@ -452,6 +452,20 @@ fn search_card_sets_white_and_not_white_apart() {
             .filter(|c| c.criterion.is_some())
             .count()
     );
+    // A screening search refits only its finalists: the others are counted as screened
+    // out, not as failed fits.
+    let screened = outcome
+        .candidates
+        .iter()
+        .filter(|c| !c.refitted && c.failure.is_none())
+        .count();
+    assert!(screened > 0, "{outcome}");
+    let foot = format!("{screened} more screened out by quick (CSS) fits, not refitted");
+    assert!(
+        t.iter().any(|(_, _, s)| s.contains(&foot)),
+        "{foot} not in {t:?}"
+    );
+    assert!(card.description().contains("screened out by quick fits"));
 }
 
 #[test]

@@ -185,12 +185,13 @@ fn sparkline(cg: &Correlogram, band: &LagValues, lags: usize) -> String {
         .collect()
 }
 
-/// Fit a model to one tag. Return temperature and flow, with their 96-reading daily
-/// period, get a hand-chosen seasonal shape (the demo shows a blueprint in use; a
-/// seasonal order search at s = 96 would take about 0.3–0.8 s per tag, see the README's
-/// figures). Supply temperature and differential pressure get an automatic order search
-/// (differencing by KPSS/ADF, stepwise orders by BIC behind the whiteness gate) on the
-/// history with its level shifts removed: a step
+/// Fit a model to one tag. Return temperature and flow, with their strong 96-reading
+/// daily period, get a hand-chosen seasonal shape (the demo shows a blueprint in use).
+/// Supply temperature and differential pressure get an automatic order search at the
+/// daily period (seasonal differencing by seasonal strength, d by KPSS/ADF, stepwise
+/// orders by BIC with P, Q ≤ 1 behind the whiteness gate: the supply temperature's small
+/// daily cycle is found, the pressure's absence of one too) on the history with its level
+/// shifts removed: a step
 /// after valve work would otherwise read as a unit root and get the series differenced.
 /// The shifts are first screened on an AR(1) fit, then the chosen model looks for every
 /// kind of event itself (in `assess`).
@@ -218,7 +219,10 @@ fn fit_tag(
     )?;
     let outcome = search_orders_with(
         &shifts.adjusted,
-        &SearchSettings::builder().max_orders(3, 3, 0, 0).build()?,
+        &SearchSettings::builder()
+            .period(PER_DAY)
+            .max_orders(3, 3, 1, 1)
+            .build()?,
         ws,
     )?;
     // The chosen shape, fitted to the readings themselves (events are found next).

@@ -5,7 +5,8 @@
 //! one panel with a row per candidate (label on the left), the criterion's distance from
 //! the best candidate as a dot: navy discs for candidates whose residuals passed the
 //! whiteness gate (upper block), hollow amber squares below a divider for those that did
-//! not; the chosen model ringed. Candidates without a criterion are listed under the panel.
+//! not; the chosen model ringed. Candidates without a criterion — screened out by a quick
+//! fit (not refitted) or failed — are counted under the panel.
 
 use crate::draw::{self, PanelSpec, panel};
 use crate::frame::{
@@ -43,6 +44,11 @@ pub fn search_card(caption: &Caption, outcome: &SearchOutcome) -> Result<Card> {
         .iter()
         .filter(|c| !c.criterion.is_some_and(f64::is_finite))
         .collect();
+    // Without a criterion: screened out by a quick fit (a screening search refits only
+    // its finalists), or failed.
+    let (screened, failed): (Vec<&Candidate>, Vec<&Candidate>) = unranked
+        .iter()
+        .partition(|c| c.failure.is_none() && !c.refitted && c.screening_value.is_some());
     if good.is_empty() && bad.is_empty() {
         return Err(FigureError::NothingToDraw {
             card: CARD,
@@ -196,17 +202,19 @@ pub fn search_card(caption: &Caption, outcome: &SearchOutcome) -> Result<Card> {
         if hidden > 0 {
             note.push(format!("{hidden} more candidates not drawn"));
         }
-        if !unranked.is_empty() {
-            let names: Vec<String> = unranked
-                .iter()
-                .take(4)
-                .map(|c| c.shape.to_string())
-                .collect();
+        if !screened.is_empty() {
+            note.push(format!(
+                "{} more screened out by quick (CSS) fits, not refitted",
+                screened.len()
+            ));
+        }
+        if !failed.is_empty() {
+            let names: Vec<String> = failed.iter().take(4).map(|c| c.shape.to_string()).collect();
             note.push(format!(
                 "{} without a criterion (fit failed): {}{}",
-                unranked.len(),
+                failed.len(),
                 names.join(", "),
-                if unranked.len() > 4 { ", …" } else { "" }
+                if failed.len() > 4 { ", …" } else { "" }
             ));
         }
         note.push("right: Ljung–Box p of the whiteness gate".into());
@@ -216,11 +224,12 @@ pub fn search_card(caption: &Caption, outcome: &SearchOutcome) -> Result<Card> {
     }
     let title = format!("Search card — {}", caption.headline());
     let description = format!(
-        "{} candidates: {} with white residuals, {} without, {} failed. Chosen: {chosen}. {}",
+        "{} candidates: {} refitted with white residuals, {} refitted without, {} screened out by quick fits, {} failed. Chosen: {chosen}. {}",
         outcome.candidates.len(),
         good.len(),
         bad.len(),
-        unranked.len(),
+        screened.len(),
+        failed.len(),
         outcome.explanation
     );
     Ok(finish(
