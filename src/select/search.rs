@@ -757,7 +757,10 @@ impl<'a> CandidateBench<'a> {
         // exact maximum is at least the likelihood at the CSS estimates) by about as much
         // as it lowered the others': a candidate is refitted only while its screening value,
         // less twice the largest improvement seen so far and one unit, is below the best
-        // refitted criterion — it could still win. The first is always refitted.
+        // adequate refitted criterion — it could still win. The first is always refitted.
+        // The best criterion among the adequate refits: only they can be chosen over
+        // another adequate candidate, so a candidate is skipped only when it could not
+        // beat them (never while no refit has passed the gate).
         let mut best = f64::INFINITY;
         let mut gain: f64 = 0.0;
         for round in order.chunks(k).take(2) {
@@ -775,7 +778,7 @@ impl<'a> CandidateBench<'a> {
                 cand.refitted = true;
                 if let Some(c) = cand.criterion {
                     gain = gain.max(screened - c);
-                    if cand.adequate || !self.tried.iter().any(|t| t.refitted && t.adequate) {
+                    if cand.adequate {
                         best = best.min(c);
                     }
                 }
