@@ -120,14 +120,19 @@ fn blueprint(b: &mut Bytes<'_>) -> Option<lagwise::Blueprint> {
 }
 
 /// Fitting: bytes → specification + series; then the residual check, criteria and a
-/// forecast, whatever the outcome of the fit. Checks invariants of successful fits.
+/// forecast, whatever the outcome of the fit. Checks invariants of successful fits. With
+/// bit 1 of the first byte set, an order search over the same readings first.
 pub(crate) fn fit(data: &[u8]) {
     let mut b = Bytes::new(data);
-    let raw = b.byte() & 1 == 1;
+    let first = b.byte();
+    let raw = first & 1 == 1;
     let Some(bp) = blueprint(&mut b) else { return };
     let x = b.readings(raw);
     if x.len() > 400 {
         return;
+    }
+    if first & 2 != 0 {
+        search(&bp, &x, first);
     }
     let Ok(fit) = bp.fit(&x) else { return };
     assert!(fit.innovation_variance() > 0.0 && fit.innovation_variance().is_finite());
@@ -143,6 +148,36 @@ pub(crate) fn fit(data: &[u8]) {
             assert!(s.sd >= 0.0 || s.sd.is_nan());
         }
     }
+}
+
+/// An order search at the blueprint's period over the same readings (settings from the
+/// first byte's bits: screening on or off, one or three finalists); a successful search's
+/// account must hold its chosen model, refitted, with a finite criterion.
+fn search(bp: &lagwise::Blueprint, x: &[f64], bits: u8) {
+    let Ok(settings) = lagwise::SearchSettings::builder()
+        .period(bp.shape().period.max(1) as usize)
+        .max_orders(2, 2, 1, 1)
+        .screening(bits & 4 == 0)
+        .finalists(if bits & 8 == 0 { 3 } else { 1 })
+        .build()
+    else {
+        return;
+    };
+    let Ok(out) = lagwise::search_orders(x, &settings) else {
+        return;
+    };
+    let chosen = out.model.blueprint().shape();
+    let entry = out.candidates.iter().find(|c| c.shape == chosen);
+    let entry = entry.unwrap_or_else(|| panic!("chosen {chosen} not in the account\n{out}"));
+    assert!(
+        entry.refitted && entry.criterion.is_some_and(f64::is_finite),
+        "{out}"
+    );
+    assert!(
+        out.model.coefficients().iter().all(|c| c.value.is_finite()),
+        "{out}"
+    );
+    let _ = out.to_string();
 }
 
 /// Forecasting and online updating: fit a fixed small model to the first half, then feed
