@@ -18,7 +18,7 @@
 //! evaluations per free coordinate for central differences.
 
 use super::{EvalWorkspace, Evaluation, Prepared};
-use crate::model::coefficients::FactorCoefficients;
+use crate::model::coefficients::{Factor, FactorCoefficients};
 
 /// Series-length scratch of the analytic CSS gradient (reused across gradients).
 #[derive(Debug, Default, Clone)]
@@ -57,13 +57,6 @@ impl EvalWorkspace {
         let cond = self.phi.len().min(n);
         let s = period.max(1);
         let scratch = &mut self.css_grad;
-        // The regression part at its optimum: corrections to the preliminary offsets.
-        let delta: Vec<f64> = out
-            .beta
-            .iter()
-            .zip(&prep.beta_offset)
-            .map(|(b, o)| b - o)
-            .collect();
         resize(&mut scratch.e, n);
         resize(&mut scratch.x, n);
         resize(&mut scratch.u, n);
@@ -71,7 +64,9 @@ impl EvalWorkspace {
         for t in 0..n {
             let mut x = prep.data[t];
             let mut e = self.css_innov[t];
-            for (c, d) in delta.iter().enumerate() {
+            // The regression part at its optimum: corrections to the preliminary offsets.
+            for (c, (b, o)) in out.beta.iter().zip(&prep.beta_offset).enumerate() {
+                let d = b - o;
                 x -= d * prep.data[(c + 1) * n + t];
                 e -= d * self.css_innov[(c + 1) * n + t];
             }
@@ -87,12 +82,11 @@ impl EvalWorkspace {
         let lagged_dot = |e: &[f64], b: &[f64], lag: usize| -> f64 {
             (cond.max(lag)..n).map(|t| e[t] * b[t - lag]).sum::<f64>()
         };
-        *grad = FactorCoefficients::zeros(
-            coefs.ar.len(),
-            coefs.ma.len(),
-            coefs.seasonal_ar.len(),
-            coefs.seasonal_ma.len(),
-        );
+        for f in Factor::ALL {
+            let g = grad.of_mut(f);
+            g.clear();
+            g.resize(coefs.of(f).len(), 0.0);
+        }
         // AR factors: the forcing is the other AR factor applied to x.
         polynomial_apply(&scratch.x, &coefs.seasonal_ar, s, false, &mut scratch.u);
         for j in 1..=coefs.ar.len() {
@@ -186,7 +180,6 @@ mod tests {
     use super::super::{ObjectiveKind, prepare};
     use super::*;
     use crate::model::blueprint::Blueprint;
-    use crate::model::coefficients::Factor;
     use crate::model::simulate::Simulator;
 
     /// `F = −log L_css / m` at natural coefficients `c`.

@@ -481,13 +481,13 @@ impl UnfinishedFit {
     }
 
     /// The exact Gaussian log-likelihood (regression terms profiled by GLS) at the fit's
-    /// estimates, in the caller's units: for a CSS fit, one exact evaluation tells how
-    /// good its estimates are without an exact optimisation. `None` where the
-    /// evaluation fails.
+    /// estimates, in the caller's units, with the number of readings in it: for a CSS
+    /// fit, one exact evaluation tells how good its estimates are without an exact
+    /// optimisation. `None` where the evaluation fails.
     pub(crate) fn exact_log_likelihood_at_estimates(
         &self,
         workspace: &mut FitWorkspace,
-    ) -> Option<f64> {
+    ) -> Option<(f64, usize)> {
         let mut ev = estimate::Evaluation::default();
         workspace
             .inner
@@ -501,7 +501,7 @@ impl UnfinishedFit {
             )
             .ok()?;
         let nll = ev.neg_log_likelihood + ev.used as f64 * self.prep.data_scale.ln();
-        nll.is_finite().then_some(-nll)
+        nll.is_finite().then_some((-nll, ev.used))
     }
 
     /// The prepared data of the fit (to reuse for a blueprint with the same

@@ -834,13 +834,10 @@ fn screening_value(
     criterion: Criterion,
     ws: &mut FitWorkspace,
 ) -> Option<f64> {
-    let m = fit.model();
-    let prep = fit.prepared();
-    let present = prep.data[..prep.n].iter().filter(|v| !v.is_nan()).count();
-    let ll = fit.exact_log_likelihood_at_estimates(ws)?;
+    let (ll, present) = fit.exact_log_likelihood_at_estimates(ws)?;
     crate::stats::criteria::InformationCriteria::from_log_likelihood(
         ll,
-        m.estimated_parameters(),
+        fit.model().estimated_parameters(),
         present,
     )
     .ok()
