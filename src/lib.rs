@@ -150,6 +150,7 @@ pub use model::blueprint::{
     Blueprint, BlueprintBuilder, Estimator, MAX_EXPANDED_DEGREE, MAX_ORDER, MAX_PERIOD, ModelShape,
 };
 pub use model::coefficients::Term;
+pub use model::cycles::{Cycle, MAX_CYCLE_PERIOD, MAX_CYCLES, MAX_HARMONICS};
 pub use model::event::EventKind;
 pub use model::lag::{
     Complex, expand_autoregressive, expand_moving_average, inverse_roots, is_invertible,

@@ -502,6 +502,112 @@ fn matrix() {
             variant(SearchSettings::builder().finalists(21).build()),
             "InvalidArgument",
         ),
+        // Long cycles by harmonic terms.
+        (
+            "harmonics beyond period/2",
+            "blueprint",
+            variant(Blueprint::builder().cycle(96, 49).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "no harmonics",
+            "blueprint",
+            variant(Blueprint::builder().cycle(96, 0).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "cycle period 1",
+            "blueprint",
+            variant(Blueprint::builder().cycle(1, 1).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "absurd cycle period",
+            "blueprint",
+            variant(Blueprint::builder().cycle(2_000_000, 1).build()),
+            "InvalidSpecification",
+        ),
+        (
+            "four cycles",
+            "blueprint",
+            variant(
+                Blueprint::builder()
+                    .cycle(24, 1)
+                    .cycle(96, 1)
+                    .cycle(672, 1)
+                    .cycle(1344, 1)
+                    .build(),
+            ),
+            "InvalidSpecification",
+        ),
+        (
+            "cycle = seasonal period",
+            "blueprint",
+            variant(
+                Blueprint::builder()
+                    .seasonal(0, 0, 1, 96)
+                    .cycle(96, 2)
+                    .build(),
+            ),
+            "InvalidSpecification",
+        ),
+        (
+            "cycle removed by seasonal difference",
+            "blueprint",
+            variant(
+                Blueprint::builder()
+                    .seasonal(0, 1, 1, 96)
+                    .cycle(48, 2)
+                    .build(),
+            ),
+            "InvalidSpecification",
+        ),
+        (
+            "cycle over half the series",
+            "fit",
+            variant(
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .cycle(120, 2)
+                    .build()
+                    .unwrap()
+                    .fit(&good),
+            ),
+            "InvalidArgument",
+        ),
+        (
+            "cycle over half the series",
+            "order search",
+            variant(search_orders(
+                &good,
+                &SearchSettings::builder().cycle(150, 3).build().unwrap(),
+            )),
+            "InvalidArgument",
+        ),
+        (
+            "harmonics beyond period/2",
+            "search settings",
+            variant(SearchSettings::builder().cycle(10, 6).build()),
+            "InvalidArgument",
+        ),
+        (
+            "cycle = seasonal period",
+            "search settings",
+            variant(SearchSettings::builder().period(24).cycle(24, 3).build()),
+            "InvalidArgument",
+        ),
+        (
+            "wave beyond period/2",
+            "simulator",
+            variant(Simulator::builder().wave(10, 6, 1.0, 0.0).build()),
+            "InvalidArgument",
+        ),
+        (
+            "non-finite wave",
+            "simulator",
+            variant(Simulator::builder().wave(10, 1, f64::NAN, 0.0).build()),
+            "InvalidArgument",
+        ),
         // Timestamped readings onto a grid.
         (
             "empty",

@@ -75,6 +75,9 @@ pub(crate) fn regression_column(term: Term, len: usize, regressors: &[&[f64]]) -
     match term {
         Term::Drift => (0..len).map(|t| t as f64).collect(),
         Term::Exogenous(i) => regressors[i - 1][..len].to_vec(),
+        Term::CycleCos { .. } | Term::CycleSin { .. } => (0..len as u64)
+            .map(|t| crate::model::cycles::term_wave(term, t).unwrap_or(0.0))
+            .collect(),
         _ => vec![1.0; len],
     }
 }
@@ -145,6 +148,9 @@ pub(crate) fn prepare(bp: &Blueprint, series: &[f64], regressors: &[&[f64]]) -> 
         }));
     }
     check_full_cycles(bp.period, series.len(), WHAT)?;
+    for c in &bp.cycles {
+        check_full_harmonic_cycles(c.period, series.len(), WHAT)?;
+    }
     // Work in exactly rescaled units (a power of two) so that readings near 1e±300 neither
     // overflow nor underflow in sums of squares; results are scaled back in `fit`.
     let data_scale = s.scale;
@@ -236,6 +242,25 @@ pub(crate) fn check_full_cycles(period: usize, len: usize, what: &'static str) -
             what,
             format!(
                 "the period s = {period} needs at least two full cycles ({} readings); the series has {len}",
+                2 * period
+            ),
+        ));
+    }
+    Ok(())
+}
+
+/// A cycle described by harmonics needs at least two full cycles of readings too: with
+/// less, its shape is confounded with the slow wander of the errors.
+pub(crate) fn check_full_harmonic_cycles(
+    period: usize,
+    len: usize,
+    what: &'static str,
+) -> Result<()> {
+    if len < 2 * period {
+        return Err(Error::invalid(
+            what,
+            format!(
+                "the cycle of period {period} needs at least two full cycles ({} readings); the series has {len}",
                 2 * period
             ),
         ));

@@ -78,6 +78,9 @@ impl ForecastModel {
                     Term::Mean => 1.0,
                     Term::Drift => t as f64,
                     Term::Exogenous(i) => x[i - 1],
+                    Term::CycleCos { .. } | Term::CycleSin { .. } => {
+                        crate::model::cycles::term_wave(*term, t).unwrap_or(0.0)
+                    }
                     _ => 0.0,
                 }
             })

@@ -788,7 +788,11 @@ fn assemble(
             Term::Ar(_) | Term::Ma(_) | Term::SeasonalAr(_) | Term::SeasonalMa(_) => {
                 coefs.value(term).unwrap_or(f64::NAN)
             }
-            Term::Mean | Term::Drift | Term::Exogenous(_) => match held {
+            Term::Mean
+            | Term::Drift
+            | Term::Exogenous(_)
+            | Term::CycleCos { .. }
+            | Term::CycleSin { .. } => match held {
                 Some(v) => v,
                 None => prep
                     .profiled

@@ -4,6 +4,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::base::error::{Error, ErrorKind, Result};
 use crate::model::coefficients::{Factor, Term};
+use crate::model::cycles::{Cycle, MAX_CYCLE_PERIOD, MAX_CYCLES, MAX_HARMONICS, harmonic_terms};
 
 /// Largest seasonal period accepted (10 days of minute readings).
 pub const MAX_PERIOD: usize = 14_400;
@@ -94,6 +95,8 @@ pub struct Blueprint {
     pub(crate) mean: bool,
     pub(crate) drift: bool,
     pub(crate) exogenous: usize,
+    /// Long cycles as harmonic regressors, sorted by period.
+    pub(crate) cycles: Vec<Cycle>,
     pub(crate) held: Vec<(Term, f64)>,
     pub(crate) estimator: Estimator,
     pub(crate) tolerance: f64,
@@ -113,6 +116,8 @@ struct BlueprintRecord {
     mean: bool,
     drift: bool,
     exogenous: usize,
+    #[serde(default)]
+    cycles: Vec<Cycle>,
     held: Vec<(Term, f64)>,
     estimator: Estimator,
     tolerance: f64,
@@ -131,6 +136,9 @@ impl TryFrom<BlueprintRecord> for Blueprint {
             .estimator(r.estimator)
             .tolerance(r.tolerance)
             .max_iterations(r.max_iterations);
+        for c in r.cycles {
+            b.cycle(c.period, c.harmonics);
+        }
         for (t, v) in r.held {
             b.hold(t, v);
         }
@@ -146,6 +154,7 @@ pub struct BlueprintBuilder {
     mean: Option<bool>,
     drift: Option<bool>,
     exogenous: usize,
+    cycles: Vec<Cycle>,
     held: Vec<(Term, f64)>,
     estimator: Estimator,
     tolerance: Option<f64>,
@@ -178,6 +187,17 @@ impl BlueprintBuilder {
     /// series, and their coefficients estimated by GLS inside the likelihood.
     pub fn exogenous(&mut self, columns: usize) -> &mut Self {
         self.exogenous = columns;
+        self
+    }
+    /// Describe a long cycle of `period` readings by `harmonics` sine–cosine pairs
+    /// (regression on harmonic terms with ARMA errors; see [`Cycle`]). The usual way to
+    /// model a weekly cycle of 672 quarter-hour readings, which a seasonal lag polynomial
+    /// of that period handles slowly and with few cycles of data. At most three cycles;
+    /// `1 ≤ harmonics ≤ period/2`. Giving the same period again keeps the last count.
+    /// Forecasts and monitors compute the future harmonic terms themselves.
+    pub fn cycle(&mut self, period: usize, harmonics: usize) -> &mut Self {
+        self.cycles.retain(|c| c.period != period);
+        self.cycles.push(Cycle::new(period, harmonics));
         self
     }
     /// Hold a coefficient at a fixed value instead of estimating it. Holding the same
@@ -220,6 +240,7 @@ impl BlueprintBuilder {
                 ),
             ));
         }
+        let cycles = self.checked_cycles(period)?;
         let mut held = self.held.clone();
         held.sort_by_key(|h| h.0);
         let bp = Blueprint {
@@ -233,6 +254,7 @@ impl BlueprintBuilder {
             mean,
             drift,
             exogenous: self.exogenous,
+            cycles,
             held,
             estimator: self.estimator,
             tolerance,
@@ -286,6 +308,64 @@ impl BlueprintBuilder {
             ));
         }
         Ok(period)
+    }
+
+    /// The cycles, sorted by period, after checking each: period within limits and not the
+    /// seasonal period, harmonics between 1 and `period/2`, at most [`MAX_CYCLES`], and
+    /// each keeping at least one harmonic under the seasonal differencing.
+    fn checked_cycles(&self, period: usize) -> Result<Vec<Cycle>> {
+        let mut cycles = self.cycles.clone();
+        cycles.sort();
+        if cycles.len() > MAX_CYCLES {
+            return Err(spec_error(
+                "cycle",
+                format!(
+                    "{} cycles; at most {MAX_CYCLES} are supported",
+                    cycles.len()
+                ),
+            ));
+        }
+        let seasonal_d = self.seasonal.1;
+        for c in &cycles {
+            if c.period < 2 || c.period > MAX_CYCLE_PERIOD {
+                return Err(spec_error(
+                    "cycle",
+                    format!(
+                        "cycle period {} must be between 2 and {MAX_CYCLE_PERIOD} readings",
+                        c.period
+                    ),
+                ));
+            }
+            if c.harmonics == 0 || 2 * c.harmonics > c.period || c.harmonics > MAX_HARMONICS {
+                return Err(spec_error(
+                    "cycle",
+                    format!(
+                        "{} harmonics for the cycle of period {}: between 1 and period/2 = {} (at most {MAX_HARMONICS}); higher harmonics alias onto lower ones",
+                        c.harmonics,
+                        c.period,
+                        (c.period / 2).min(MAX_HARMONICS)
+                    ),
+                ));
+            }
+            if period > 1 && c.period == period {
+                return Err(spec_error(
+                    "cycle",
+                    format!(
+                        "period {period} is both the seasonal period and a harmonic cycle; describe it one way"
+                    ),
+                ));
+            }
+            if harmonic_terms(std::slice::from_ref(c), seasonal_d, period).is_empty() {
+                return Err(spec_error(
+                    "cycle",
+                    format!(
+                        "the seasonal difference at period {period} removes every harmonic of the cycle of period {}",
+                        c.period
+                    ),
+                ));
+            }
+        }
+        Ok(cycles)
     }
 
     /// Whether a mean and a drift are estimated: a mean by default for an undifferenced
@@ -402,7 +482,12 @@ impl Blueprint {
             out.push(Term::Drift);
         }
         out.extend((1..=self.exogenous).map(Term::Exogenous));
+        out.extend(harmonic_terms(&self.cycles, self.seasonal_d, self.period));
         out
+    }
+    /// The long cycles described by harmonic terms, sorted by period.
+    pub fn cycles(&self) -> &[Cycle] {
+        &self.cycles
     }
     /// Number of exogenous regressor columns.
     pub fn exogenous_columns(&self) -> usize {
@@ -431,6 +516,7 @@ impl Blueprint {
             self.drift,
         );
         shape.exogenous = u32::try_from(self.exogenous).unwrap_or(u32::MAX);
+        shape.set_cycles(&self.cycles);
         shape
     }
     /// Held values: finite, each a coefficient of this model, and a factor whose
@@ -475,7 +561,7 @@ impl Blueprint {
     }
 }
 
-/// A model's orders and regression terms in 16 bytes (orders are at most
+/// A model's orders and regression terms as a small copyable value (orders are at most
 /// [`MAX_ORDER`], periods at most 14,400). `Display` gives the one label the crate uses
 /// everywhere (reports, search accounts, fleet tables), in the textbook notation with the
 /// period as a subscript: `ARMA(2,0)`, `ARIMA(0,1,1) + drift`,
@@ -511,6 +597,12 @@ pub struct ModelShape {
     pub drift: bool,
     /// Number of external regressors.
     pub exogenous: u32,
+    /// Periods of the long cycles described by harmonics (0 = unused slot).
+    #[serde(default)]
+    pub cycle_periods: [u32; MAX_CYCLES],
+    /// Number of harmonics of each cycle.
+    #[serde(default)]
+    pub cycle_harmonics: [u8; MAX_CYCLES],
 }
 
 impl ModelShape {
@@ -535,6 +627,18 @@ impl ModelShape {
             mean,
             drift,
             exogenous: 0,
+            cycle_periods: [0; MAX_CYCLES],
+            cycle_harmonics: [0; MAX_CYCLES],
+        }
+    }
+
+    /// Record `cycles` (at most [`MAX_CYCLES`], as a blueprint has them).
+    pub(crate) fn set_cycles(&mut self, cycles: &[Cycle]) {
+        self.cycle_periods = [0; MAX_CYCLES];
+        self.cycle_harmonics = [0; MAX_CYCLES];
+        for (i, c) in cycles.iter().take(MAX_CYCLES).enumerate() {
+            self.cycle_periods[i] = u32::try_from(c.period).unwrap_or(u32::MAX);
+            self.cycle_harmonics[i] = u8::try_from(c.harmonics).unwrap_or(u8::MAX);
         }
     }
 }
@@ -566,10 +670,20 @@ impl std::fmt::Display for ModelShape {
             f.write_str(" + drift")?;
         }
         match self.exogenous {
-            0 => Ok(()),
-            1 => f.write_str(" + 1 regressor"),
-            k => write!(f, " + {k} regressors"),
+            0 => {}
+            1 => f.write_str(" + 1 regressor")?,
+            k => write!(f, " + {k} regressors")?,
         }
+        let mut first = true;
+        for (p, k) in self.cycle_periods.iter().zip(&self.cycle_harmonics) {
+            if *p == 0 {
+                continue;
+            }
+            f.write_str(if first { " + harmonics " } else { ", " })?;
+            write!(f, "{p}:{k}")?;
+            first = false;
+        }
+        Ok(())
     }
 }
 

@@ -25,6 +25,22 @@ pub enum Term {
     /// Coefficient of the `i`-th exogenous regressor column (1-based), e.g. outdoor
     /// temperature driving return temperature.
     Exogenous(usize),
+    /// Coefficient of the cosine of harmonic `harmonic` of a long cycle of `period`
+    /// readings, `cos(2π·harmonic·t/period)` (see [`Cycle`](crate::Cycle)).
+    CycleCos {
+        /// Period of the cycle in readings.
+        period: usize,
+        /// Harmonic number (1-based).
+        harmonic: usize,
+    },
+    /// Coefficient of the sine of harmonic `harmonic` of a long cycle of `period`
+    /// readings, `sin(2π·harmonic·t/period)`.
+    CycleSin {
+        /// Period of the cycle in readings.
+        period: usize,
+        /// Harmonic number (1-based).
+        harmonic: usize,
+    },
 }
 
 impl Term {
@@ -47,6 +63,8 @@ impl std::fmt::Display for Term {
             Term::Mean => f.write_str("mean"),
             Term::Drift => f.write_str("drift"),
             Term::Exogenous(i) => write!(f, "regressor.{i}"),
+            Term::CycleCos { period, harmonic } => write!(f, "cycle{period}.cos.{harmonic}"),
+            Term::CycleSin { period, harmonic } => write!(f, "cycle{period}.sin.{harmonic}"),
         }
     }
 }
@@ -102,7 +120,11 @@ impl Factor {
             Term::Ma(i) => Some((Factor::Ma, i)),
             Term::SeasonalAr(i) => Some((Factor::SeasonalAr, i)),
             Term::SeasonalMa(i) => Some((Factor::SeasonalMa, i)),
-            Term::Mean | Term::Drift | Term::Exogenous(_) => None,
+            Term::Mean
+            | Term::Drift
+            | Term::Exogenous(_)
+            | Term::CycleCos { .. }
+            | Term::CycleSin { .. } => None,
         }
     }
 

@@ -3,6 +3,7 @@
 
 pub(crate) mod blueprint;
 pub(crate) mod coefficients;
+pub(crate) mod cycles;
 pub(crate) mod event;
 pub(crate) mod lag;
 pub(crate) mod simulate;

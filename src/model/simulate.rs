@@ -139,6 +139,16 @@ pub struct SimulatorBuilder {
     innovations: Option<Innovations>,
     burn_in: Option<usize>,
     dropouts: Option<Dropouts>,
+    waves: Vec<Wave>,
+}
+
+/// A deterministic harmonic added to a simulated path.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct Wave {
+    period: usize,
+    harmonic: usize,
+    cos_amplitude: f64,
+    sin_amplitude: f64,
 }
 
 impl SimulatorBuilder {
@@ -189,6 +199,25 @@ impl SimulatorBuilder {
     /// slowest-decaying ψ-weight to fall below 10⁻⁸, at least 100, at most 100,000).
     pub fn burn_in(&mut self, readings: usize) -> &mut Self {
         self.burn_in = Some(readings);
+        self
+    }
+    /// Add the deterministic harmonic `a·cos(2πkt/P) + b·sin(2πkt/P)` to the path (`t` =
+    /// reading index from 0, `P` = `period`, `k` = `harmonic`): a daily or weekly shape
+    /// on top of the ARIMA noise, the model of [`BlueprintBuilder::cycle`](crate::BlueprintBuilder::cycle).
+    /// Call once per harmonic; the random stream is unaffected.
+    pub fn wave(
+        &mut self,
+        period: usize,
+        harmonic: usize,
+        cos_amplitude: f64,
+        sin_amplitude: f64,
+    ) -> &mut Self {
+        self.waves.push(Wave {
+            period,
+            harmonic,
+            cos_amplitude,
+            sin_amplitude,
+        });
         self
     }
     /// Blank out runs of readings (NaN) after simulation.
@@ -261,6 +290,20 @@ impl SimulatorBuilder {
                 "dropouts need 0 <= start probability <= 1 and a finite mean run length >= 1",
             ));
         }
+        for w in &self.waves {
+            if w.period < 2 || w.harmonic == 0 || 2 * w.harmonic > w.period {
+                return Err(Error::invalid(
+                    WHAT,
+                    format!(
+                        "a wave needs period >= 2 and 1 <= harmonic <= period/2, got period {} and harmonic {}",
+                        w.period, w.harmonic
+                    ),
+                ));
+            }
+            if !(w.cos_amplitude.is_finite() && w.sin_amplitude.is_finite()) {
+                return Err(Error::invalid(WHAT, "wave amplitudes must be finite"));
+            }
+        }
         let ar = lag::expand_autoregressive(&self.ar, &self.seasonal_ar, period);
         let ma = lag::expand_moving_average(&self.ma, &self.seasonal_ma, period);
         let burn_in = match self.burn_in {
@@ -278,6 +321,7 @@ impl SimulatorBuilder {
             innovations,
             burn_in,
             dropouts: self.dropouts,
+            waves: self.waves.clone(),
         })
     }
 }
@@ -321,6 +365,7 @@ pub struct Simulator {
     innovations: Innovations,
     burn_in: usize,
     dropouts: Option<Dropouts>,
+    waves: Vec<Wave>,
 }
 
 impl Simulator {
@@ -406,6 +451,13 @@ impl Simulator {
             }
             for v in out.iter_mut() {
                 *v += self.level;
+            }
+        }
+        for w in &self.waves {
+            for (t, v) in out.iter_mut().enumerate() {
+                let t = t as u64;
+                *v += w.cos_amplitude * crate::model::cycles::wave(w.period, w.harmonic, t, false)
+                    + w.sin_amplitude * crate::model::cycles::wave(w.period, w.harmonic, t, true);
             }
         }
         if let Some(g) = self.dropouts {

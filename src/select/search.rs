@@ -7,6 +7,7 @@ use crate::base::error::{Error, ErrorKind, Result};
 use crate::estimate::Prepared;
 use crate::fit::fitted::{FitWorkspace, FittedModel, UnfinishedFit};
 use crate::model::blueprint::{Blueprint, Estimator, MAX_ORDER, MAX_PERIOD, ModelShape};
+use crate::model::cycles::{Cycle, MAX_CYCLES};
 use crate::stats::criteria::Criterion;
 use crate::stats::unitroot::{TrendTerms, augmented_dickey_fuller, kpss, seasonal_strength};
 
@@ -37,6 +38,8 @@ pub struct SearchSettings {
     explore_near_ties: bool,
     screening: bool,
     finalists: usize,
+    /// Long cycles described by harmonics, with the most harmonics to try for each.
+    cycles: Vec<Cycle>,
 }
 
 /// Upper bounds on the orders an order search may try.
@@ -74,6 +77,7 @@ impl Default for SearchSettings {
             explore_near_ties: false,
             screening: true,
             finalists: 3,
+            cycles: Vec::new(),
         }
     }
 }
@@ -126,6 +130,11 @@ impl SearchSettings {
     /// passes the whiteness gate; see [`SearchSettingsBuilder::finalists`]).
     pub fn finalists(&self) -> usize {
         self.finalists
+    }
+    /// The long cycles described by harmonics, each with the most harmonics the search
+    /// tries (sorted by period).
+    pub fn cycles(&self) -> &[Cycle] {
+        &self.cycles
     }
 }
 
@@ -209,6 +218,18 @@ impl SearchSettingsBuilder {
         self.settings.finalists = count;
         self
     }
+    /// Describe a long cycle of `period` readings by harmonic terms, their number chosen
+    /// by the criterion between 0 (no cycle) and `max_harmonics` (`≤ period/2`; at most
+    /// three cycles). For 15-minute readings: `.cycle(672, 10)` for the weekly cycle beside
+    /// a seasonal period of 96, or `.cycle(96, 10).cycle(672, 10)` with non-seasonal ARMA
+    /// errors — regression on harmonic terms with ARMA errors, the published practice for
+    /// long periods. Giving the same period again keeps the last bound.
+    pub fn cycle(&mut self, period: usize, max_harmonics: usize) -> &mut Self {
+        self.settings.cycles.retain(|c| c.period != period);
+        self.settings.cycles.push(Cycle::new(period, max_harmonics));
+        self.settings.cycles.sort();
+        self
+    }
     /// Validate and return the settings: `alpha` in (0, 1), a period of at most
     /// [`MAX_PERIOD`], bounds of at most [`MAX_ORDER`], fixed differencing of at most 2
     /// (d) and 1 (D).
@@ -253,6 +274,26 @@ impl SearchSettingsBuilder {
                 WHAT,
                 format!("fixed differencing d = {d}, D = {sd}: at most d = 2 and D = 1"),
             ));
+        }
+        if !s.cycles.is_empty() {
+            // The cycles' own limits, as a blueprint checks them (before differencing is
+            // chosen: harmonics a seasonal difference removes are dropped later).
+            let mut b = Blueprint::builder();
+            if s.period > 1 {
+                b.seasonal(0, 0, 1, s.period);
+            }
+            for c in &s.cycles {
+                b.cycle(c.period, c.harmonics);
+            }
+            b.build().map_err(|e| {
+                Error::invalid(
+                    WHAT,
+                    match e.kind() {
+                        ErrorKind::InvalidSpecification { message, .. } => message.clone(),
+                        _ => e.to_string(),
+                    },
+                )
+            })?;
         }
         Ok(s.clone())
     }
@@ -463,26 +504,52 @@ pub fn search_orders_with(
     let s = settings.period.max(1);
     crate::base::screen::screen(series, WHAT, 8, crate::base::screen::ConstantPolicy::Refuse)?;
     crate::estimate::check_full_cycles(s, series.len(), WHAT)?;
+    for c in &settings.cycles {
+        crate::estimate::check_full_harmonic_cycles(c.period, series.len(), WHAT)?;
+    }
+    // With long cycles, the differencing tests and the correlogram read the series less
+    // its harmonic shape (least squares at the most harmonics allowed).
+    let decycled = decycled(series, &settings.cycles);
     let differencing = match settings.differencing {
         Some((d, sd)) => DifferencingChoice {
             d,
             seasonal_d: if s > 1 { sd } else { 0 },
             evidence: "differencing fixed by the caller".to_string(),
         },
-        None => choose_differencing(series, s)?,
+        None => choose_differencing(decycled.as_deref().unwrap_or(series), s)?,
     };
-    let mut bench = CandidateBench::new(series, settings, &differencing);
+    let mut bench = CandidateBench::new(series, decycled, settings, &differencing);
+    if !bench.cycles.is_empty() {
+        choose_harmonics(&mut bench, ws);
+    }
     if settings.exhaustive {
         walk_exhaustive(&mut bench, ws);
     } else {
         walk_stepwise(&mut bench, ws);
+    }
+    if !bench.cycles.is_empty() {
+        refine_harmonics(&mut bench, ws);
     }
     bench.refit_finalists(ws);
     let CandidateBench {
         tried, mut fits, ..
     } = bench;
     let (idx, adequate) = select(&tried)?;
-    let explanation = explain(settings, &differencing, &tried, idx, adequate);
+    let mut explanation = explain(settings, &differencing, &tried, idx, adequate);
+    if !settings.cycles.is_empty() {
+        let trimmed = explanation.trim_end_matches('.').len();
+        explanation.truncate(trimmed);
+        explanation.push_str(&format!(
+            ". Harmonics per cycle chosen by {} (at most {})",
+            settings.criterion,
+            settings
+                .cycles
+                .iter()
+                .map(|c| format!("{} at period {}", c.harmonics, c.period))
+                .collect::<Vec<_>>()
+                .join(", ")
+        ));
+    }
     let model = fits[idx]
         .take()
         .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?
@@ -506,6 +573,8 @@ struct Orders {
     seasonal_p: usize,
     seasonal_q: usize,
     constant: bool,
+    /// Harmonics of each of the bench's cycles (0 = the cycle left out).
+    harmonics: [usize; MAX_CYCLES],
 }
 
 /// Candidate evaluation: fits the candidates of one search on one series, records each in
@@ -525,13 +594,21 @@ struct CandidateBench<'a> {
     orders: Vec<Orders>,
     fits: Vec<Option<UnfinishedFit>>,
     seen: HashMap<Orders, usize>,
-    /// Prepared data by constant (with or without a mean/drift column).
-    prepared: HashMap<bool, Prepared>,
+    /// Prepared data by constant (with or without a mean/drift column) and harmonics.
+    prepared: HashMap<(bool, [usize; MAX_CYCLES]), Prepared>,
+    /// The search's long cycles (those the differencing leaves a harmonic of), with the
+    /// most harmonics to try.
+    cycles: Vec<Cycle>,
+    /// The harmonics the walk uses for its candidates.
+    harmonics: [usize; MAX_CYCLES],
+    /// The series less its harmonic shape at the most harmonics (`None` without cycles).
+    decycled: Option<Vec<f64>>,
 }
 
 impl<'a> CandidateBench<'a> {
     fn new(
         series: &'a [f64],
+        decycled: Option<Vec<f64>>,
         settings: &'a SearchSettings,
         differencing: &DifferencingChoice,
     ) -> Self {
@@ -541,7 +618,27 @@ impl<'a> CandidateBench<'a> {
             bounds.seasonal_p = 0;
             bounds.seasonal_q = 0;
         }
+        let cycles: Vec<Cycle> = settings
+            .cycles
+            .iter()
+            .copied()
+            .filter(|c| {
+                !crate::model::cycles::harmonic_terms(
+                    std::slice::from_ref(c),
+                    differencing.seasonal_d,
+                    period,
+                )
+                .is_empty()
+            })
+            .collect();
+        let mut harmonics = [0; MAX_CYCLES];
+        for (h, c) in harmonics.iter_mut().zip(&cycles) {
+            *h = c.harmonics;
+        }
         CandidateBench {
+            cycles,
+            harmonics,
+            decycled,
             series,
             settings,
             d: differencing.d,
@@ -605,6 +702,9 @@ impl<'a> CandidateBench<'a> {
         let (d, sd, s) = (self.d, self.seasonal_d, self.period);
         let mut builder = Blueprint::builder();
         builder.nonseasonal(o.p, d, o.q).estimator(estimator);
+        for c in self.cycles_of(o) {
+            builder.cycle(c.period, c.harmonics);
+        }
         if s > 1 {
             builder.seasonal(o.seasonal_p, sd, o.seasonal_q, s);
         }
@@ -614,6 +714,35 @@ impl<'a> CandidateBench<'a> {
             builder.drift_term(o.constant);
         }
         builder.build()
+    }
+
+    /// The cycles of candidate `o` with its harmonics (cycles with none left out).
+    fn cycles_of(&self, o: Orders) -> Vec<Cycle> {
+        self.cycles
+            .iter()
+            .zip(o.harmonics)
+            .filter(|(_, k)| *k > 0)
+            .map(|(c, k)| Cycle::new(c.period, k))
+            .collect()
+    }
+
+    /// Orders for the walk: the ARMA orders and constant given, the bench's harmonics.
+    fn orders(
+        &self,
+        p: usize,
+        q: usize,
+        seasonal_p: usize,
+        seasonal_q: usize,
+        constant: bool,
+    ) -> Orders {
+        Orders {
+            p,
+            q,
+            seasonal_p,
+            seasonal_q,
+            constant,
+            harmonics: self.harmonics,
+        }
     }
 
     /// Fit `o` by `estimator` (from `start` if given) and make its record (see
@@ -632,19 +761,20 @@ impl<'a> CandidateBench<'a> {
         } else {
             s
         };
-        let shape = ModelShape::of_orders(
+        let mut shape = ModelShape::of_orders(
             [o.p, d, o.q],
             [o.seasonal_p, sd, o.seasonal_q],
             in_force,
             o.constant && d + sd == 0,
             o.constant && d + sd == 1,
         );
+        shape.set_cycles(&self.cycles_of(o));
         // Standard errors and the forecasting state only for the chosen candidate (the
         // Hessian is 2k² + 1 evaluations; the state is a filter pass over the series).
         // Candidates with the same constant share their prepared data (same
         // differencing and regression columns): screened and differenced once.
         let fit = self.blueprint_of(o, estimator).and_then(|bp| {
-            let prep = match self.prepared.get(&o.constant) {
+            let prep = match self.prepared.get(&(o.constant, o.harmonics)) {
                 Some(p) => p.reuse_for(&bp)?,
                 None => crate::estimate::prepare(&bp, self.series, &[])?,
             };
@@ -653,7 +783,7 @@ impl<'a> CandidateBench<'a> {
         });
         if let Ok(u) = &fit {
             self.prepared
-                .entry(o.constant)
+                .entry((o.constant, o.harmonics))
                 .or_insert_with(|| u.prepared().clone());
         }
         self.record(fit, shape, estimator == self.settings.estimator, ws)
@@ -798,7 +928,10 @@ impl<'a> CandidateBench<'a> {
             .collect();
         refitted.sort_by_key(|&i| {
             let o = self.orders[i];
-            (o.p + o.q + o.seasonal_p + o.seasonal_q, o.constant)
+            (
+                o.p + o.q + o.seasonal_p + o.seasonal_q + o.harmonics.iter().sum::<usize>(),
+                o.constant,
+            )
         });
         for i in refitted {
             let Some(fit) = self.fits[i].take() else {
@@ -868,6 +1001,7 @@ impl CandidateBench<'_> {
                     && n.seasonal_p <= o.seasonal_p
                     && n.seasonal_q <= o.seasonal_q
                     && (!n.constant || o.constant)
+                    && n.harmonics.iter().zip(&o.harmonics).all(|(a, b)| a <= b)
             })
             .filter_map(|(_, &i)| self.fits[i].as_ref())
             .filter(|n| {
@@ -901,6 +1035,140 @@ impl CandidateBench<'_> {
     }
 }
 
+/// The series less its harmonic shape: least squares of the present readings on a
+/// constant and every harmonic term of `cycles` at their most harmonics, the fit
+/// subtracted (missing readings stay missing). `None` without cycles or when the least
+/// squares cannot be solved.
+fn decycled(series: &[f64], cycles: &[Cycle]) -> Option<Vec<f64>> {
+    if cycles.is_empty() {
+        return None;
+    }
+    let terms = crate::model::cycles::harmonic_terms(cycles, 0, 1);
+    let present: Vec<usize> = (0..series.len()).filter(|&t| !series[t].is_nan()).collect();
+    let column = |term: Option<crate::model::coefficients::Term>| -> Vec<f64> {
+        present
+            .iter()
+            .map(|&t| {
+                term.map_or(1.0, |term| {
+                    crate::model::cycles::term_wave(term, t as u64).unwrap_or(0.0)
+                })
+            })
+            .collect()
+    };
+    let mut cols = vec![column(None)];
+    cols.extend(terms.iter().map(|&t| column(Some(t))));
+    let y = present.iter().map(|&t| series[t]).collect();
+    let (b, _) = crate::base::linalg::least_squares_owned(cols, y)?;
+    Some(
+        series
+            .iter()
+            .enumerate()
+            .map(|(t, &v)| {
+                let shape: f64 = terms
+                    .iter()
+                    .zip(&b[1..])
+                    .map(|(&term, bk)| {
+                        bk * crate::model::cycles::term_wave(term, t as u64).unwrap_or(0.0)
+                    })
+                    .sum();
+                v - b[0] - shape
+            })
+            .collect(),
+    )
+}
+
+/// Choose the harmonics of each cycle before the walk: with a working error model
+/// (ARMA(1,1), with a seasonal MA term at a seasonal period, within the bounds), each
+/// cycle's count is scanned from 0 to its bound while the others are held, keeping the
+/// best ranking value; two sweeps at most. The walk then searches the ARMA orders at
+/// these harmonics, and [`refine_harmonics`] revisits them with the walk's orders.
+fn choose_harmonics(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
+    let b = bench.bounds;
+    let seasonal_q = if bench.period > 1 {
+        1.min(b.seasonal_q)
+    } else {
+        0
+    };
+    let constant = bench.constant_allowed();
+    let mut o = bench.orders(1.min(b.p), 1.min(b.q), 0, seasonal_q, constant);
+    for _sweep in 0..2 {
+        let mut changed = false;
+        for i in 0..bench.cycles.len() {
+            let mut best = (
+                bench.evaluate(o, ws).unwrap_or(f64::INFINITY),
+                o.harmonics[i],
+            );
+            for k in 0..=bench.cycles[i].harmonics {
+                let mut next = o;
+                next.harmonics[i] = k;
+                if let Some(v) = bench.evaluate(next, ws)
+                    && v < best.0
+                {
+                    best = (v, k);
+                }
+            }
+            if best.1 != o.harmonics[i] {
+                o.harmonics[i] = best.1;
+                changed = true;
+            }
+        }
+        if !changed {
+            break;
+        }
+    }
+    bench.harmonics = o.harmonics;
+}
+
+/// After the walk: from the best candidate (adequate ones first), step each cycle's
+/// harmonics by ±1 with its ARMA orders while the ranking value improves without losing
+/// the whiteness gate.
+fn refine_harmonics(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
+    let key = |bench: &CandidateBench<'_>, i: usize| {
+        (
+            !bench.tried[i].adequate,
+            bench.ranking_value(i).unwrap_or(f64::INFINITY),
+        )
+    };
+    let Some(start) = (0..bench.tried.len())
+        .filter(|&i| bench.ranking_value(i).is_some())
+        .min_by(|&i, &j| {
+            let (a, b) = (key(bench, i), key(bench, j));
+            a.0.cmp(&b.0).then(a.1.total_cmp(&b.1))
+        })
+    else {
+        return;
+    };
+    let mut o = bench.orders[start];
+    let mut at = key(bench, start);
+    for _ in 0..2 * crate::model::cycles::MAX_HARMONICS {
+        let mut moved = false;
+        for i in 0..bench.cycles.len() {
+            for k in [o.harmonics[i].wrapping_sub(1), o.harmonics[i] + 1] {
+                if k > bench.cycles[i].harmonics {
+                    continue;
+                }
+                let mut next = o;
+                next.harmonics[i] = k;
+                if bench.evaluate(next, ws).is_none() {
+                    continue;
+                }
+                let Some(&j) = bench.seen.get(&next) else {
+                    continue;
+                };
+                let there = key(bench, j);
+                if there.0 <= at.0 && there.1 < at.1 {
+                    o = next;
+                    at = there;
+                    moved = true;
+                }
+            }
+        }
+        if !moved {
+            break;
+        }
+    }
+}
+
 /// The exhaustive walk: every order within the bounds, with and without a constant.
 fn walk_exhaustive(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
     let b = bench.bounds;
@@ -914,16 +1182,8 @@ fn walk_exhaustive(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
             for seasonal_p in 0..=b.seasonal_p {
                 for seasonal_q in 0..=b.seasonal_q {
                     for &constant in constants {
-                        bench.evaluate(
-                            Orders {
-                                p,
-                                q,
-                                seasonal_p,
-                                seasonal_q,
-                                constant,
-                            },
-                            ws,
-                        );
+                        let o = bench.orders(p, q, seasonal_p, seasonal_q, constant);
+                        bench.evaluate(o, ws);
                     }
                 }
             }
@@ -968,13 +1228,13 @@ fn walk_stepwise(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
     };
     let proposed = proposed_orders(bench);
     for (p, q, sp, sq) in starts.into_iter().chain(proposed) {
-        let o = Orders {
-            p: p.min(b.p),
-            q: q.min(b.q),
-            seasonal_p: sp.min(b.seasonal_p),
-            seasonal_q: sq.min(b.seasonal_q),
-            constant: c0,
-        };
+        let o = bench.orders(
+            p.min(b.p),
+            q.min(b.q),
+            sp.min(b.seasonal_p),
+            sq.min(b.seasonal_q),
+            c0,
+        );
         let v = bench.evaluate(o, ws);
         note(o, v, &mut scored);
     }
@@ -1031,6 +1291,7 @@ fn walk_stepwise(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
                 seasonal_p,
                 seasonal_q,
                 constant,
+                harmonics: o.harmonics,
             };
             let v = bench.evaluate(next, ws);
             note(next, v, &mut scored);
@@ -1048,7 +1309,8 @@ fn walk_stepwise(bench: &mut CandidateBench<'_>, ws: &mut FitWorkspace) {
 /// proposal within the bounds is returned (empty when the correlogram cannot be computed).
 fn proposed_orders(bench: &CandidateBench<'_>) -> Vec<(usize, usize, usize, usize)> {
     let s = bench.period;
-    let w = crate::estimate::difference(bench.series, bench.d, bench.seasonal_d, s);
+    let source = bench.decycled.as_deref().unwrap_or(bench.series);
+    let w = crate::estimate::difference(source, bench.d, bench.seasonal_d, s);
     let n = w.iter().filter(|v| !v.is_nan()).count();
     let short = 12.min(if s > 1 { s - 1 } else { 12 }).min(n / 4);
     let max_lag = if s > 1 { (3 * s).min(n / 2) } else { short };
@@ -1300,7 +1562,7 @@ mod tests {
             seasonal_d: sd,
             evidence: String::new(),
         };
-        proposed_orders(&CandidateBench::new(x, &settings, &choice))
+        proposed_orders(&CandidateBench::new(x, None, &settings, &choice))
     }
 
     /// The correlogram proposes what an analyst would read off it (textbook signatures,
