@@ -9,7 +9,9 @@
 //! or `cargo run --release --example fleet -- --search [series]` for the order-search
 //! benchmark (default 500 series × 1000 readings, projected to 10,000),
 //! `cargo run --release --example fleet -- --seasonal [series]` for its seasonal mode
-//! (21-day period-96 series, gap-free and with 2% drop-outs; default 200 series), or
+//! (21-day period-96 series, gap-free and with 2% drop-outs; default 200 series),
+//! `cargo run --release --example fleet -- --weekly [series]` for the same with a weekly
+//! cycle by harmonics (28 days, the search also choosing up to 10 weekly harmonics), or
 //! `cargo run --release --example fleet -- --events [series]` for the event-search
 //! benchmark (default 10,000 series × 1000 readings, 5% of them with one injected event:
 //! the plain fleet fit and the fit with `find_events`, alternated in the same run).
@@ -129,10 +131,22 @@ fn search_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
 /// 15-minute readings (2,016), gap-free and with 2% of readings missing in drop-out runs
 /// (mean run 8 readings = 2 hours). Prints the default search's time per series on one
 /// thread (median of up to 5 series), the fleet time on 2 threads projected to 10,000
-/// series, and the orders chosen.
-fn seasonal_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
+/// series, and the orders chosen. With `weekly`: 28 days (2,688 readings) with a weekly
+/// shape of two harmonics added, searched with up to 10 weekly harmonics.
+fn seasonal_bench(count: usize, weekly: bool) -> Result<(), Box<dyn std::error::Error>> {
     use std::collections::BTreeMap;
-    let settings = lagwise::SearchSettings::builder().period(96).build()?;
+    let mut settings = lagwise::SearchSettings::builder();
+    settings.period(96);
+    if weekly {
+        settings.cycle(672, 10);
+    }
+    let settings = settings.build()?;
+    let length = if weekly { 2688 } else { 2016 };
+    let mode = if weekly {
+        "seasonal search with weekly harmonics"
+    } else {
+        "seasonal search"
+    };
     for (label, dropouts) in [
         ("gap-free", None),
         ("2% drop-outs", Some(lagwise::Dropouts::new(0.0025, 8.0))),
@@ -147,12 +161,15 @@ fn seasonal_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
         if let Some(d) = dropouts {
             b.dropouts(d);
         }
+        if weekly {
+            b.wave(672, 1, 1.2, 0.6).wave(672, 2, -0.5, 0.3);
+        }
         let sim = b.build()?;
         let data: Vec<Vec<f64>> = (0..count)
-            .map(|i| sim.generate(2016, 77_000 + i as u64))
+            .map(|i| sim.generate(length, 77_000 + i as u64))
             .collect();
         let missing =
-            data.iter().flatten().filter(|v| v.is_nan()).count() as f64 / (count * 2016) as f64;
+            data.iter().flatten().filter(|v| v.is_nan()).count() as f64 / (count * length) as f64;
         let mut one: Vec<f64> = data
             .iter()
             .take(count.min(5))
@@ -180,7 +197,7 @@ fn seasonal_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
         let mut chosen: Vec<_> = chosen.into_iter().collect();
         chosen.sort_by_key(|e| std::cmp::Reverse(e.1));
         println!(
-            "seasonal search, {label} ({:.1}% missing): one series on one thread {:.3} s (median of {}); {count} series on 2 threads {secs:.1} s → 10,000 series {:.0} min",
+            "{mode}, {label} ({:.1}% missing): one series on one thread {:.3} s (median of {}); {count} series on 2 threads {secs:.1} s → 10,000 series {:.0} min",
             100.0 * missing,
             one[one.len() / 2],
             one.len(),
@@ -253,7 +270,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     }
     if raw.first().map(|s| s.as_str()) == Some("--seasonal") {
         let count = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(200);
-        return seasonal_bench(count);
+        return seasonal_bench(count, false);
+    }
+    if raw.first().map(|s| s.as_str()) == Some("--weekly") {
+        let count = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(200);
+        return seasonal_bench(count, true);
     }
     if raw.first().map(|s| s.as_str()) == Some("--search") {
         let count = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(500);

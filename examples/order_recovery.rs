@@ -13,13 +13,18 @@
 //!   ranked by that criterion; not for the period-96 case, where the grid's exact fits
 //!   would take hours).
 //!
+//! Two cases add long cycles by harmonic terms (28 days of 15-minute readings, harmonics
+//! allowed up to 10 per cycle): ARMA(1,1) errors around a daily shape of three harmonics
+//! and a weekly one of two, and SARIMA(1,0,1)×(0,1,1)₉₆ with a weekly shape of two
+//! harmonics. A hit there needs the orders and every cycle's harmonic count right.
+//!
 //! It also prints the orders the default search chose instead most often, and how often a
 //! default choice sits at a bound of the search.
 
 use std::collections::BTreeMap;
 use std::time::Instant;
 
-use lagwise::{Criterion, SearchOutcome, SearchSettings, Simulator, search_orders};
+use lagwise::{Criterion, Cycle, SearchOutcome, SearchSettings, Simulator, search_orders};
 
 /// `(p, d, q)(P, D, Q)` of a search outcome's chosen model.
 type Orders = ((usize, usize, usize), (usize, usize, usize));
@@ -32,6 +37,20 @@ struct Case {
     truth: Orders,
     grid: Option<(usize, usize, usize, usize)>,
     reps_divisor: u64,
+    /// Long cycles: the harmonics simulated, and the search's bound for each.
+    cycles: Vec<(Cycle, usize)>,
+}
+
+impl Case {
+    /// Whether a search chose the simulated orders and harmonics.
+    fn hit(&self, out: &SearchOutcome) -> bool {
+        orders_of(out) == self.truth && self.harmonics_hit(out)
+    }
+    /// Whether a search chose the simulated harmonics (whatever the orders).
+    fn harmonics_hit(&self, out: &SearchOutcome) -> bool {
+        let truth: Vec<Cycle> = self.cycles.iter().map(|c| c.0).collect();
+        out.model.blueprint().cycles() == truth.as_slice()
+    }
 }
 
 fn orders_of(out: &SearchOutcome) -> Orders {
@@ -50,6 +69,7 @@ fn orders_of(out: &SearchOutcome) -> Orders {
 #[derive(Default, Clone)]
 struct Verdicts {
     default_hit: bool,
+    harmonics_hit: bool,
     aicc_hit: bool,
     unscreened_hit: bool,
     grid_aicc_first: Option<bool>,
@@ -108,6 +128,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             truth: ((1, 0, 1), (0, 0, 0)),
             grid: Some((3, 3, 0, 0)),
             reps_divisor: 1,
+            cycles: Vec::new(),
         },
         Case {
             name: "AR(2) φ=(0.5,0.3)",
@@ -117,6 +138,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             truth: ((2, 0, 0), (0, 0, 0)),
             grid: Some((3, 3, 0, 0)),
             reps_divisor: 1,
+            cycles: Vec::new(),
         },
         Case {
             name: "ARIMA(0,1,1) θ=0.5",
@@ -129,6 +151,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             truth: ((0, 1, 1), (0, 0, 0)),
             grid: Some((3, 3, 0, 0)),
             reps_divisor: 1,
+            cycles: Vec::new(),
         },
         Case {
             name: "SARIMA(1,0,0)×(0,1,1)₁₂ φ=0.6 Θ=−0.6",
@@ -142,6 +165,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             truth: ((1, 0, 0), (0, 1, 1)),
             grid: Some((2, 2, 1, 1)),
             reps_divisor: 2,
+            cycles: Vec::new(),
         },
         Case {
             name: "SARIMA(1,0,1)×(0,1,1)₉₆ 21 days",
@@ -158,6 +182,46 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             truth: ((1, 0, 1), (0, 1, 1)),
             grid: None,
             reps_divisor: 2,
+            cycles: Vec::new(),
+        },
+        Case {
+            name: "ARMA(1,1) + harmonics 96:3, 672:2 28 days",
+            sim: Simulator::builder()
+                .autoregressive(&[0.6])
+                .moving_average(&[0.4])
+                .level(55.0)
+                .innovation_sd(0.4)
+                .wave(96, 1, 3.0, -2.0)
+                .wave(96, 2, 1.0, 0.5)
+                .wave(96, 3, -0.4, 0.3)
+                .wave(672, 1, 1.5, 0.8)
+                .wave(672, 2, -0.6, 0.4)
+                .build()?,
+            length: 2688,
+            period: 1,
+            truth: ((1, 0, 1), (0, 0, 0)),
+            grid: None,
+            reps_divisor: 2,
+            cycles: vec![(Cycle::new(96, 3), 10), (Cycle::new(672, 2), 10)],
+        },
+        Case {
+            name: "SARIMA(1,0,1)×(0,1,1)₉₆ + harmonics 672:2 28 days",
+            sim: Simulator::builder()
+                .autoregressive(&[0.6])
+                .moving_average(&[0.3])
+                .seasonal(&[], &[-0.6], 96)
+                .differencing(0, 1)
+                .level(61.0)
+                .innovation_sd(0.3)
+                .wave(672, 1, 1.2, 0.6)
+                .wave(672, 2, -0.5, 0.3)
+                .build()?,
+            length: 2688,
+            period: 96,
+            truth: ((1, 0, 1), (0, 1, 1)),
+            grid: None,
+            reps_divisor: 2,
+            cycles: vec![(Cycle::new(672, 2), 10)],
         },
     ];
     println!("order recovery (default settings: stepwise, CSS screening, BIC, whiteness gate)");
@@ -168,13 +232,16 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         let t = Instant::now();
         let n_reps = (reps / case.reps_divisor).max(1);
         let build = |criterion: Criterion, screening: bool| {
-            SearchSettings::builder()
-                .period(case.period)
+            let mut b = SearchSettings::builder();
+            b.period(case.period)
                 .criterion(criterion)
-                .screening(screening)
-                .build()
+                .screening(screening);
+            for (c, bound) in &case.cycles {
+                b.cycle(c.period, *bound);
+            }
+            b.build()
         };
-        let default = SearchSettings::builder().period(case.period).build()?;
+        let default = build(Criterion::Schwarz, true)?;
         let aicc = build(Criterion::AkaikeCorrected, true)?;
         let unscreened = build(Criterion::Schwarz, false)?;
         let exhaustive = case
@@ -205,18 +272,25 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
                                 let b = search_orders(&x, aicc).ok()?;
                                 let c = search_orders(&x, unscreened).ok()?;
                                 let mut v = Verdicts {
-                                    default_hit: orders_of(&a) == case.truth,
-                                    aicc_hit: orders_of(&b) == case.truth,
-                                    unscreened_hit: orders_of(&c) == case.truth,
+                                    default_hit: case.hit(&a),
+                                    harmonics_hit: case.harmonics_hit(&a),
+                                    aicc_hit: case.hit(&b),
+                                    unscreened_hit: case.hit(&c),
                                     chosen: a.model.blueprint().shape_label(),
                                     seconds,
                                     ..Verdicts::default()
                                 };
                                 let ((p, _, q), (sp, _, sq)) = orders_of(&a);
+                                let chosen = a.model.blueprint().cycles();
                                 v.at_bound = p == bounds.p
                                     || q == bounds.q
                                     || (case.period > 1
-                                        && (sp == bounds.seasonal_p || sq == bounds.seasonal_q));
+                                        && (sp == bounds.seasonal_p || sq == bounds.seasonal_q))
+                                    || case.cycles.iter().any(|(c, bound)| {
+                                        chosen
+                                            .iter()
+                                            .any(|k| k.period == c.period && k.harmonics == *bound)
+                                    });
                                 if let Some(ex) = exhaustive {
                                     let g = search_orders(&x, ex).ok()?;
                                     let (d, sd) = (g.differencing.d, g.differencing.seasonal_d);
@@ -282,6 +356,12 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             t.elapsed().as_secs_f64()
         );
         println!("    default chose instead: {}", others.join(", "));
+        if !case.cycles.is_empty() {
+            println!(
+                "    default chose the simulated harmonics (any orders): {}",
+                pct(&|r| r.harmonics_hit)
+            );
+        }
     }
     Ok(())
 }

@@ -8,12 +8,13 @@ use lagwise::{
     search_orders,
 };
 
-/// Quarter-hour readings of a return temperature (invented): ARMA(1,1) noise around
+/// Quarter-hour readings of a return temperature (invented): ARMA(1,1) noise (φ = 0.6,
+/// θ = 0.4, as in the recovery study) around
 /// 55 °C with a daily shape of three harmonics and a weekly one of two.
 fn daily_and_weekly() -> Simulator {
     Simulator::builder()
-        .autoregressive(&[0.7])
-        .moving_average(&[0.2])
+        .autoregressive(&[0.6])
+        .moving_average(&[0.4])
         .level(55.0)
         .innovation_sd(0.4)
         .wave(96, 1, 3.0, -2.0)
@@ -26,8 +27,8 @@ fn daily_and_weekly() -> Simulator {
 }
 
 /// Recovery: with harmonics allowed up to 10 per cycle, the search picks the simulated
-/// counts (3 daily, 2 weekly) and ARMA(1,1) errors. Study figures are in the README
-/// (`examples/order_recovery.rs`); this floor is 7 of 8 seeds at four weeks.
+/// counts (3 daily, 2 weekly) and ARMA(1,1) errors. The study (`examples/order_recovery.rs`,
+/// README) finds 96% over 100 replications; this floor is 7 of 8 seeds at four weeks.
 #[test]
 fn search_recovers_daily_and_weekly_harmonics() {
     let sim = daily_and_weekly();
@@ -61,7 +62,7 @@ fn search_recovers_daily_and_weekly_harmonics() {
         );
     }
     assert!(harmonics >= 7, "harmonic counts right for {harmonics} of 8");
-    assert!(exact >= 6, "harmonics and orders right for {exact} of 8");
+    assert!(exact >= 7, "harmonics and orders right for {exact} of 8");
 }
 
 /// Beside a seasonal difference at period 96, a weekly cycle by harmonics: the search

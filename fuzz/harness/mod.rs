@@ -116,6 +116,13 @@ fn blueprint(b: &mut Bytes<'_>) -> Option<lagwise::Blueprint> {
         let v = b.f64();
         builder.hold(lagwise::Term::Ar(1), v);
     }
+    if flags & 64 != 0 {
+        // A long cycle by harmonics (zero harmonics, more than period/2, the seasonal
+        // period itself or one the seasonal difference removes are build errors).
+        let cycle = 2 + (b.byte() % 60) as usize;
+        let harmonics = (b.byte() % 5) as usize;
+        builder.cycle(cycle, harmonics);
+    }
     builder.build().ok()
 }
 
@@ -150,17 +157,21 @@ pub(crate) fn fit(data: &[u8]) {
     }
 }
 
-/// An order search at the blueprint's period over the same readings (settings from the
-/// first byte's bits: screening on or off, one or three finalists); a successful search's
-/// account must hold its chosen model, refitted, with a finite criterion.
+/// An order search at the blueprint's period (and its cycles, harmonics up to the
+/// blueprint's count) over the same readings (settings from the first byte's bits:
+/// screening on or off, one or three finalists); a successful search's account must hold
+/// its chosen model, refitted, with a finite criterion.
 fn search(bp: &lagwise::Blueprint, x: &[f64], bits: u8) {
-    let Ok(settings) = lagwise::SearchSettings::builder()
+    let mut settings = lagwise::SearchSettings::builder();
+    settings
         .period(bp.shape().period.max(1) as usize)
         .max_orders(2, 2, 1, 1)
         .screening(bits & 4 == 0)
-        .finalists(if bits & 8 == 0 { 3 } else { 1 })
-        .build()
-    else {
+        .finalists(if bits & 8 == 0 { 3 } else { 1 });
+    for c in bp.cycles() {
+        settings.cycle(c.period, c.harmonics);
+    }
+    let Ok(settings) = settings.build() else {
         return;
     };
     let Ok(out) = lagwise::search_orders(x, &settings) else {

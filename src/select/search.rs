@@ -1495,9 +1495,17 @@ impl std::fmt::Display for SearchOutcome {
                 .then(key(a).total_cmp(&key(b)))
         });
         let screened = self.candidates.iter().any(|c| c.screening_value.is_some());
+        // The model column is as wide as the longest label (labels with harmonics run long).
+        let width = self
+            .candidates
+            .iter()
+            .map(|c| c.label().chars().count())
+            .max()
+            .unwrap_or(0)
+            .max(32);
         writeln!(
             f,
-            "   {:>4}  {:<32} {:>12} {:>11}{}  verdict",
+            "   {:>4}  {:<width$} {:>12} {:>11}{}  verdict",
             "try",
             "model",
             "criterion",
@@ -1534,7 +1542,7 @@ impl std::fmt::Display for SearchOutcome {
             };
             writeln!(
                 f,
-                "   {:>4}  {:<32} {:>12} {:>11}{screen}  {verdict}{mark}",
+                "   {:>4}  {:<width$} {:>12} {:>11}{screen}  {verdict}{mark}",
                 i + 1,
                 c.label(),
                 crit,

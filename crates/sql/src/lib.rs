@@ -44,8 +44,8 @@ use datafusion::common::{DataFusionError, Result, ScalarValue, exec_err, plan_er
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::function::{PartitionEvaluatorArgs, WindowUDFFieldArgs};
 use datafusion::logical_expr::{
-    Accumulator, AggregateUDF, AggregateUDFImpl, PartitionEvaluator, Signature, Volatility,
-    WindowUDF, WindowUDFImpl,
+    Accumulator, AggregateUDF, AggregateUDFImpl, EmitTo, GroupsAccumulator, PartitionEvaluator,
+    Signature, Volatility, WindowUDF, WindowUDFImpl,
 };
 use datafusion::physical_expr::expressions::Literal;
 use datafusion::prelude::SessionContext;
@@ -266,6 +266,21 @@ impl AggregateUDFImpl for SeriesFunction {
             task,
             times: Vec::new(),
             values: Vec::new(),
+        }))
+    }
+    fn groups_accumulator_supported(&self, _args: AccumulatorArgs) -> bool {
+        true
+    }
+    fn create_groups_accumulator(
+        &self,
+        args: AccumulatorArgs,
+    ) -> Result<Box<dyn GroupsAccumulator>> {
+        let task = Task::from_literals(self.job, args.exprs)?;
+        Ok(Box::new(SeriesGroups {
+            task,
+            times: Vec::new(),
+            values: Vec::new(),
+            bytes: 0,
         }))
     }
     fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
@@ -491,11 +506,7 @@ impl Accumulator for SeriesAccumulator {
 
     fn evaluate(&mut self) -> Result<ScalarValue> {
         let outcome = run(&self.task, &self.times, &self.values);
-        let array = match self.task.job {
-            Job::Fit | Job::Choose => model_row(outcome),
-            Job::Ahead => ahead_row(outcome, &self.task),
-            Job::Check => check_row(outcome),
-        }?;
+        let array = result_rows(&self.task, std::iter::once(outcome));
         Ok(ScalarValue::Struct(Arc::new(array)))
     }
 
@@ -503,6 +514,169 @@ impl Accumulator for SeriesAccumulator {
         std::mem::size_of_val(self)
             + self.times.capacity() * std::mem::size_of::<i64>()
             + self.values.capacity() * std::mem::size_of::<f64>()
+            + self.task.levels.capacity() * std::mem::size_of::<f64>()
+    }
+}
+
+/// Every group's (time, value) pairs of one partition, by group index: the engine's
+/// grouped path, with no accumulator object, batch slice or `ScalarValue` per group. Rows
+/// are appended to their group's vectors as they come; states leave as two list arrays
+/// and results as one struct array for all groups emitted. Each group's result is the
+/// same function of its readings as [`SeriesAccumulator`]'s.
+#[derive(Debug)]
+struct SeriesGroups {
+    task: Task,
+    /// Epoch milliseconds, per group.
+    times: Vec<Vec<i64>>,
+    /// NaN = missing, per group.
+    values: Vec<Vec<f64>>,
+    /// Heap bytes of the groups' vectors' buffers (kept current as they grow).
+    bytes: usize,
+}
+
+impl SeriesGroups {
+    fn grow_to(&mut self, groups: usize) {
+        if self.times.len() < groups {
+            self.times.resize_with(groups, Vec::new);
+            self.values.resize_with(groups, Vec::new);
+        }
+    }
+
+    /// Append readings to group `g`, keeping the byte count current.
+    fn extend(&mut self, g: usize, times: &[i64], values: &[f64]) {
+        let (t, v) = (&mut self.times[g], &mut self.values[g]);
+        let before = t.capacity() * 8 + v.capacity() * 8;
+        t.extend_from_slice(times);
+        v.extend_from_slice(values);
+        self.bytes = self.bytes + t.capacity() * 8 + v.capacity() * 8 - before;
+    }
+
+    /// The groups `emit_to` asks for, removed from the accumulator.
+    fn take(&mut self, emit_to: EmitTo) -> (Vec<Vec<i64>>, Vec<Vec<f64>>) {
+        let times = emit_to.take_needed(&mut self.times);
+        let values = emit_to.take_needed(&mut self.values);
+        let gone: usize = times
+            .iter()
+            .zip(&values)
+            .map(|(t, v)| t.capacity() * 8 + v.capacity() * 8)
+            .sum();
+        self.bytes -= gone.min(self.bytes);
+        (times, values)
+    }
+}
+
+impl GroupsAccumulator for SeriesGroups {
+    fn update_batch(
+        &mut self,
+        values: &[ArrayRef],
+        group_indices: &[usize],
+        opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
+        total_num_groups: usize,
+    ) -> Result<()> {
+        let what = self.task.job.name();
+        let times = times_ms(&values[0], what)?;
+        let readings = readings_of(&values[1])?;
+        if times.len() != readings.len() || times.len() != group_indices.len() {
+            return exec_err!("{what}: time and value columns differ in length");
+        }
+        self.grow_to(total_num_groups);
+        for (row, &g) in group_indices.iter().enumerate() {
+            if let Some(f) = opt_filter
+                && !(f.is_valid(row) && f.value(row))
+            {
+                continue;
+            }
+            self.extend(g, &times[row..=row], &readings[row..=row]);
+        }
+        Ok(())
+    }
+
+    fn merge_batch(
+        &mut self,
+        values: &[ArrayRef],
+        group_indices: &[usize],
+        total_num_groups: usize,
+    ) -> Result<()> {
+        let (times, readings) = (values[0].as_list::<i32>(), values[1].as_list::<i32>());
+        self.grow_to(total_num_groups);
+        for (row, &g) in group_indices.iter().enumerate() {
+            if times.is_null(row) {
+                continue;
+            }
+            let t = times.value(row);
+            let v = readings_of(&readings.value(row))?;
+            self.extend(g, t.as_primitive::<Int64Type>().values(), &v);
+        }
+        Ok(())
+    }
+
+    fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
+        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
+        use datafusion::arrow::buffer::OffsetBuffer;
+        let (times, values) = self.take(emit_to);
+        let offsets = OffsetBuffer::<i32>::from_lengths(times.iter().map(Vec::len));
+        let times = ListArray::new(
+            Arc::new(Field::new("item", DataType::Int64, true)),
+            offsets.clone(),
+            Arc::new(Int64Array::from(times.concat())),
+            None,
+        );
+        let values = ListArray::new(
+            Arc::new(Field::new("item", DataType::Float64, true)),
+            offsets,
+            Arc::new(Float64Array::from(values.concat())),
+            None,
+        );
+        Ok(vec![Arc::new(times), Arc::new(values)])
+    }
+
+    fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
+        let (times, values) = self.take(emit_to);
+        let task = &self.task;
+        let outcomes = times.iter().zip(&values).map(|(t, v)| run(task, t, v));
+        Ok(Arc::new(result_rows(task, outcomes)))
+    }
+
+    /// Each row as its own group's state (one reading per list; a row the filter drops is
+    /// a null list, which `merge_batch` skips).
+    fn convert_to_state(
+        &self,
+        values: &[ArrayRef],
+        opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
+    ) -> Result<Vec<ArrayRef>> {
+        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
+        use datafusion::arrow::buffer::{NullBuffer, OffsetBuffer};
+        let what = self.task.job.name();
+        let times = times_ms(&values[0], what)?;
+        let readings = readings_of(&values[1])?;
+        let n = times.len();
+        let offsets = OffsetBuffer::<i32>::from_lengths(std::iter::repeat_n(1, n));
+        let nulls = opt_filter.map(|f| {
+            NullBuffer::from(
+                (0..n)
+                    .map(|i| f.is_valid(i) && f.value(i))
+                    .collect::<Vec<_>>(),
+            )
+        });
+        let times = ListArray::new(
+            Arc::new(Field::new("item", DataType::Int64, true)),
+            offsets.clone(),
+            Arc::new(Int64Array::from(times)),
+            nulls.clone(),
+        );
+        let values = ListArray::new(
+            Arc::new(Field::new("item", DataType::Float64, true)),
+            offsets,
+            Arc::new(Float64Array::from(readings)),
+            nulls,
+        );
+        Ok(vec![Arc::new(times), Arc::new(values)])
+    }
+
+    fn size(&self) -> usize {
+        std::mem::size_of_val(self)
+            + self.bytes
+            + (self.times.capacity() + self.values.capacity()) * std::mem::size_of::<Vec<i64>>()
             + self.task.levels.capacity() * std::mem::size_of::<f64>()
     }
 }
@@ -552,15 +726,31 @@ fn run(task: &Task, times: &[i64], values: &[f64]) -> std::result::Result<Outcom
     })
 }
 
-fn one_row(fields: Fields, build: impl FnOnce(&mut StructBuilder)) -> Result<StructArray> {
-    let mut b = StructBuilder::from_fields(fields, 1);
-    build(&mut b);
-    b.append(true);
-    Ok(b.finish())
+/// The result rows of `outcomes` (in order) as one struct array of `job`'s type: one
+/// builder for all of a batch's groups.
+fn result_rows(
+    task: &Task,
+    outcomes: impl ExactSizeIterator<Item = std::result::Result<Outcome, String>>,
+) -> StructArray {
+    let fields = match task.job {
+        Job::Fit | Job::Choose => model_fields(),
+        Job::Ahead => ahead_fields(),
+        Job::Check => check_fields(),
+    };
+    let mut b = StructBuilder::from_fields(fields, outcomes.len());
+    for outcome in outcomes {
+        match task.job {
+            Job::Fit | Job::Choose => append_model(&mut b, outcome),
+            Job::Ahead => append_ahead(&mut b, outcome, task),
+            Job::Check => append_check(&mut b, outcome),
+        }
+        b.append(true);
+    }
+    b.finish()
 }
 
-fn model_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArray> {
-    one_row(model_fields(), |b| {
+fn append_model(b: &mut StructBuilder, outcome: std::result::Result<Outcome, String>) {
+    {
         let (o, err) = match &outcome {
             Ok(o) => (Some(o), None),
             Err(e) => (None, Some(e.as_str())),
@@ -640,16 +830,16 @@ fn model_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArra
         b.field_builder::<StringBuilder>(12)
             .expect("error")
             .append_option(err);
-    })
+    }
 }
 
-fn ahead_row(outcome: std::result::Result<Outcome, String>, task: &Task) -> Result<StructArray> {
+fn append_ahead(b: &mut StructBuilder, outcome: std::result::Result<Outcome, String>, task: &Task) {
     let forecast = outcome.and_then(|o| {
         o.model
             .forecast(task.horizon, &task.levels)
             .map_err(|e| e.to_string())
     });
-    one_row(ahead_fields(), |b| {
+    {
         {
             let list = b
                 .field_builder::<ListBuilder<Box<dyn datafusion::arrow::array::ArrayBuilder>>>(0)
@@ -702,16 +892,16 @@ fn ahead_row(outcome: std::result::Result<Outcome, String>, task: &Task) -> Resu
         b.field_builder::<StringBuilder>(1)
             .expect("error")
             .append_option(forecast.as_ref().err());
-    })
+    }
 }
 
-fn check_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArray> {
+fn append_check(b: &mut StructBuilder, outcome: std::result::Result<Outcome, String>) {
     let check = outcome.and_then(|o| {
         let m = &o.model;
         m.residual_check(m.default_check_lags(), 0.05)
             .map_err(|e| e.to_string())
     });
-    one_row(check_fields(), |b| {
+    {
         let c = check.as_ref().ok();
         b.field_builder::<BooleanBuilder>(0)
             .expect("white")
@@ -739,7 +929,7 @@ fn check_row(outcome: std::result::Result<Outcome, String>) -> Result<StructArra
         b.field_builder::<StringBuilder>(6)
             .expect("error")
             .append_option(check.as_ref().err());
-    })
+    }
 }
 
 /// The window function `lw_watch(ts, value, stored, alarm_level) OVER (PARTITION BY tag
@@ -962,5 +1152,95 @@ mod tests {
         let state = acc.state().unwrap();
         assert_eq!(state.len(), 2);
         assert_eq!(acc.size(), empty);
+    }
+
+    fn ar1_task() -> Task {
+        let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
+        Task {
+            job: Job::Fit,
+            grid: GridSettings::builder(1_000).build().unwrap(),
+            blueprint: Some(bp),
+            period: 1,
+            horizon: 0,
+            levels: Vec::new(),
+        }
+    }
+
+    /// Two tags' readings interleaved in one batch, as the engine hands them over.
+    fn interleaved(n: usize) -> (Vec<ArrayRef>, Vec<usize>, Vec<Vec<f64>>) {
+        let sim = lagwise::Simulator::builder()
+            .autoregressive(&[0.6])
+            .level(80.0)
+            .build()
+            .unwrap();
+        let series = [sim.generate(n, 1), sim.generate(n, 2)];
+        let mut times = Vec::new();
+        let mut values = Vec::new();
+        let mut groups = Vec::new();
+        // Newest first, so the grid has to sort them.
+        for t in (0..n).rev() {
+            for (g, x) in series.iter().enumerate() {
+                times.push((t * 1_000) as i64);
+                values.push(x[t]);
+                groups.push(g);
+            }
+        }
+        let arrays: Vec<ArrayRef> = vec![
+            Arc::new(Int64Array::from(times)),
+            Arc::new(Float64Array::from(values)),
+        ];
+        (arrays, groups, series.to_vec())
+    }
+
+    /// The grouped accumulator: its size covers the readings held and returns to its fixed
+    /// part when they leave; states merged elsewhere and groups emitted in two parts give
+    /// results equal to fitting each tag's readings directly.
+    #[test]
+    fn grouped_path_holds_counts_and_equals_direct_fits() {
+        let fresh = || SeriesGroups {
+            task: ar1_task(),
+            times: Vec::new(),
+            values: Vec::new(),
+            bytes: 0,
+        };
+        let n = 400;
+        let (arrays, groups, series) = interleaved(n);
+        let mut partial = fresh();
+        let empty = partial.size();
+        partial.update_batch(&arrays, &groups, None, 2).unwrap();
+        let held = partial.bytes;
+        assert!(held >= 2 * 16 * n && held <= 2 * 32 * n, "{held}");
+        assert!(partial.size() >= empty + held);
+        let state = partial.state(EmitTo::All).unwrap();
+        assert_eq!(partial.bytes, 0);
+        // The final stage: groups numbered the other way round, emitted one at a time.
+        let mut last = fresh();
+        last.merge_batch(&state, &[1, 0], 2).unwrap();
+        let first = last.evaluate(EmitTo::First(1)).unwrap();
+        let second = last.evaluate(EmitTo::All).unwrap();
+        for (array, tag) in [(first, 1), (second, 0)] {
+            let rows = array.as_struct();
+            assert_eq!(rows.len(), 1);
+            let sigma2 = rows.column(2).as_primitive::<Float64Type>().value(0);
+            let direct = ar1_task().blueprint.unwrap().fit(&series[tag]).unwrap();
+            assert_eq!(sigma2, direct.innovation_variance(), "tag {tag}");
+        }
+        // Rows as their own groups (the engine's skip-partial path), with a filter.
+        let filter = datafusion::arrow::array::BooleanArray::from(
+            (0..2 * n).map(|i| i % 3 != 0).collect::<Vec<_>>(),
+        );
+        let own = partial.convert_to_state(&arrays, Some(&filter)).unwrap();
+        assert_eq!(own[0].len(), 2 * n);
+        assert_eq!(
+            own[0].null_count(),
+            (0..2 * n).filter(|i| i % 3 == 0).count()
+        );
+        // A filtered update keeps only the rows the filter passes.
+        let mut filtered = fresh();
+        filtered
+            .update_batch(&arrays, &groups, Some(&filter), 2)
+            .unwrap();
+        let kept: usize = filtered.times.iter().map(Vec::len).sum();
+        assert_eq!(kept, 2 * n - own[0].null_count());
     }
 }
