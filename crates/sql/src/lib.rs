@@ -10,7 +10,7 @@
 //! | function | arguments | returns |
 //! |---|---|---|
 //! | `lw_fit` | `ts, value, blueprint, cadence_ms` | a model row: model, coefficients (term, value, se), sigma2, log_likelihood, aicc, bic, white, whiteness_p, readings, missing, stored, note, error |
-//! | `lw_choose` | `ts, value, cadence_ms, period` | a model row for the order search's choice |
+//! | `lw_choose` | `ts, value, cadence_ms, period[, cycles]` | a model row for the order search's choice (`cycles` such as `'672:10'`: long cycles by harmonics, each `period:max_harmonics`) |
 //! | `lw_ahead` | `ts, value, blueprint, cadence_ms, horizon, levels` | `{steps, error}`: one step per horizon step with its UTC time, mean, sd and bounds per level |
 //! | `lw_check` | `ts, value, blueprint, cadence_ms` | the residual check: whiteness, normality, changing variance, verdict |
 //! | `lw_watch` (window) | `ts, value, stored, alarm_level` | per new reading: prediction, sd, interval, z, outside, slot (see [`watch_function`]) |
@@ -85,6 +85,33 @@ impl Job {
             Job::Ahead => "lw_ahead",
             Job::Check => "lw_check",
         }
+    }
+    /// An optional last argument after the settings.
+    fn optional(self) -> Option<&'static str> {
+        match self {
+            Job::Choose => Some("cycles"),
+            _ => None,
+        }
+    }
+    /// The settings' names as given in a call with `args` arguments (the optional one
+    /// included when present), or `None` for a wrong count.
+    fn named(self, args: usize) -> Option<Vec<&'static str>> {
+        let mut names = self.settings().to_vec();
+        if args == 2 + names.len() {
+            return Some(names);
+        }
+        let extra = self.optional()?;
+        names.push(extra);
+        (args == 2 + names.len()).then_some(names)
+    }
+    /// The call's shape for messages: `(ts, value, cadence_ms, period[, cycles])`.
+    fn call(self) -> String {
+        let mut out = format!("(ts, value, {}", self.settings().join(", "));
+        if let Some(extra) = self.optional() {
+            out.push_str(&format!("[, {extra}]"));
+        }
+        out.push(')');
+        out
     }
     /// Arguments after `ts, value`.
     fn settings(self) -> &'static [&'static str] {
@@ -218,15 +245,14 @@ impl AggregateUDFImpl for SeriesFunction {
         &self.signature
     }
     fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
-        let names = self.job.settings();
-        if arg_types.len() != 2 + names.len() {
+        let Some(names) = self.job.named(arg_types.len()) else {
             return plan_err!(
-                "{} takes (ts, value, {}); {} arguments given",
+                "{} takes {}; {} arguments given",
                 self.job.name(),
-                names.join(", "),
+                self.job.call(),
                 arg_types.len()
             );
-        }
+        };
         let ts = time_type(self.job.name(), &arg_types[0])?;
         if !(arg_types[1].is_numeric() || arg_types[1] == DataType::Null) {
             return plan_err!(
@@ -238,7 +264,7 @@ impl AggregateUDFImpl for SeriesFunction {
         let mut out = vec![ts, DataType::Float64];
         for (name, t) in names.iter().zip(&arg_types[2..]) {
             out.push(match *name {
-                "blueprint" | "levels" => DataType::Utf8,
+                "blueprint" | "levels" | "cycles" => DataType::Utf8,
                 "cadence_ms" | "horizon" | "period" => {
                     if !t.is_integer() {
                         return plan_err!(
@@ -299,13 +325,37 @@ impl AggregateUDFImpl for SeriesFunction {
     }
 }
 
+/// The `cycles` argument of `lw_choose`: `period:max_harmonics` pairs separated by commas,
+/// e.g. `'672:10'` (a weekly cycle of quarter-hour readings, up to 10 harmonics) or
+/// `'96:8, 672:6'`.
+fn cycle_bounds(text: &str, job: Job) -> Result<Vec<(usize, usize)>> {
+    text.split(',')
+        .filter(|part| !part.trim().is_empty())
+        .map(|part| {
+            let pair = part
+                .split_once(':')
+                .and_then(|(p, k)| Some((p.trim().parse().ok()?, k.trim().parse().ok()?)));
+            pair.map_or_else(
+                || {
+                    plan_err!(
+                        "{}: cycles '{text}' must be period:max_harmonics pairs separated by commas, such as '672:10' or '96:8, 672:6'",
+                        job.name()
+                    )
+                },
+                Ok,
+            )
+        })
+        .collect()
+}
+
 /// A function's settings, read from its constant arguments.
 #[derive(Debug, Clone)]
 struct Task {
     job: Job,
     grid: GridSettings,
     blueprint: Option<Blueprint>,
-    period: usize,
+    /// The order search's settings (`lw_choose`).
+    search: Option<SearchSettings>,
     horizon: usize,
     levels: Vec<f64>,
 }
@@ -315,10 +365,9 @@ impl Task {
         job: Job,
         exprs: &[Arc<dyn datafusion::physical_expr::PhysicalExpr>],
     ) -> Result<Self> {
-        let names = job.settings();
-        if exprs.len() != 2 + names.len() {
-            return plan_err!("{}: expected {} arguments", job.name(), 2 + names.len());
-        }
+        let Some(names) = job.named(exprs.len()) else {
+            return plan_err!("{}: expected arguments {}", job.name(), job.call());
+        };
         let literal = |i: usize| -> Result<&ScalarValue> {
             match exprs[i].downcast_ref::<Literal>() {
                 Some(l) => Ok(l.value()),
@@ -391,6 +440,20 @@ impl Task {
         } else {
             1
         };
+        let search = if job == Job::Choose {
+            let mut settings = SearchSettings::builder();
+            settings.period(period);
+            if names.contains(&"cycles") {
+                for (cycle, bound) in cycle_bounds(&text(at("cycles"))?, job)? {
+                    settings.cycle(cycle, bound);
+                }
+            }
+            Some(settings.build().map_err(|e| {
+                DataFusionError::Plan(format!("{}: search settings: {e}", job.name()))
+            })?)
+        } else {
+            None
+        };
         let (horizon, levels) = if job == Job::Ahead {
             let h = integer(at("horizon"))?;
             if !(1..=100_000).contains(&h) {
@@ -417,7 +480,7 @@ impl Task {
             job,
             grid,
             blueprint,
-            period,
+            search,
             horizon,
             levels,
         })
@@ -604,8 +667,17 @@ impl GroupsAccumulator for SeriesGroups {
                 continue;
             }
             let t = times.value(row);
-            let v = readings_of(&readings.value(row))?;
-            self.extend(g, t.as_primitive::<Int64Type>().values(), &v);
+            let t = t.as_primitive::<Int64Type>().values();
+            let v = readings.value(row);
+            // The states this accumulator writes hold plain f64 (NaN = missing): taken as
+            // they are; anything else is converted.
+            match v.as_primitive_opt::<Float64Type>() {
+                Some(p) if p.null_count() == 0 => self.extend(g, t, p.values()),
+                _ => {
+                    let v = readings_of(&v)?;
+                    self.extend(g, t, &v);
+                }
+            }
         }
         Ok(())
     }
@@ -706,9 +778,7 @@ fn run(task: &Task, times: &[i64], values: &[f64]) -> std::result::Result<Outcom
     let missing = grid.values.len() - present;
     let (model, note) = match (&task.blueprint, task.job) {
         (_, Job::Choose) => {
-            let mut settings = SearchSettings::builder();
-            settings.period(task.period);
-            let settings = settings.build().map_err(|e| e.to_string())?;
+            let settings = task.search.clone().unwrap_or_default();
             let out = lagwise::search_orders(&grid.values, &settings).map_err(|e| e.to_string())?;
             (out.model, Some(out.explanation))
         }
@@ -1131,7 +1201,7 @@ mod tests {
             job: Job::Fit,
             grid: GridSettings::builder(1_000).build().unwrap(),
             blueprint: None,
-            period: 1,
+            search: None,
             horizon: 0,
             levels: Vec::new(),
         };
@@ -1160,7 +1230,7 @@ mod tests {
             job: Job::Fit,
             grid: GridSettings::builder(1_000).build().unwrap(),
             blueprint: Some(bp),
-            period: 1,
+            search: None,
             horizon: 0,
             levels: Vec::new(),
         }

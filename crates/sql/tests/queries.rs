@@ -446,3 +446,80 @@ async fn watching_new_readings_equals_the_library_monitor() {
     assert_eq!(checked, 4 * 100 - 1);
     assert!(outside >= 1, "the spike broke no interval");
 }
+
+/// `lw_choose` with long cycles: a weekly shape by harmonics beside AR noise (three weeks
+/// of quarter-hour readings), the search's choice equal to the library's on the same
+/// grid; a malformed `cycles` argument fails the query and names the argument.
+#[tokio::test]
+async fn order_search_with_weekly_cycles() {
+    let n = 3 * 672;
+    let sim = Simulator::builder()
+        .autoregressive(&[0.7])
+        .level(52.0)
+        .innovation_sd(0.3)
+        .wave(96, 1, 3.0, -1.0)
+        .wave(672, 1, 1.0, 0.5)
+        .build()
+        .unwrap();
+    let x = sim.generate(n, 5);
+    let times: Vec<i64> = (0..n as i64).map(|i| ORIGIN + i * CADENCE).collect();
+    let schema = Arc::new(Schema::new(vec![
+        Field::new("tag", DataType::Utf8, false),
+        Field::new(
+            "ts",
+            DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into())),
+            false,
+        ),
+        Field::new("value", DataType::Float64, true),
+    ]));
+    let batch = RecordBatch::try_new(
+        schema,
+        vec![
+            Arc::new(StringArray::from_iter_values(std::iter::repeat_n(
+                "KB-SS0417-TR",
+                n,
+            ))),
+            Arc::new(
+                TimestampMillisecondArray::from_iter_values(times.iter().copied())
+                    .with_timezone("UTC"),
+            ),
+            Arc::new(Float64Array::from(x.clone())),
+        ],
+    )
+    .unwrap();
+    let ctx = context(2);
+    ctx.register_batch("readings", batch).unwrap();
+    let out = rows_of(
+        &ctx,
+        &format!(
+            "SELECT tag, lw_choose(ts, value, {CADENCE}, 1, '96:4, 672:3') AS m
+             FROM readings GROUP BY tag"
+        ),
+    )
+    .await;
+    let row = out[0].column(1).as_struct();
+    let model = row.column(0).as_string::<i32>().value(0).to_string();
+    let sigma2 = row.column(2).as_primitive::<Float64Type>().value(0);
+    let settings = lagwise::SearchSettings::builder()
+        .cycle(96, 4)
+        .cycle(672, 3)
+        .build()
+        .unwrap();
+    let own = lagwise::search_orders(&x, &settings).unwrap();
+    assert_eq!(model, own.model.blueprint().shape_label());
+    assert!(model.contains("harmonics 96:1, 672:1"), "{model}");
+    assert_eq!(sigma2, own.model.innovation_variance());
+    for bad in ["'672'", "'672:x'", "'672:400'"] {
+        let sql = format!(
+            "SELECT tag, lw_choose(ts, value, {CADENCE}, 1, {bad}) FROM readings GROUP BY tag"
+        );
+        let e = match ctx.sql(&sql).await {
+            Err(e) => e.to_string(),
+            Ok(df) => df.collect().await.err().map(|e| e.to_string()).unwrap(),
+        };
+        assert!(
+            e.contains("lw_choose") && (e.contains("cycles") || e.contains("harmonics")),
+            "{e}"
+        );
+    }
+}
