@@ -541,7 +541,18 @@ fn matrix() {
             "InvalidSpecification",
         ),
         (
-            "cycle = seasonal period",
+            "cycle = seasonal period, differenced",
+            "blueprint",
+            variant(
+                Blueprint::builder()
+                    .seasonal(0, 1, 1, 96)
+                    .cycle(96, 2)
+                    .build(),
+            ),
+            "InvalidSpecification",
+        ),
+        (
+            "cycle = seasonal period, not differenced",
             "blueprint",
             variant(
                 Blueprint::builder()
@@ -549,7 +560,7 @@ fn matrix() {
                     .cycle(96, 2)
                     .build(),
             ),
-            "InvalidSpecification",
+            "ok",
         ),
         (
             "cycle removed by seasonal difference",
@@ -591,9 +602,9 @@ fn matrix() {
             "InvalidArgument",
         ),
         (
-            "cycle = seasonal period",
+            "no harmonics",
             "search settings",
-            variant(SearchSettings::builder().period(24).cycle(24, 3).build()),
+            variant(SearchSettings::builder().period(24).cycle(168, 0).build()),
             "InvalidArgument",
         ),
         (

@@ -310,9 +310,11 @@ impl BlueprintBuilder {
         Ok(period)
     }
 
-    /// The cycles, sorted by period, after checking each: period within limits and not the
-    /// seasonal period, harmonics between 1 and `period/2`, at most [`MAX_CYCLES`], and
-    /// each keeping at least one harmonic under the seasonal differencing.
+    /// The cycles, sorted by period, after checking each: period within limits, harmonics
+    /// between 1 and `period/2`, at most [`MAX_CYCLES`], and each keeping at least one
+    /// harmonic under the seasonal differencing. A cycle at the seasonal period itself is
+    /// allowed without a seasonal difference: a deterministic daily shape by harmonics
+    /// beside seasonal ARMA terms for the day-to-day correlation.
     fn checked_cycles(&self, period: usize) -> Result<Vec<Cycle>> {
         let mut cycles = self.cycles.clone();
         cycles.sort();
@@ -344,14 +346,6 @@ impl BlueprintBuilder {
                         c.harmonics,
                         c.period,
                         (c.period / 2).min(MAX_HARMONICS)
-                    ),
-                ));
-            }
-            if period > 1 && c.period == period {
-                return Err(spec_error(
-                    "cycle",
-                    format!(
-                        "period {period} is both the seasonal period and a harmonic cycle; describe it one way"
                     ),
                 ));
             }

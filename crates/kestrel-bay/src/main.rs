@@ -24,16 +24,18 @@ use rayon::prelude::*;
 use std::path::PathBuf;
 use std::time::Instant;
 
-/// 2026-11-25 00:00 UTC: the first reading of the week of history.
-const ORIGIN_MS: i64 = 1_795_564_800_000;
+/// 2026-11-18 00:00 UTC (a Wednesday): the first reading of the two weeks of history.
+const ORIGIN_MS: i64 = 1_794_960_000_000;
 /// One reading every 15 minutes.
 const CADENCE_MS: i64 = 15 * 60_000;
 /// Alarm level of the overnight watch.
 const ALARM_LEVEL: f64 = 0.999;
 /// Readings per day (one every 15 minutes).
 const PER_DAY: usize = 96;
-/// Days of history per tag.
-const DAYS: usize = 7;
+/// Days of history per tag: two weeks, the least a weekly cycle can be estimated from.
+const DAYS: usize = 14;
+/// Readings per week.
+const PER_WEEK: usize = 7 * PER_DAY;
 /// Readings that arrived overnight (8 hours), after the models were fitted.
 const NIGHT: usize = 32;
 
@@ -51,6 +53,13 @@ fn daily_profile(t: usize, amplitude: f64) -> f64 {
     amplitude * (phase - 1.2).sin() + 0.3 * amplitude * (2.0 * phase).cos()
 }
 
+/// The weekly rhythm of the return temperature: highest on Wednesdays, lowest at the
+/// weekend (less demand, cooler returns).
+fn weekly_profile(t: usize, amplitude: f64) -> f64 {
+    let phase = 2.0 * std::f64::consts::PI * (t % PER_WEEK) as f64 / PER_WEEK as f64;
+    amplitude * phase.cos() + 0.25 * amplitude * (2.0 * phase).sin()
+}
+
 fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
     let n = PER_DAY * DAYS + NIGHT;
     // Supply temperature: slow AR wander around the set point, small daily cycle.
@@ -64,7 +73,7 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
         .enumerate()
         .map(|(t, e)| 88.0 + daily_profile(t, 0.6) + e)
         .collect();
-    // Return temperature: strong daily cycle plus seasonal-MA noise at lag 96.
+    // Return temperature: strong daily cycle, a weekly rhythm, seasonal-MA noise at lag 96.
     let tr_noise = Simulator::builder()
         .autoregressive(&[0.7])
         .seasonal(&[], &[-0.5], PER_DAY)
@@ -74,7 +83,7 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
     let mut ret: Vec<f64> = tr_noise
         .iter()
         .enumerate()
-        .map(|(t, e)| 52.0 + daily_profile(t, 4.0) + e)
+        .map(|(t, e)| 52.0 + daily_profile(t, 4.0) + weekly_profile(t, 1.2) + e)
         .collect();
     // Flow: daily cycle, heavy-tailed noise, drop-outs.
     let fl_noise = Simulator::builder()
@@ -98,10 +107,10 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
     }
     let mut supply = supply;
     if id == 418 {
-        // A spike in the history: one supply reading 1.2 °C too high on day 3 at 10:00.
-        supply[2 * PER_DAY + 40] += 1.2;
+        // A spike in the history: one supply reading 1.2 °C too high on day 10 at 10:00.
+        supply[9 * PER_DAY + 40] += 1.2;
     }
-    // Differential pressure: near-white, with a level shift after valve work on day 4.
+    // Differential pressure: near-white, with a level shift after valve work on day 11.
     let dp_noise = Simulator::builder()
         .innovation_sd(0.02)
         .build()?
@@ -114,22 +123,22 @@ fn substation(id: u32, seed: u64) -> Result<Vec<Tag>, lagwise::Error> {
         }
     }
     let story_dp = if id % 2 == 1 {
-        for v in &mut dp[4 * PER_DAY..] {
+        for v in &mut dp[11 * PER_DAY..] {
             *v += 0.08;
         }
-        "near-white, level shift after valve work on day 4"
+        "near-white, level shift after valve work on day 11"
     } else {
         "near-white"
     };
     // Substation 0417's return sensor sticks for a day (the same value repeated).
     let story_tr = if id == 417 {
-        let stuck = ret[5 * PER_DAY];
-        for v in &mut ret[5 * PER_DAY..6 * PER_DAY] {
+        let stuck = ret[12 * PER_DAY];
+        for v in &mut ret[12 * PER_DAY..13 * PER_DAY] {
             *v = stuck;
         }
-        "daily cycle; sensor stuck for day 6"
+        "daily and weekly cycle; sensor stuck for day 13"
     } else {
-        "daily cycle"
+        "daily and weekly cycle"
     };
     let tag = |suffix: &str| format!("KB-SS{id:04}-{suffix}");
     Ok(vec![
@@ -186,7 +195,10 @@ fn sparkline(cg: &Correlogram, band: &LagValues, lags: usize) -> String {
 }
 
 /// Fit a model to one tag. Return temperature and flow, with their strong 96-reading
-/// daily period, get a hand-chosen seasonal shape (the demo shows a blueprint in use).
+/// daily period, get a hand-chosen seasonal shape (the demo shows a blueprint in use);
+/// the return temperature's daily and weekly shapes are described by two harmonics each
+/// (a seasonal lag polynomial of 672 readings would need many more weeks), with AR and
+/// seasonal MA errors.
 /// Supply temperature and differential pressure get an automatic order search at the
 /// daily period (seasonal differencing by seasonal strength, d by KPSS/ADF, stepwise
 /// orders by BIC with P, Q ≤ 1 behind the whiteness gate: the supply temperature's small
@@ -201,10 +213,18 @@ fn fit_tag(
     ws: &mut FitWorkspace,
 ) -> Result<(FittedModel, Option<SearchOutcome>), lagwise::Error> {
     if tag.ends_with("-TR") || tag.ends_with("-FL") {
-        let bp = Blueprint::builder()
-            .nonseasonal(1, 0, 1)
-            .seasonal(0, 1, 1, PER_DAY)
-            .build()?;
+        let mut bp = Blueprint::builder();
+        if tag.ends_with("-TR") {
+            // Daily and weekly shapes by harmonics, the day-to-day correlation by a
+            // seasonal MA term, the short-term one by an AR term.
+            bp.nonseasonal(1, 0, 0)
+                .seasonal(0, 0, 1, PER_DAY)
+                .cycle(PER_DAY, 2)
+                .cycle(PER_WEEK, 2);
+        } else {
+            bp.nonseasonal(1, 0, 1).seasonal(0, 1, 1, PER_DAY);
+        }
+        let bp = bp.build()?;
         return Ok((bp.fit_with(history, ws)?.with_time_axis(axis()), None));
     }
     let screen = Blueprint::builder()
@@ -406,8 +426,15 @@ fn assess(tag: Tag, ws: &mut FitWorkspace) -> Result<Assessed, (Tag, lagwise::Er
 /// The printed morning report of one substation.
 fn print_substation(id: u32, tags: &[Assessed]) {
     println!("\n=== Substation {id:04} — morning report ===");
+    // The model column is as wide as the longest label (harmonic terms make them long).
+    let width = tags
+        .iter()
+        .map(|a| a.model.blueprint().shape_label().chars().count())
+        .max()
+        .unwrap_or(0)
+        .max(40);
     println!(
-        "{:<14} {:<40} {:>8} {:>13}  {:<9} overnight alarms (99.9%)",
+        "{:<14} {:<width$} {:>8} {:>13}  {:<9} overnight alarms (99.9%)",
         "tag", "model", "σ", "LB p at H", "residuals"
     );
     for a in tags {
@@ -424,7 +451,7 @@ fn print_substation(id: u32, tags: &[Assessed]) {
             })
             .collect();
         println!(
-            "{:<14} {:<40} {:>8.4} {:>13}  {:<9} {}",
+            "{:<14} {:<width$} {:>8.4} {:>13}  {:<9} {}",
             a.tag.name,
             a.model.blueprint().shape_label(),
             a.model.innovation_variance().sqrt(),
