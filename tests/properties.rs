@@ -1,4 +1,5 @@
-//! Property tests (proptest) for the correlogram and portmanteau layer.
+//! Property tests (proptest) for the correlogram and portmanteau layer, and for the
+//! harmonic terms of long cycles.
 
 use lagwise::{Correlogram, PortmanteauScan, cross_correlogram};
 use proptest::prelude::*;
@@ -77,5 +78,112 @@ proptest! {
         let _ = Correlogram::compute(&x, h);
         let _ = PortmanteauScan::compute(&x, h, fitted);
         let _ = cross_correlogram(&x, &x, h);
+    }
+}
+
+/// Long cycles: whatever cycles and seasonal differencing are asked for, the blueprint
+/// either refuses them with a typed specification error or keeps harmonic terms whose
+/// columns, after the seasonal difference, are linearly independent (the left-out
+/// harmonics are exactly the removed and duplicated ones). Columns computed here from
+/// the textbook formula, the Gram matrix checked by a Cholesky factorisation.
+mod cycles {
+    use lagwise::{Blueprint, ErrorKind, Term};
+    use proptest::prelude::*;
+
+    fn column(term: Term, n: usize) -> Vec<f64> {
+        let (period, harmonic, sine) = match term {
+            Term::CycleCos { period, harmonic } => (period, harmonic, false),
+            Term::CycleSin { period, harmonic } => (period, harmonic, true),
+            other => panic!("not a harmonic term: {other}"),
+        };
+        (0..n)
+            .map(|t| {
+                let a = std::f64::consts::TAU * (harmonic * t) as f64 / period as f64;
+                if sine { a.sin() } else { a.cos() }
+            })
+            .collect()
+    }
+
+    /// Smallest pivot of the Cholesky factorisation of the normalised Gram matrix
+    /// (≤ 0 when the columns are dependent).
+    fn smallest_pivot(cols: &[Vec<f64>]) -> f64 {
+        let k = cols.len();
+        let norms: Vec<f64> = cols
+            .iter()
+            .map(|c| c.iter().map(|v| v * v).sum::<f64>().sqrt())
+            .collect();
+        let mut g = vec![0.0; k * k];
+        for i in 0..k {
+            for j in 0..k {
+                let dot: f64 = cols[i].iter().zip(&cols[j]).map(|(a, b)| a * b).sum();
+                g[i * k + j] = dot / (norms[i] * norms[j]);
+            }
+        }
+        let mut smallest = f64::INFINITY;
+        for j in 0..k {
+            let mut d = g[j * k + j];
+            for m in 0..j {
+                d -= g[j * k + m] * g[j * k + m];
+            }
+            smallest = smallest.min(d);
+            if d <= 0.0 {
+                return d;
+            }
+            let d = d.sqrt();
+            g[j * k + j] = d;
+            for i in j + 1..k {
+                let mut v = g[i * k + j];
+                for m in 0..j {
+                    v -= g[i * k + m] * g[j * k + m];
+                }
+                g[i * k + j] = v / d;
+            }
+        }
+        smallest
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(128))]
+
+        #[test]
+        fn kept_harmonics_are_independent_after_differencing(
+            cycles in prop::collection::vec((2usize..60, 0usize..8), 1..4),
+            seasonal_d in 0usize..2,
+            period in prop_oneof![Just(1usize), 2usize..30],
+        ) {
+            let mut b = Blueprint::builder();
+            b.nonseasonal(1, 0, 0);
+            if period > 1 {
+                b.seasonal(0, seasonal_d, 1, period);
+            }
+            for &(p, k) in &cycles {
+                b.cycle(p, k);
+            }
+            let bp = match b.build() {
+                Ok(bp) => bp,
+                Err(e) => {
+                    prop_assert!(matches!(e.kind(), ErrorKind::InvalidSpecification { .. }), "{e}");
+                    return Ok(());
+                }
+            };
+            let terms: Vec<Term> = bp
+                .terms()
+                .into_iter()
+                .filter(|t| matches!(t, Term::CycleCos { .. } | Term::CycleSin { .. }))
+                .collect();
+            prop_assert!(!terms.is_empty());
+            let longest = bp.cycles().iter().map(|c| c.period).max().unwrap();
+            let n = 2 * longest + 2 * period + 4 * terms.len();
+            let lag = if period > 1 && seasonal_d > 0 { period } else { 0 };
+            let cols: Vec<Vec<f64>> = terms
+                .iter()
+                .map(|&t| {
+                    let c = column(t, n);
+                    if lag > 0 { (lag..n).map(|i| c[i] - c[i - lag]).collect() } else { c }
+                })
+                .collect();
+            let pivot = smallest_pivot(&cols);
+            prop_assert!(pivot > 1e-8, "dependent columns: pivot {pivot} for {}", bp.shape_label());
+        }
     }
 }
