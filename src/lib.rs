@@ -55,6 +55,12 @@
 //! **Errors.** One opaque [`Error`] with a matchable [`ErrorKind`]. Bad input and invalid
 //! settings are typed errors, never panics; nothing the caller passes is mutated.
 //!
+//! **Long cycles.** A weekly cycle of 672 quarter-hour readings is described by a few
+//! harmonics ([`BlueprintBuilder::cycle`], [`Cycle`]) estimated inside the likelihood
+//! beside (S)ARMA errors; the phase counts readings from the first one of the fitted
+//! series, and forecasts and monitors compute future terms themselves. The order search
+//! chooses the number of harmonics per cycle ([`SearchSettingsBuilder::cycle`]).
+//!
 //! **Counting rule for criteria.** See [`InformationCriteria`]: `k` counts every estimated parameter,
 //! σ² included.
 //!
@@ -66,7 +72,7 @@
 //! |---|---|
 //! | put readings on a grid | [`place_on_grid`], [`GridSettings`], [`SlotRule`], [`TimeAxis`], [`GriddedSeries`], [`millis_from_seconds`] |
 //! | look at a series | [`Correlogram`], [`LagValues`], [`BandRule`], [`CrossCorrelogram`], [`PortmanteauScan`], [`augmented_dickey_fuller`], [`kpss`], [`seasonal_strength`], [`find_stuck_runs`] |
-//! | say which model | [`Blueprint`], [`BlueprintBuilder`], [`Term`], [`Estimator`] |
+//! | say which model | [`Blueprint`], [`BlueprintBuilder`], [`Term`], [`Estimator`], [`Cycle`] (long cycles by harmonic terms) |
 //! | lag polynomials | [`inverse_roots`] (conventions), [`is_stationary`], [`is_invertible`], [`psi_weights`], [`pi_weights`], [`multiply`], [`step_down`] |
 //! | simulate | [`Simulator`], [`Innovations`], [`Dropouts`] |
 //! | fit and explain | [`Blueprint::fit`], [`Blueprint::fit_gridded`], [`FittedModel`], [`ResidualCheck`] (with [`jarque_bera`], [`mcleod_li`]), [`ParameterCovariance`], [`LikelihoodSurface`], [`exact_log_likelihood`], [`reference_log_likelihood`] |
