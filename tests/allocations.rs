@@ -224,3 +224,49 @@ fn monitoring_with_the_shift_test_does_not_allocate() {
         "1,600 quiet readings allocated {allocated} times"
     );
 }
+
+/// The forecasting filter through missing readings on a large state (period 96 with a
+/// seasonal difference: 195 state entries, the covariance carried in full) allocates
+/// nothing per reading once its buffers have grown — before, each step allocated its
+/// half-transformed covariance (300 KB) and two small vectors.
+#[test]
+fn monitoring_through_gaps_on_a_seasonal_model_does_not_allocate() {
+    let sim = Simulator::builder()
+        .autoregressive(&[0.5])
+        .seasonal(&[], &[-0.5], 96)
+        .differencing(0, 1)
+        .level(60.0)
+        .build()
+        .unwrap();
+    let x = sim.generate(1_400, 4);
+    let fit = Blueprint::builder()
+        .nonseasonal(1, 0, 0)
+        .seasonal(0, 1, 1, 96)
+        .build()
+        .unwrap()
+        .fit(&x[..1_000])
+        .unwrap();
+    let mut watch = fit.monitor(0.999).unwrap();
+    // Warm-up, with a missing reading so that the covariance is carried in full.
+    watch.observe(f64::NAN).unwrap();
+    for v in &x[1_001..1_050] {
+        watch.observe(*v).unwrap();
+    }
+    assert!(
+        !watch.is_steady(),
+        "the covariance should be carried in full here"
+    );
+    COUNTED.with(|c| c.set(true));
+    let before = allocations();
+    for (i, v) in x[1_050..].iter().enumerate() {
+        // A drop-out run of four readings every fifty.
+        let reading = if i % 50 < 4 { f64::NAN } else { *v };
+        watch.observe(reading).unwrap();
+    }
+    let allocated = allocations() - before;
+    COUNTED.with(|c| c.set(false));
+    assert_eq!(
+        allocated, 0,
+        "350 readings with drop-outs allocated {allocated} times"
+    );
+}

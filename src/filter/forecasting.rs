@@ -134,6 +134,26 @@ pub(crate) struct FilterState {
     pub cov: Vec<f64>,
     /// Index of the next reading on the original time axis.
     pub next_index: u64,
+    /// Buffers of the covariance steps, reused from reading to reading.
+    #[serde(skip)]
+    pub scratch: StepScratch,
+}
+
+/// Buffers of the forecasting filter's covariance steps (`Z·Cov`, the half-transformed
+/// covariance, the non-zero differencing lags), kept with the state so that a step
+/// through missing readings allocates nothing once they have grown. Not part of the
+/// state: never stored, and equal whatever they hold.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct StepScratch {
+    zc: Vec<f64>,
+    h: Vec<f64>,
+    nz: Vec<(usize, f64)>,
+}
+
+impl PartialEq for StepScratch {
+    fn eq(&self, _: &Self) -> bool {
+        true
+    }
 }
 
 impl FilterState {
@@ -143,6 +163,7 @@ impl FilterState {
             s: Vec::new(),
             cov: Vec::new(),
             next_index: 0,
+            scratch: StepScratch::default(),
         }
     }
 
@@ -168,6 +189,7 @@ impl FilterState {
             s,
             cov,
             next_index: t0,
+            scratch: StepScratch::default(),
         })
     }
 
@@ -207,19 +229,12 @@ impl FilterState {
         self.cov.is_empty()
     }
 
-    /// Covariance of the predicted state, materialised (steady: RRᵀ in the α block).
-    pub(crate) fn covariance(&self, m: &ForecastModel) -> Vec<f64> {
-        if !self.steady() {
-            return self.cov.clone();
+    /// Leave the steady state: materialise its covariance (RRᵀ in the α block) in the
+    /// state's own buffer (its capacity kept from before, so no allocation once grown).
+    pub(crate) fn materialise(&mut self, m: &ForecastModel) {
+        if self.steady() {
+            steady_covariance_into(m, &mut self.cov);
         }
-        let dim = m.dim();
-        let mut c = vec![0.0; dim * dim];
-        for i in 0..m.r {
-            for j in 0..m.r {
-                c[i * dim + j] = m.rvec[i] * m.rvec[j];
-            }
-        }
-        c
     }
 
     /// Prediction of z for the next reading and its variance factor F (σ² = 1 units).
@@ -244,9 +259,7 @@ impl FilterState {
         let dim = m.dim();
         let (pred, f) = self.predict(m);
         let out = if z.is_nan() {
-            if self.steady() {
-                self.cov = self.covariance(m);
-            }
+            self.materialise(m);
             None
         } else {
             let v = z - pred;
@@ -256,7 +269,8 @@ impl FilterState {
                 }
             } else {
                 // K = Cov Zᵀ / F; s += K v; Cov −= K (Z Cov).
-                let zc = z_times(m, &self.cov);
+                let zc = &mut self.scratch.zc;
+                z_times_into(m, &self.cov, zc);
                 for i in 0..dim {
                     self.s[i] += zc[i] / f * v;
                 }
@@ -302,15 +316,17 @@ impl FilterState {
         if !self.steady() {
             // Cov ← Ta Cov Taᵀ + Q in two row sweeps: H = Cov Taᵀ (the transition applied
             // to each row), then Ta H (rows of H combined), written back in place.
-            let nz: Vec<(usize, f64)> =
+            let StepScratch { h, nz, .. } = &mut self.scratch;
+            nz.clear();
+            nz.extend(
                 m.c.iter()
                     .enumerate()
                     .filter(|(_, c)| **c != 0.0)
-                    .map(|(k, c)| (r + k, *c))
-                    .collect();
-            let mut h = vec![0.0; dim * dim];
+                    .map(|(k, c)| (r + k, *c)),
+            );
+            h.resize(dim * dim, 0.0);
             for (x, y) in self.cov.chunks_exact(dim).zip(h.chunks_exact_mut(dim)) {
-                transition_vector(m, &nz, x, y);
+                transition_vector(m, nz, x, y);
             }
             let (h0, cov) = (&h[..dim], &mut self.cov);
             for i in 0..dim {
@@ -329,7 +345,7 @@ impl FilterState {
                     }
                 } else if i == r {
                     out.copy_from_slice(h0);
-                    for &(k, c) in &nz {
+                    for &(k, c) in nz.iter() {
                         for (o, v) in out.iter_mut().zip(&h[k * dim..(k + 1) * dim]) {
                             *o += c * v;
                         }
@@ -371,11 +387,12 @@ fn trim(v: &[f64]) -> &[f64] {
     &v[..k]
 }
 
-/// Z·Cov (row vector) with Z = [e₀ᵀ, c].
-pub(crate) fn z_times(m: &ForecastModel, cov: &[f64]) -> Vec<f64> {
+/// Z·Cov (row vector) with Z = [e₀ᵀ, c], into a caller buffer.
+pub(crate) fn z_times_into(m: &ForecastModel, cov: &[f64], out: &mut Vec<f64>) {
     let dim = m.dim();
     let r = m.r;
-    let mut out = cov[..dim].to_vec();
+    out.clear();
+    out.extend_from_slice(&cov[..dim]);
     for (k, &c) in m.c.iter().enumerate() {
         if c != 0.0 {
             let row = &cov[(r + k) * dim..(r + k + 1) * dim];
@@ -384,18 +401,40 @@ pub(crate) fn z_times(m: &ForecastModel, cov: &[f64]) -> Vec<f64> {
             }
         }
     }
-    out
 }
 
 fn zcz(m: &ForecastModel, cov: &[f64]) -> f64 {
-    let zc = z_times(m, cov);
+    // Z Cov Zᵀ with Z = e₀ + Σ c_k e_{r+k}, from the entries the non-zero c_k touch (the
+    // same sums, in the same order, as forming Z·Cov first).
+    let dim = m.dim();
     let r = m.r;
-    zc[0]
+    let zc_at = |j: usize| {
+        let mut v = cov[j];
+        for (k, &c) in m.c.iter().enumerate() {
+            if c != 0.0 {
+                v += c * cov[(r + k) * dim + j];
+            }
+        }
+        v
+    };
+    zc_at(0)
         + m.c
             .iter()
             .enumerate()
-            .map(|(k, c)| c * zc[r + k])
+            .map(|(k, c)| c * zc_at(r + k))
             .sum::<f64>()
+}
+
+/// The steady state's covariance (RRᵀ in the α block, zero elsewhere) into `out`.
+fn steady_covariance_into(m: &ForecastModel, out: &mut Vec<f64>) {
+    let dim = m.dim();
+    out.clear();
+    out.resize(dim * dim, 0.0);
+    for i in 0..m.r {
+        for j in 0..m.r {
+            out[i * dim + j] = m.rvec[i] * m.rvec[j];
+        }
+    }
 }
 
 /// The terminal state from the ARMA filter on `w_t = z_t − Σ c_k z_{t−k}` (`z` holds the
@@ -435,6 +474,7 @@ fn steady_terminal(
         s,
         cov: Vec::new(),
         next_index,
+        scratch: StepScratch::default(),
     }))
 }
 

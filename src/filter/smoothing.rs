@@ -19,7 +19,7 @@
 //! present; readings that neither pass covers exactly are reported, not guessed.
 
 use crate::base::error::{Error, Result};
-use crate::filter::forecasting::{FilterState, ForecastModel, z_times};
+use crate::filter::forecasting::{FilterState, ForecastModel, z_times_into};
 
 /// One missing reading, smoothed (variance in units of σ²; the regression part not
 /// added).
@@ -174,6 +174,7 @@ fn pass(m: &ForecastModel, z: &[f64], t0: usize) -> Result<Vec<SmoothedGap>> {
     let mut pred = vec![0.0; steps];
     let mut fvar = vec![0.0; steps];
     let mut innov = vec![f64::NAN; steps];
+    let mut zc_now = Vec::with_capacity(dim);
     for (k, t) in (t0..n).enumerate() {
         let (p, f) = st.predict(m);
         let zc = &mut zc_all[k * dim..(k + 1) * dim];
@@ -181,7 +182,8 @@ fn pass(m: &ForecastModel, z: &[f64], t0: usize) -> Result<Vec<SmoothedGap>> {
             zc.fill(0.0);
             zc[..r].copy_from_slice(&m.rvec);
         } else {
-            zc.copy_from_slice(&z_times(m, &st.cov));
+            z_times_into(m, &st.cov, &mut zc_now);
+            zc.copy_from_slice(&zc_now);
         }
         pred[k] = p;
         fvar[k] = f;

@@ -136,9 +136,7 @@ pub(crate) fn forecast_from(
         }
     }
     let mut st = state.clone();
-    if st.steady() {
-        st.cov = st.covariance(m);
-    }
+    st.materialise(m);
     let mut steps = Vec::with_capacity(horizon);
     let mut x = vec![0.0; k];
     for h in 0..horizon {
