@@ -174,6 +174,16 @@ fn check_value_axis(card: &Card, panel: Panel) -> usize {
         labels.len() >= 3,
         "{panel:?}: too few value labels: {labels:?}"
     );
+    // Every label names a different value (too few decimals once printed "0.1" at both
+    // 0.05 and 0.1).
+    let mut values: Vec<f64> = labels.iter().map(|l| l.0).collect();
+    values.sort_by(f64::total_cmp);
+    values.dedup();
+    assert_eq!(
+        values.len(),
+        labels.len(),
+        "{panel:?}: repeated value labels: {labels:?}"
+    );
     for (v, y) in &labels {
         let (_, py) = p.pixel_of(p.x_values.0, *v);
         assert!(
@@ -289,6 +299,18 @@ fn residual_card_draws_its_bands_where_the_numbers_say() {
         "lag 1 column: {:?}",
         r.rgb(col, row)
     );
+}
+
+/// Two weeks of quarter-hour residuals: the correlation panels reach only ±0.1, where
+/// the axis labels step by 0.05 and need two decimals.
+#[test]
+fn residual_card_labels_small_correlations_apart() {
+    let x = series(1_344, 13);
+    let model = fitted(&x);
+    let check = model.residual_check(192, 0.05).unwrap();
+    let card = residual_card(&caption(), &model, &check).unwrap();
+    check_value_axis(&card, Panel::ResidualAcf);
+    check_value_axis(&card, Panel::ResidualPacf);
 }
 
 #[test]

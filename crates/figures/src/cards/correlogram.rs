@@ -88,7 +88,6 @@ pub fn correlogram_card(
         )?;
         let (top_area, bottom_area) = body.split_vertically((H - 48) / 2);
         let lagfmt = |x: &f64| format!("{x:.0}");
-        let rfmt = |y: &f64| format!("{y:.1}");
         for (area, values, which, name, b) in [
             (&top_area, &acf, Panel::ReadingAcf, "ACF", band),
             (&bottom_area, &pacf, Panel::ReadingPacf, "PACF", pband),
@@ -98,6 +97,7 @@ pub fn correlogram_card(
                 |m, (_, r)| if r.is_finite() { m.max(r.abs()) } else { m },
             );
             let reach = ((reach * 1.12 * 10.0).ceil() / 10.0).min(1.0);
+            let rfmt = correlation_format(reach);
             let title = if which == Panel::ReadingAcf {
                 format!(
                     "ACF — filled: white-noise band ±{band:.3}; dashed: Bartlett's band given the shorter lags ({:.0}%)",
@@ -209,4 +209,12 @@ pub fn correlogram_card(
         (W, H),
         panels,
     ))
+}
+
+/// Labels for a correlation axis reaching `±reach`: two decimals when the axis's labels
+/// fall on steps finer than 0.1 (a reach of 0.2 or less gives steps of 0.05), one
+/// otherwise — one decimal at steps of 0.05 printed "0.1" twice.
+pub(crate) fn correlation_format(reach: f64) -> impl Fn(&f64) -> String {
+    let places = if reach <= 0.2 { 2 } else { 1 };
+    move |y: &f64| format!("{y:.places$}")
 }

@@ -122,7 +122,6 @@ pub fn residual_card(
             ((m * 1.15 * 10.0).ceil() / 10.0).min(1.0)
         };
         let lagfmt = |x: &f64| format!("{x:.0}");
-        let rfmt = |y: &f64| format!("{y:.1}");
         for (area, values, b, which, name, color) in [
             (&acf_area, &acf, band, Panel::ResidualAcf, "ACF", TRACE),
             (
@@ -135,6 +134,7 @@ pub fn residual_card(
             ),
         ] {
             let reach = reach(values, b);
+            let rfmt = crate::cards::correlogram::correlation_format(reach);
             let mut chart = panel(
                 area,
                 &PanelSpec {
@@ -317,12 +317,16 @@ fn header(
         Some(u) => format!("{} {u}", crate::frame::short_number(sigma)),
         None => crate::frame::short_number(sigma),
     };
+    // The model and σ, then the verdict on a line of its own (labels with harmonic terms
+    // and the verdict's lag details do not fit one line of the card).
     area.draw(&Text::new(
-        format!("{label} · σ = {sigma} · {}", check.verdict_line()),
-        (14, 34),
+        format!("{label} · σ = {sigma}"),
+        (14, 29),
         draw::text(12),
     ))
     .map_err(drawing(CARD))?;
+    area.draw(&Text::new(check.verdict_line(), (14, 45), draw::text(12)))
+        .map_err(drawing(CARD))?;
     // White on navy, ink on amber: both above WCAG's 4.5:1 for text.
     let (fill, ink, word) = if check.white {
         (TRACE, PAPER, "WHITE")
