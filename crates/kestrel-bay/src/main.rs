@@ -352,7 +352,17 @@ fn assess(tag: Tag, ws: &mut FitWorkspace) -> Result<Assessed, (Tag, lagwise::Er
         }
         let history = lagwise::mask_runs(raw_history, &stuck);
         let (first, search) = fit_tag(&tag.name, &history, ws)?;
-        let found = first.find_events(&history, &EventSettings::default())?;
+        // Flow noise is heavy-tailed: on a Gaussian model its big shocks read as
+        // innovational outliers and temporary changes several times a week, which tells
+        // an operator nothing. Flows are searched for wrong readings and steps only.
+        let settings = if tag.name.ends_with("-FL") {
+            EventSettings::builder()
+                .kinds(&[EventKind::AdditiveOutlier, EventKind::LevelShift])
+                .build()?
+        } else {
+            EventSettings::default()
+        };
+        let found = first.find_events(&history, &settings)?;
         events.extend(found.events.iter().map(|e| event_text(e, tag.unit)));
         let model = found.model.clone();
         let check = model.residual_check(model.default_check_lags(), 0.05)?;
