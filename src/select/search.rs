@@ -535,21 +535,7 @@ pub fn search_orders_with(
         tried, mut fits, ..
     } = bench;
     let (idx, adequate) = select(&tried)?;
-    let mut explanation = explain(settings, &differencing, &tried, idx, adequate);
-    if !settings.cycles.is_empty() {
-        let trimmed = explanation.trim_end_matches('.').len();
-        explanation.truncate(trimmed);
-        explanation.push_str(&format!(
-            ". Harmonics per cycle chosen by {} (at most {})",
-            settings.criterion,
-            settings
-                .cycles
-                .iter()
-                .map(|c| format!("{} at period {}", c.harmonics, c.period))
-                .collect::<Vec<_>>()
-                .join(", ")
-        ));
-    }
+    let explanation = explain(settings, &differencing, &tried, idx, adequate);
     let model = fits[idx]
         .take()
         .ok_or_else(|| Error::numerical(WHAT, "chosen candidate has no fit"))?
@@ -1040,41 +1026,29 @@ impl CandidateBench<'_> {
 /// subtracted (missing readings stay missing). `None` without cycles or when the least
 /// squares cannot be solved.
 fn decycled(series: &[f64], cycles: &[Cycle]) -> Option<Vec<f64>> {
+    use crate::model::coefficients::Term;
     if cycles.is_empty() {
         return None;
     }
-    let terms = crate::model::cycles::harmonic_terms(cycles, 0, 1);
-    let present: Vec<usize> = (0..series.len()).filter(|&t| !series[t].is_nan()).collect();
-    let column = |term: Option<crate::model::coefficients::Term>| -> Vec<f64> {
-        present
-            .iter()
-            .map(|&t| {
-                term.map_or(1.0, |term| {
-                    crate::model::cycles::term_wave(term, t as u64).unwrap_or(0.0)
-                })
-            })
-            .collect()
-    };
-    let mut cols = vec![column(None)];
-    cols.extend(terms.iter().map(|&t| column(Some(t))));
-    let y = present.iter().map(|&t| series[t]).collect();
-    let (b, _) = crate::base::linalg::least_squares_owned(cols, y)?;
-    Some(
-        series
-            .iter()
-            .enumerate()
-            .map(|(t, &v)| {
-                let shape: f64 = terms
-                    .iter()
-                    .zip(&b[1..])
-                    .map(|(&term, bk)| {
-                        bk * crate::model::cycles::term_wave(term, t as u64).unwrap_or(0.0)
-                    })
-                    .sum();
-                v - b[0] - shape
-            })
-            .collect(),
-    )
+    // The columns on the whole axis, as a fit builds them (the constant first).
+    let n = series.len();
+    let columns: Vec<Vec<f64>> = std::iter::once(Term::Mean)
+        .chain(crate::model::cycles::harmonic_terms(cycles, 0, 1))
+        .map(|term| crate::estimate::regression_column(term, n, &[]))
+        .collect();
+    let present: Vec<usize> = (0..n).filter(|&t| !series[t].is_nan()).collect();
+    let rows = |v: &[f64]| present.iter().map(|&t| v[t]).collect::<Vec<f64>>();
+    let (b, _) = crate::base::linalg::least_squares_owned(
+        columns.iter().map(|c| rows(c)).collect(),
+        rows(series),
+    )?;
+    let mut out = series.to_vec();
+    for (column, bk) in columns.iter().zip(&b) {
+        for (o, x) in out.iter_mut().zip(column) {
+            *o -= bk * x;
+        }
+    }
+    Some(out)
 }
 
 /// Choose the harmonics of each cycle before the walk: with a working error model
@@ -1469,6 +1443,18 @@ fn explain(
         explanation.push_str("; NO candidate passed the whiteness gate: this is the best inadequate one, do not trust its significance");
     }
     explanation.push('.');
+    if !settings.cycles.is_empty() {
+        let bounds: Vec<String> = settings
+            .cycles
+            .iter()
+            .map(|c| format!("{} at period {}", c.harmonics, c.period))
+            .collect();
+        explanation.push_str(&format!(
+            " Harmonics per cycle chosen by {} (at most {}).",
+            settings.criterion,
+            bounds.join(", ")
+        ));
+    }
     explanation
 }
 
