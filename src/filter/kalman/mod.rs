@@ -17,6 +17,7 @@ mod start;
 
 use chandrasekhar::CHANDRASEKHAR_TOLERANCE;
 use chandrasekhar::open_side_by_side;
+use covariance::RingCovariance;
 use gaps::GapFactors;
 pub use likelihood::{exact_log_likelihood, reference_log_likelihood};
 
@@ -50,6 +51,9 @@ pub(crate) struct KalmanWorkspace {
     /// major) and `M` (rank × rank), `F_t` and `G_t` (in `ch_g`); see
     /// [`KalmanWorkspace::gappy`].
     gap: GapFactors,
+    /// The covariance of the dense full phase (after gaps in small states, or when the
+    /// factored step hands over).
+    ring: RingCovariance,
     kcol: Vec<f64>,
     state: Vec<f64>,
     tmp: Vec<f64>,
@@ -111,6 +115,7 @@ impl KalmanWorkspace {
             b(&self.ch_g),
             b(&self.ch_w),
             self.gap.heap_bytes(),
+            self.ring.heap_bytes(),
             b(&self.kcol),
             b(&self.state),
             b(&self.tmp),
@@ -181,6 +186,7 @@ impl KalmanWorkspace {
             *v = 0.0;
         }
         self.gap.clear();
+        self.ring.invalidate();
     }
 
     /// The pass after [`Self::begin_pass`]. `opened` is where an opening Chandrasekhar
@@ -249,23 +255,25 @@ impl KalmanWorkspace {
                         continue;
                     }
                     self.full_steps += 1;
-                    let f = self.p[0];
+                    if !self.ring.is_set() {
+                        // The dense phase from the stationary start.
+                        self.ring.load(&self.p);
+                    }
+                    let f = self.ring.f();
                     if missing {
                         self.fvar[t] = f64::NAN;
                         for c in 0..ncols {
                             self.innov[c * stride + (t & mask)] = f64::NAN;
                         }
                         self.predict_states(ncols);
-                        self.predict_covariance_no_update();
+                        self.ring.step_missing();
                     } else {
                         if !stop_at_direct {
                             self.fvar[t] = f;
                         }
                         totals.log_det += f.ln();
                         totals.used += 1;
-                        for i in 0..r {
-                            self.kcol[i] = self.p[i] / f;
-                        }
+                        self.ring.gain_into(f, &mut self.kcol);
                         for c in 0..ncols {
                             let v = data[c * n + t] - self.state[c * r];
                             self.innov[c * stride + (t & mask)] = v;
@@ -276,7 +284,7 @@ impl KalmanWorkspace {
                         }
                         accumulate_cross(&self.innov, stride, t & mask, ncols, f, cross);
                         self.predict_states(ncols);
-                        let trace = self.predict_covariance_after_update(f);
+                        let trace = self.ring.step_present(f);
                         // Converged when the updated covariance vanishes: then the
                         // gain is R and every later F is 1. (F − 1 alone only sees
                         // P⁺[1][1]; seasonal components converge later.)
@@ -401,9 +409,10 @@ impl KalmanWorkspace {
             } else {
                 // A gap before convergence: the covariance recursion takes over. P_t
                 // depends on the model only, so replay it.
+                self.ring.load(&self.p);
                 for _ in 0..t {
-                    let f = self.p[0];
-                    self.predict_covariance_after_update(f);
+                    let f = self.ring.f();
+                    self.ring.step_present(f);
                 }
             }
         }
@@ -431,7 +440,8 @@ impl KalmanWorkspace {
         lane
     }
 
-    /// The stationary covariance `P₀` (r×r, σ² = 1) right after `set_model`.
+    /// The stationary covariance `P₀` (r×r, σ² = 1) of the model set last (passes leave it
+    /// untouched; only the reference route overwrites it).
     pub(crate) fn stationary_matrix(&self) -> &[f64] {
         &self.p
     }
@@ -634,6 +644,76 @@ mod tests {
                     ws.p,
                     want
                 );
+            }
+        }
+    }
+
+    /// The ring-indexed dense step against the row-major recursion it replaces, entry by
+    /// entry after every step: AR terms at several lags (seasonal AR included), sparse
+    /// and dense MA parts, present and missing readings in runs, and a steady-state
+    /// restart.
+    #[test]
+    fn ring_covariance_matches_row_major_recursion() {
+        let seasonal_ar = lag::expand_autoregressive(&[0.4, -0.2], &[0.5], 6);
+        let seasonal_ma = lag::expand_moving_average(&[0.3], &[-0.6], 6);
+        let models: [(&[f64], &[f64]); 4] = [
+            (&[0.6], &[0.3, 0.0, 0.0, 0.0, 0.0, 0.4]),
+            (&seasonal_ar, &seasonal_ma),
+            (&[0.2, 0.1, -0.3, 0.05], &[]),
+            (&[], &[0.5, -0.4, 0.3, 0.2, 0.1, 0.1, 0.05]),
+        ];
+        let missing = |t: usize| matches!(t % 23, 3..=6) || t % 17 == 9;
+        for (phi, theta) in models {
+            let mut reference = KalmanWorkspace::default();
+            reference.set_model(phi, theta).unwrap();
+            let mut ws = KalmanWorkspace::default();
+            ws.set_model(phi, theta).unwrap();
+            let r = ws.r;
+            ws.ring.load(&ws.p);
+            for t in 0..120 {
+                if t == 70 {
+                    ws.ring.set_steady();
+                    for i in 0..r {
+                        for j in 0..r {
+                            reference.p[i * r + j] = reference.rvec[i] * reference.rvec[j];
+                        }
+                    }
+                }
+                let f = reference.p[0];
+                assert!(
+                    (ws.ring.f() - f).abs() <= 1e-12 * f,
+                    "{phi:?} {theta:?} t {t}"
+                );
+                if missing(t) {
+                    reference.predict_covariance_no_update();
+                    ws.ring.step_missing();
+                } else {
+                    let want = reference.predict_covariance_after_update(f);
+                    let got = ws.ring.step_present(ws.ring.f());
+                    assert!(
+                        (got - want).abs() <= 1e-12 * (1.0 + want.abs()),
+                        "trace at {t}"
+                    );
+                }
+                for i in 0..r {
+                    for j in 0..r {
+                        let (a, b) = (ws.ring.entry(i, j), reference.p[i * r + j]);
+                        assert!(
+                            (a - b).abs() <= 1e-12 * (1.0 + b.abs()),
+                            "{phi:?} {theta:?} t {t} ({i},{j}): {a} vs {b}"
+                        );
+                    }
+                }
+                let mut k = vec![0.0; r];
+                let f = ws.ring.f();
+                ws.ring.gain_into(f, &mut k);
+                for i in 0..r {
+                    let want = reference.p[i * r] / reference.p[0];
+                    assert!(
+                        (k[i] - want).abs() <= 1e-12 * (1.0 + want.abs()),
+                        "gain {i}"
+                    );
+                }
             }
         }
     }
