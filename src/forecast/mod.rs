@@ -593,6 +593,102 @@ mod tests {
     use crate::model::blueprint::Blueprint;
     use crate::model::simulate::Simulator;
 
+    /// With missing readings the terminal state comes from the ring-indexed augmented
+    /// filter: its mean and covariance equal the row-major steps' (`FilterState::step`)
+    /// to rounding — ARMA, integrated with drift, seasonal differencing with seasonal MA
+    /// and with seasonal AR (transition terms on both blocks), a regression — with gaps
+    /// early (the filter reaches its steady state between them), in runs, and near the
+    /// end (the covariance is still carried at the end).
+    #[test]
+    fn ring_terminal_matches_row_major_filter_through_gaps() {
+        let sim = |ar: &[f64], ma: &[f64], sar: &[f64], sma: &[f64], d: usize, sd: usize| {
+            Simulator::builder()
+                .autoregressive(ar)
+                .moving_average(ma)
+                .seasonal(sar, sma, 12)
+                .differencing(d, sd)
+                .level(40.0)
+                .build()
+                .unwrap()
+                .generate(400, 5)
+        };
+        let outdoor: Vec<f64> = (0..400).map(|t| (t as f64 / 30.0).sin()).collect();
+        let cases: Vec<(Blueprint, Vec<f64>, bool)> = vec![
+            (
+                Blueprint::builder().nonseasonal(1, 0, 1).build().unwrap(),
+                sim(&[0.6], &[0.3], &[], &[], 0, 0),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(0, 1, 1)
+                    .drift_term(true)
+                    .build()
+                    .unwrap(),
+                sim(&[], &[0.5], &[], &[], 1, 0),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 1)
+                    .seasonal(0, 1, 1, 12)
+                    .build()
+                    .unwrap(),
+                sim(&[0.5], &[0.2], &[], &[-0.6], 0, 1),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 1, 0)
+                    .seasonal(1, 1, 0, 12)
+                    .build()
+                    .unwrap(),
+                sim(&[0.4], &[], &[-0.3], &[], 1, 1),
+                false,
+            ),
+            (
+                Blueprint::builder()
+                    .nonseasonal(1, 0, 0)
+                    .exogenous(1)
+                    .build()
+                    .unwrap(),
+                sim(&[0.7], &[], &[], &[], 0, 0),
+                true,
+            ),
+        ];
+        let patterns: [&[usize]; 3] = [
+            &[30, 31, 32, 150],
+            &[40, 41, 42, 43, 44, 45, 200, 201, 330, 331, 332],
+            &[20, 120, 121, 390, 396, 397],
+        ];
+        for (bp, x, exo) in cases {
+            let regs: Vec<&[f64]> = if exo { vec![&outdoor] } else { vec![] };
+            let model = bp.fit_regression(&x, &regs).unwrap();
+            for pattern in patterns {
+                let mut gappy = x.clone();
+                for &t in pattern {
+                    gappy[t] = f64::NAN;
+                }
+                let ring = terminal_state(&model.forecaster, &gappy, &regs).unwrap();
+                let dense = dense_terminal_state(&model.forecaster, &gappy, &regs).unwrap();
+                let label = format!("{} {pattern:?}", bp.shape_label());
+                assert_eq!(ring.next_index, dense.next_index, "{label}");
+                assert_eq!(ring.cov.len(), dense.cov.len(), "{label}");
+                for (a, b) in ring
+                    .s
+                    .iter()
+                    .zip(&dense.s)
+                    .chain(ring.cov.iter().zip(&dense.cov))
+                {
+                    assert!(
+                        (a - b).abs() <= 1e-9 * (1.0 + b.abs()),
+                        "{label}: {a} vs {b}"
+                    );
+                }
+            }
+        }
+    }
+
     /// The terminal state taken from the ARMA filter equals the dense augmented filter's:
     /// non-seasonal, integrated with drift, seasonal with differencing, and a regression
     /// with ARMA errors; forecasts from both agree to rounding.

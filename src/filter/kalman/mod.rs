@@ -15,9 +15,9 @@ mod gaps;
 mod likelihood;
 mod start;
 
+use crate::filter::ring::RingCovariance;
 use chandrasekhar::CHANDRASEKHAR_TOLERANCE;
 use chandrasekhar::open_side_by_side;
-use covariance::RingCovariance;
 use gaps::GapFactors;
 pub use likelihood::{exact_log_likelihood, reference_log_likelihood};
 

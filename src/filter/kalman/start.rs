@@ -26,7 +26,7 @@ impl KalmanWorkspace {
         resize(&mut self.tmp, r);
         resize(&mut self.ch_g, r);
         resize(&mut self.ch_w, r);
-        self.ring.set_model(&self.phi, &self.rvec);
+        self.ring.set_companion(&self.phi, &self.rvec);
         self.stationary_covariance(p, q)
     }
 
