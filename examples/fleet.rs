@@ -12,6 +12,9 @@
 //! (21-day period-96 series, gap-free and with 2% drop-outs; default 200 series),
 //! `cargo run --release --example fleet -- --weekly [series]` for the same with a weekly
 //! cycle by harmonics (28 days, the search also choosing up to 10 weekly harmonics), or
+//! `cargo run --release --example fleet -- --gaps [readings]` for the exact likelihood
+//! through drop-outs (one long period-96 series, gap-free and with 2% missing in runs:
+//! single evaluations and whole fits, alternated in the same run; default 10,000), or
 //! `cargo run --release --example fleet -- --events [series]` for the event-search
 //! benchmark (default 10,000 series × 1000 readings, 5% of them with one injected event:
 //! the plain fleet fit and the fit with `find_events`, alternated in the same run).
@@ -262,8 +265,88 @@ fn events_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
     Ok(())
 }
 
+/// `--gaps N`: SARIMA(1,0,1)×(0,1,1)₉₆ (φ = 0.6, θ = 0.3, Θ = −0.6) at N readings, the
+/// same series gap-free and with 2% of readings missing in drop-out runs — runs of mean
+/// 8 readings (2 hours) and twice as many runs of mean 4. Times one exact
+/// log-likelihood at the simulated coefficients (on the seasonal differences,
+/// `exact_log_likelihood`) and one default fit, each the median of three rounds in which
+/// the series alternate; prints the ratios to the gap-free series.
+fn gaps_bench(n: usize) -> Result<(), Box<dyn std::error::Error>> {
+    let mut b = Simulator::builder();
+    b.autoregressive(&[0.6])
+        .moving_average(&[0.3])
+        .seasonal(&[], &[-0.6], 96)
+        .differencing(0, 1)
+        .level(61.0)
+        .innovation_sd(0.3);
+    let full = b.build()?.generate(n, 4_100);
+    let mut series = vec![("gap-free".to_string(), full)];
+    for (start, run) in [(0.0025, 8.0), (0.005, 4.0)] {
+        let x = b
+            .dropouts(lagwise::Dropouts::new(start, run))
+            .build()?
+            .generate(n, 4_100);
+        let missing = x.iter().filter(|v| v.is_nan()).count();
+        let runs = (0..n)
+            .filter(|&t| x[t].is_nan() && (t == 0 || !x[t - 1].is_nan()))
+            .count();
+        let label = format!(
+            "{:.1}% missing in {runs} runs (mean {run})",
+            100.0 * missing as f64 / n as f64
+        );
+        series.push((label, x));
+    }
+    let diff = |x: &[f64]| -> Vec<f64> { (96..x.len()).map(|t| x[t] - x[t - 96]).collect() };
+    let phi = lagwise::expand_autoregressive(&[0.6], &[], 96);
+    let theta = lagwise::expand_moving_average(&[0.3], &[-0.6], 96);
+    let bp = Blueprint::builder()
+        .nonseasonal(1, 0, 1)
+        .seasonal(0, 1, 1, 96)
+        .build()?;
+    let mut ws = lagwise::FitWorkspace::new();
+    let mut eval = vec![Vec::new(); series.len()];
+    let mut fit = vec![Vec::new(); series.len()];
+    for _ in 0..3 {
+        for (k, (_, x)) in series.iter().enumerate() {
+            let w = diff(x);
+            let reps = if k == 0 { 100 } else { 5 };
+            let t = Instant::now();
+            for _ in 0..reps {
+                black_box(lagwise::exact_log_likelihood(&phi, &theta, 0.09, &w)?);
+            }
+            eval[k].push(t.elapsed().as_secs_f64() / reps as f64);
+            let t = Instant::now();
+            black_box(bp.fit_with(x, &mut ws)?);
+            fit[k].push(t.elapsed().as_secs_f64());
+        }
+    }
+    let median = |v: &mut Vec<f64>| {
+        v.sort_by(f64::total_cmp);
+        v[v.len() / 2]
+    };
+    println!(
+        "exact likelihood through gaps, SARIMA(1,0,1)×(0,1,1)₉₆, n = {n} (median of 3, alternated):"
+    );
+    let (e0, f0) = (median(&mut eval[0]), median(&mut fit[0]));
+    for (k, (label, _)) in series.iter().enumerate() {
+        let (e, f) = (median(&mut eval[k]), median(&mut fit[k]));
+        println!(
+            "  {label}: one exact log L {:.2} ms ({:.0}×), one default fit {:.0} ms ({:.0}×)",
+            1e3 * e,
+            e / e0,
+            1e3 * f,
+            f / f0
+        );
+    }
+    Ok(())
+}
+
 fn main() -> Result<(), Box<dyn std::error::Error>> {
     let raw: Vec<String> = std::env::args().skip(1).collect();
+    if raw.first().map(|s| s.as_str()) == Some("--gaps") {
+        let n = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(10_000);
+        return gaps_bench(n);
+    }
     if raw.first().map(|s| s.as_str()) == Some("--events") {
         let count = raw.get(1).and_then(|s| s.parse().ok()).unwrap_or(10_000);
         return events_bench(count);

@@ -913,17 +913,30 @@ impl EvalWorkspace {
             let v = &mut self.css_innov[c * n..(c + 1) * n];
             if prep.has_missing {
                 let w = &mut self.fill[c * n..(c + 1) * n];
-                for t in 0..n {
-                    let miss = prep.data[t].is_nan();
-                    if t < cond {
-                        v[t] = 0.0;
-                        if miss {
-                            w[t] = 0.0;
-                        }
-                        continue;
+                let data = &prep.data[..n];
+                for t in 0..cond {
+                    v[t] = 0.0;
+                    if data[t].is_nan() {
+                        w[t] = 0.0;
                     }
-                    let pred = guarded_prediction(w, v, t, &self.ar_nz, &self.ma_nz);
-                    if miss {
+                }
+                // The guard on pre-sample residuals matters only before the longest MA
+                // lag; past it the same sums run unguarded.
+                let guarded_end = (cond.max(max_ma)).min(n);
+                for t in cond..n {
+                    let pred = if t < guarded_end {
+                        guarded_prediction(w, v, t, &self.ar_nz, &self.ma_nz)
+                    } else {
+                        let mut pred = 0.0;
+                        for &(i, a) in &self.ar_nz {
+                            pred += a * w[t - i];
+                        }
+                        for &(j, b) in &self.ma_nz {
+                            pred += b * v[t - j];
+                        }
+                        pred
+                    };
+                    if data[t].is_nan() {
                         v[t] = 0.0;
                         w[t] = pred;
                     } else {
