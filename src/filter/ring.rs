@@ -33,6 +33,8 @@ pub(crate) struct RingCovariance {
     e_cols: Vec<usize>,
     z_nz: Vec<(usize, f64)>,
     noise_nz: Vec<(usize, f64)>,
+    /// `q qᵀ`'s entries on and above the diagonal: (row, column, product).
+    noise_pairs: Vec<(usize, usize, f64)>,
     /// `Z = e₀` and `E` reads column 0 only.
     coordinate: bool,
 }
@@ -45,7 +47,8 @@ impl RingCovariance {
         b(&self.q)
             + b(&self.zc)
             + b(&self.saved)
-            + self.e_nz.capacity() * std::mem::size_of::<(usize, usize, f64)>()
+            + (self.e_nz.capacity() + self.noise_pairs.capacity())
+                * std::mem::size_of::<(usize, usize, f64)>()
             + self.e_cols.capacity() * std::mem::size_of::<usize>()
             + pairs * std::mem::size_of::<(usize, f64)>()
     }
@@ -97,6 +100,12 @@ impl RingCovariance {
         self.z_nz.extend(z);
         self.noise_nz.clear();
         self.noise_nz.extend(noise);
+        self.noise_pairs.clear();
+        for (k, &(i, a)) in self.noise_nz.iter().enumerate() {
+            for &(j, b) in &self.noise_nz[k..] {
+                self.noise_pairs.push((i, j, a * b));
+            }
+        }
         self.coordinate = self.z_nz == [(0, 1.0)] && self.e_cols.iter().all(|&b| b == 0);
         self.set = false;
     }
@@ -187,6 +196,15 @@ impl RingCovariance {
     /// [`Self::gain_entry`], use it with [`Self::update`].
     pub(crate) fn gain_column(&mut self) {
         let s = self.s;
+        if self.coordinate {
+            // Row 0: the column part above the diagonal, then the row part.
+            let o = self.off;
+            for p in 0..o {
+                self.zc[p] = self.q[p * s + o];
+            }
+            self.zc[o..].copy_from_slice(&self.q[o * s + o..(o + 1) * s]);
+            return;
+        }
         self.zc.fill(0.0);
         for k in 0..self.z_nz.len() {
             let (a, w) = self.z_nz[k];
@@ -244,6 +262,12 @@ impl RingCovariance {
     /// the trace of the updated covariance `P⁺` (zero once the state is known).
     pub(crate) fn step_present(&mut self, f: f64) -> f64 {
         self.gain_column();
+        self.step_present_after_gain(f)
+    }
+
+    /// [`Self::step_present`] when [`Self::gain_column`] (or [`Self::gain_into`]) has
+    /// run on the current covariance.
+    pub(crate) fn step_present_after_gain(&mut self, f: f64) -> f64 {
         let trace = self.update(f);
         self.predict(true);
         trace
@@ -314,15 +338,9 @@ impl RingCovariance {
     }
 
     fn add_noise(&mut self) {
-        let s = self.s;
-        for &(i, a) in &self.noise_nz {
-            let pi = self.ph(i);
-            for &(j, b) in &self.noise_nz {
-                let pj = self.ph(j);
-                if pi <= pj {
-                    self.q[pi * s + pj] += a * b;
-                }
-            }
+        for &(i, j, ab) in &self.noise_pairs {
+            let cell = self.at(self.ph(i), self.ph(j));
+            self.q[cell] += ab;
         }
     }
 }

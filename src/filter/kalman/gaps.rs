@@ -127,7 +127,7 @@ impl KalmanWorkspace {
     /// (P,P is the Chandrasekhar step; the others add or drop the update that did not
     /// happen.) Columns whose contribution falls below 1e-17 are dropped. Returns where
     /// it stopped and why: the gain converged (`Some(true)`), the end (`Some(false)`), or
-    /// the rank grew past r/8 or F fell below 1 (`None`: the ring covariance then holds
+    /// the rank grew past max(r/8, 8) or F fell below 1 (`None`: the ring covariance then holds
     /// `P_t` for the covariance recursion, replayed from the anchor).
     #[allow(clippy::too_many_arguments)]
     pub(super) fn gappy(
@@ -141,10 +141,13 @@ impl KalmanWorkspace {
     ) -> (usize, Option<bool>) {
         debug_assert!(self.innov.len() >= ncols * n && self.fvar.len() >= n);
         let r = self.r;
-        // Past r/8 columns the O(r·rank) sweep costs more than the dense ring step
-        // (≈ (r+1)² flops): measured at r = 98 (period 96), 2% of readings missing in
-        // runs, one exact evaluation 11.5 ms at r/8 or below against 17–28 ms at r/2.
-        let max_rank = (r / 8).max(2);
+        // Hand over to the dense ring step (≈ (r+1)² flops) past r/8 columns, but not
+        // below 8: at r = 98 (period 96, 2% missing in runs) one exact evaluation took
+        // 11.5 ms at r/8 against 17–28 ms at r/2 (the factored sweep is O(r·rank) and
+        // its work is replayed when it hands over late); at r = 14 (period 12) a bound of
+        // 2 cost 40–90% against the factored step, which brings short gaps back to the
+        // steady state on its own.
+        let max_rank = (r / 8).max(8);
         let mut t = t0;
         self.gap.ready = false;
         let mut f = self.gap.f;

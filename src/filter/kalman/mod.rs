@@ -284,7 +284,8 @@ impl KalmanWorkspace {
                         }
                         accumulate_cross(&self.innov, stride, t & mask, ncols, f, cross);
                         self.predict_states(ncols);
-                        let trace = self.ring.step_present(f);
+                        // `gain_into` above computed the gain column of this covariance.
+                        let trace = self.ring.step_present_after_gain(f);
                         // Converged when the updated covariance vanishes: then the
                         // gain is R and every later F is 1. (F − 1 alone only sees
                         // P⁺[1][1]; seasonal components converge later.)
