@@ -129,6 +129,19 @@ fn search_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
     Ok(())
 }
 
+/// Kestrel Bay return temperatures: SARIMA(1,0,1)×(0,1,1)₉₆, φ = 0.6, θ = 0.3, Θ = −0.6,
+/// level 61 °C, innovation sd 0.3 (the seasonal and gap benchmarks).
+fn return_temperatures() -> lagwise::SimulatorBuilder {
+    let mut b = Simulator::builder();
+    b.autoregressive(&[0.6])
+        .moving_average(&[0.3])
+        .seasonal(&[], &[-0.6], 96)
+        .differencing(0, 1)
+        .level(61.0)
+        .innovation_sd(0.3);
+    b
+}
+
 /// `--seasonal N`: the seasonal mode of the search benchmark. Kestrel Bay return
 /// temperatures: SARIMA(1,0,1)×(0,1,1)₉₆ (φ = 0.6, θ = 0.3, Θ = −0.6), 21 days of
 /// 15-minute readings (2,016), gap-free and with 2% of readings missing in drop-out runs
@@ -154,13 +167,7 @@ fn seasonal_bench(count: usize, weekly: bool) -> Result<(), Box<dyn std::error::
         ("gap-free", None),
         ("2% drop-outs", Some(lagwise::Dropouts::new(0.0025, 8.0))),
     ] {
-        let mut b = Simulator::builder();
-        b.autoregressive(&[0.6])
-            .moving_average(&[0.3])
-            .seasonal(&[], &[-0.6], 96)
-            .differencing(0, 1)
-            .level(61.0)
-            .innovation_sd(0.3);
+        let mut b = return_temperatures();
         if let Some(d) = dropouts {
             b.dropouts(d);
         }
@@ -272,13 +279,7 @@ fn events_bench(count: usize) -> Result<(), Box<dyn std::error::Error>> {
 /// `exact_log_likelihood`) and one default fit, each the median of three rounds in which
 /// the series alternate; prints the ratios to the gap-free series.
 fn gaps_bench(n: usize) -> Result<(), Box<dyn std::error::Error>> {
-    let mut b = Simulator::builder();
-    b.autoregressive(&[0.6])
-        .moving_average(&[0.3])
-        .seasonal(&[], &[-0.6], 96)
-        .differencing(0, 1)
-        .level(61.0)
-        .innovation_sd(0.3);
+    let mut b = return_temperatures();
     let full = b.build()?.generate(n, 4_100);
     let mut series = vec![("gap-free".to_string(), full)];
     for (start, run) in [(0.0025, 8.0), (0.005, 4.0)] {

@@ -593,6 +593,27 @@ mod tests {
     use crate::model::blueprint::Blueprint;
     use crate::model::simulate::Simulator;
 
+    /// A simulated series at level 40: AR and MA parts, seasonal (AR, MA, period) and
+    /// differencing (d, D), `n` readings from `seed`.
+    fn simulated(
+        ar: &[f64],
+        ma: &[f64],
+        seasonal: (&[f64], &[f64], usize),
+        differencing: (usize, usize),
+        n: usize,
+        seed: u64,
+    ) -> Vec<f64> {
+        Simulator::builder()
+            .autoregressive(ar)
+            .moving_average(ma)
+            .seasonal(seasonal.0, seasonal.1, seasonal.2)
+            .differencing(differencing.0, differencing.1)
+            .level(40.0)
+            .build()
+            .unwrap()
+            .generate(n, seed)
+    }
+
     /// With missing readings the terminal state comes from the ring-indexed augmented
     /// filter: its mean and covariance equal the row-major steps' (`FilterState::step`)
     /// to rounding — ARMA, integrated with drift, seasonal differencing with seasonal MA
@@ -602,15 +623,7 @@ mod tests {
     #[test]
     fn ring_terminal_matches_row_major_filter_through_gaps() {
         let sim = |ar: &[f64], ma: &[f64], sar: &[f64], sma: &[f64], d: usize, sd: usize| {
-            Simulator::builder()
-                .autoregressive(ar)
-                .moving_average(ma)
-                .seasonal(sar, sma, 12)
-                .differencing(d, sd)
-                .level(40.0)
-                .build()
-                .unwrap()
-                .generate(400, 5)
+            simulated(ar, ma, (sar, sma, 12), (d, sd), 400, 5)
         };
         let outdoor: Vec<f64> = (0..400).map(|t| (t as f64 / 30.0).sin()).collect();
         let cases: Vec<(Blueprint, Vec<f64>, bool)> = vec![
@@ -695,15 +708,7 @@ mod tests {
     #[test]
     fn steady_terminal_matches_dense_filter() {
         let sim = |ar: &[f64], ma: &[f64], sma: &[f64], s: usize, d: usize, sd: usize| {
-            Simulator::builder()
-                .autoregressive(ar)
-                .moving_average(ma)
-                .seasonal(&[], sma, s)
-                .differencing(d, sd)
-                .level(40.0)
-                .build()
-                .unwrap()
-                .generate(600, 11)
+            simulated(ar, ma, (&[], sma, s), (d, sd), 600, 11)
         };
         let outdoor: Vec<f64> = (0..600).map(|t| (t as f64 / 30.0).sin()).collect();
         let cases: Vec<(Blueprint, Vec<f64>, bool)> = vec![
