@@ -32,6 +32,8 @@ pub(crate) struct RingCovariance {
     /// The distinct columns `E` reads.
     e_cols: Vec<usize>,
     z_nz: Vec<(usize, f64)>,
+    /// The noise loading, kept as a reused buffer for building `noise_pairs` (the exact
+    /// filter reconfigures at every evaluation, which must not allocate).
     noise_nz: Vec<(usize, f64)>,
     /// `q qᵀ`'s entries on and above the diagonal: (row, column, product).
     noise_pairs: Vec<(usize, usize, f64)>,
