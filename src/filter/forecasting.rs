@@ -454,8 +454,12 @@ fn steady_covariance_into(m: &ForecastModel, out: &mut Vec<f64>) {
 
 /// The terminal state from the ARMA filter on `w_t = z_t − Σ c_k z_{t−k}` (`z` holds the
 /// δ lags before t0 and every reading from t0 on, none missing): the α block is that
-/// filter's predicted state, the lag block the last δ readings. Exact when the filter has
-/// converged by the end (`None` otherwise: the dense filter then carries the covariance).
+/// filter's predicted state, the lag block the last δ readings (known: zero covariance).
+/// Converged by the end, the covariance is the steady one; otherwise the α block is the
+/// filter's `P_n` from its opening recursions ([`KalmanWorkspace::opening_terminal`];
+/// `None` if they do not converge: the dense filter then carries the covariance).
+///
+/// [`KalmanWorkspace::opening_terminal`]: crate::filter::kalman::KalmanWorkspace::opening_terminal
 fn steady_terminal(
     m: &ForecastModel,
     z: &[f64],
@@ -480,14 +484,31 @@ fn steady_terminal(
     }
     let mut cross = [0.0];
     kw.pass(&w, w.len(), 1, &mut cross);
-    let Some(alpha) = kw.steady_terminal_state(&w, w.len()) else {
-        return Ok(None);
+    let (r, dim) = (m.r, m.dim());
+    let mut cov = Vec::new();
+    let alpha = match kw.steady_terminal_state(&w, w.len()) {
+        Some(alpha) => alpha.to_vec(),
+        None => {
+            // Not converged by the end: the opening's covariance at the end, continued at
+            // most as far as costs what the dense filter would ((dim+1)² against (r+1)²
+            // per reading).
+            let cap = w.len() * (dim + 1) * (dim + 1) / ((r + 1) * (r + 1));
+            let mut p = Vec::new();
+            let Some(alpha) = kw.opening_terminal(w.len(), cap, &mut p) else {
+                return Ok(None);
+            };
+            cov.resize(dim * dim, 0.0);
+            for i in 0..r {
+                cov[i * dim..i * dim + r].copy_from_slice(&p[i * r..(i + 1) * r]);
+            }
+            alpha.to_vec()
+        }
     };
-    let mut s = alpha.to_vec();
+    let mut s = alpha;
     s.extend((1..=delta).map(|k| z[n - k]));
     Ok(Some(FilterState {
         s,
-        cov: Vec::new(),
+        cov,
         next_index,
         scratch: StepScratch::default(),
     }))

@@ -745,13 +745,40 @@ mod tests {
                 true,
             ),
         ];
-        for (bp, x, exo) in cases {
+        // A seasonal MA over 20 cycles: the filter has not converged by the end, and the
+        // covariance comes from its opening recursions continued (≈ 36 cycles to
+        // converge at Θ = −0.6).
+        let unconverged = (
+            Blueprint::builder()
+                .nonseasonal(1, 0, 1)
+                .seasonal(0, 1, 1, 24)
+                .build()
+                .unwrap(),
+            simulated(&[0.5], &[0.2], (&[], &[-0.6], 24), (0, 1), 480, 11),
+            false,
+        );
+        let cases = cases.into_iter().map(|c| (c, true));
+        for ((bp, x, exo), converged) in cases.chain([(unconverged, false)]) {
             let regs: Vec<&[f64]> = if exo { vec![&outdoor] } else { vec![] };
             let model = bp.fit_regression(&x, &regs).unwrap();
             let fast = terminal_state(&model.forecaster, &x, &regs).unwrap();
             let dense = dense_terminal_state(&model.forecaster, &x, &regs).unwrap();
             let label = bp.shape_label();
-            assert!(fast.cov.is_empty(), "{label}: fast path not taken");
+            if converged {
+                assert!(fast.cov.is_empty(), "{label}: steady path not taken");
+            } else {
+                assert_eq!(
+                    fast.cov.len(),
+                    dense.cov.len(),
+                    "{label}: opening path not taken"
+                );
+                for (a, b) in fast.cov.iter().zip(&dense.cov) {
+                    assert!(
+                        (a - b).abs() <= 1e-9 * (1.0 + b.abs()),
+                        "{label}: {a} vs {b}"
+                    );
+                }
+            }
             assert_eq!(fast.next_index, dense.next_index, "{label}");
             assert_eq!(fast.s.len(), dense.s.len(), "{label}");
             for (a, b) in fast.s.iter().zip(&dense.s) {

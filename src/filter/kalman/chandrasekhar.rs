@@ -350,3 +350,88 @@ impl KalmanWorkspace {
         (t, steady)
     }
 }
+
+impl KalmanWorkspace {
+    /// After a complete one-column pass over `n` readings whose opening Chandrasekhar
+    /// phase ran to the end without converging (no missing reading): the predicted state
+    /// for time `n`, with its covariance `P_n` (σ² = 1, r×r row-major) into `cov`. Since
+    /// `P_{t+1} = P_t − w_t w_tᵀ/F_t` and the limit is `RRᵀ`,
+    ///
+    /// ```text
+    /// P_n = RRᵀ + Σ_{t ≥ n} w_t w_tᵀ / F_t,
+    /// ```
+    ///
+    /// the opening's recursions replayed to `n` and continued (the model alone decides
+    /// them) until they converge: O(r) per reading to `n`, then O(r²) per further step
+    /// for at most `cap` steps. `None` when the pass was not of that kind or the
+    /// recursions did not converge within `cap` steps (an MA root on the unit circle).
+    pub(crate) fn opening_terminal(
+        &self,
+        n: usize,
+        cap: usize,
+        cov: &mut Vec<f64>,
+    ) -> Option<&[f64]> {
+        let r = self.r;
+        if r == 0
+            || self.route == Route::Riccati
+            || !matches!(self.ended_in, Phase::Full)
+            || self.full_steps != n
+        {
+            return None;
+        }
+        let (mut g, mut w) = (vec![0.0; r], vec![0.0; r]);
+        let p0 = &self.p;
+        let mut f = p0[0];
+        for i in 0..r {
+            let below = if i + 1 < r { p0[(i + 1) * r] } else { 0.0 };
+            g[i] = self.phi[i] * f + below;
+        }
+        w.copy_from_slice(&g);
+        let step = |g: &mut [f64], w: &mut [f64], f: &mut f64| -> f64 {
+            let w0 = w[0];
+            let k = w0 / *f;
+            *f -= w0 * k;
+            let mut size = 0.0;
+            for i in 0..r {
+                let u = self.phi[i] * w0 + if i + 1 < r { w[i + 1] } else { 0.0 };
+                let gi = g[i];
+                g[i] = gi - k * u;
+                let wi = u - k * gi;
+                w[i] = wi;
+                size += wi * wi;
+            }
+            size
+        };
+        for _ in 0..n {
+            step(&mut g, &mut w, &mut f);
+        }
+        cov.clear();
+        cov.resize(r * r, 0.0);
+        let mut converged = false;
+        for _ in 0..cap {
+            let inv = 1.0 / f;
+            for i in 0..r {
+                let a = w[i] * inv;
+                for (c, wj) in cov[i * r + i..(i + 1) * r].iter_mut().zip(&w[i..]) {
+                    *c += a * wj;
+                }
+            }
+            let size = step(&mut g, &mut w, &mut f);
+            if size < CHANDRASEKHAR_TOLERANCE * f && f - 1.0 < 1e-10 {
+                converged = true;
+                break;
+            }
+        }
+        if !converged {
+            return None;
+        }
+        for i in 0..r {
+            for j in i..r {
+                let v = cov[i * r + j] + self.rvec[i] * self.rvec[j];
+                cov[i * r + j] = v;
+                cov[j * r + i] = v;
+            }
+        }
+        Some(&self.state[..r])
+    }
+}

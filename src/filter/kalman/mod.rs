@@ -13,6 +13,7 @@ mod chandrasekhar;
 mod covariance;
 mod gaps;
 mod likelihood;
+mod score;
 mod start;
 
 use crate::filter::ring::RingCovariance;
@@ -20,6 +21,7 @@ use chandrasekhar::CHANDRASEKHAR_TOLERANCE;
 use chandrasekhar::open_side_by_side;
 use gaps::GapFactors;
 pub use likelihood::{exact_log_likelihood, reference_log_likelihood};
+pub(crate) use score::{AdjointScratch, PassDerivatives};
 
 /// Largest state dimension with the fixed-size full-covariance step.
 const SMALL_STATE: usize = 4;

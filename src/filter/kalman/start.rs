@@ -7,6 +7,26 @@ impl KalmanWorkspace {
     /// Set the model (expanded φ and θ, conventions of [`inverse_roots`](crate::inverse_roots)) and compute the
     /// stationary initial covariance. Errors if the AR part is not stationary.
     pub(crate) fn set_model(&mut self, phi: &[f64], theta: &[f64]) -> Result<()> {
+        let (p, q) = self.set_polynomials(phi, theta);
+        let r = self.r;
+        resize(&mut self.pn, (r + 1) * (r + 1));
+        resize(&mut self.kcol, r);
+        resize(&mut self.tmp, r);
+        resize(&mut self.ch_g, r);
+        resize(&mut self.ch_w, r);
+        self.ring.set_companion(&self.phi, &self.rvec);
+        self.stationary_covariance(p, q, true)
+    }
+
+    /// Only the first column of `P₀` (into `self.p[j·r]`, `j < r`; the rest of `self.p` is
+    /// left stale) for a model that is not run: the exact score's perturbed starts.
+    pub(crate) fn set_model_start_column(&mut self, phi: &[f64], theta: &[f64]) -> Result<()> {
+        let (p, q) = self.set_polynomials(phi, theta);
+        self.stationary_covariance(p, q, false)
+    }
+
+    /// The expanded polynomials, their non-zero lags and the state dimension; `p` sized.
+    fn set_polynomials(&mut self, phi: &[f64], theta: &[f64]) -> (usize, usize) {
         let p = phi.len();
         let q = theta.len();
         let r = p.max(q + 1);
@@ -20,18 +40,15 @@ impl KalmanWorkspace {
         self.rvec[1..=q].copy_from_slice(theta);
         lag::nonzero_lags(phi, &mut self.ar_nz);
         lag::nonzero_lags(theta, &mut self.ma_nz);
-        resize(&mut self.p, r * r);
-        resize(&mut self.pn, (r + 1) * (r + 1));
-        resize(&mut self.kcol, r);
-        resize(&mut self.tmp, r);
-        resize(&mut self.ch_g, r);
-        resize(&mut self.ch_w, r);
-        self.ring.set_companion(&self.phi, &self.rvec);
-        self.stationary_covariance(p, q)
+        if self.p.len() != r * r {
+            self.p.resize(r * r, 0.0);
+        }
+        (p, q)
     }
 
-    /// `P₀` for σ² = 1 into `self.p` (see module docs).
-    pub(super) fn stationary_covariance(&mut self, p: usize, q: usize) -> Result<()> {
+    /// `P₀` for σ² = 1 into `self.p` (see module docs); with `fill` false only its first
+    /// row and column.
+    pub(super) fn stationary_covariance(&mut self, p: usize, q: usize, fill: bool) -> Result<()> {
         let r = self.r;
         let lags = r + q + 1;
         // γ_u: autocovariances of the AR part driven by unit white noise.
@@ -131,6 +148,15 @@ impl KalmanWorkspace {
             }
             pm[j] = s;
             pm[j * r] = s;
+        }
+        if !fill {
+            if pm[..r].iter().any(|v| !v.is_finite()) || !(pm[0] > 0.0) {
+                return Err(Error::numerical(
+                    "exact likelihood",
+                    "stationary covariance is not finite",
+                ));
+            }
+            return Ok(());
         }
         // Diagonal fill.
         let p00 = pm[0];
