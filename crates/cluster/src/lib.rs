@@ -16,6 +16,15 @@
 //! functions with messages that do not say what to do; [`connect`] probes the cluster
 //! once and [`explain`] turns those messages into [`ClusterError::NodesWithoutFunctions`].
 //!
+//! Executors *pull* their tasks: each asks the scheduler for work whenever it has a free
+//! slot (and at least every 5 s while busy, which is also how the scheduler knows it is
+//! alive). With the engine's default, the scheduler pushing tasks to executors, Ballista
+//! 55.0 lost track of a surviving executor's slots when another executor died while a
+//! later stage was reading its shuffle output — the stage rolled back, the survivor's
+//! finished tasks were no longer counted as freeing their slots, and the query waited
+//! for ever (`a_killed_executor_never_leaves_a_partial_answer` caught it). Pulling keeps
+//! the slot count on the executor, and executors listen on one port (shuffle data) only.
+//!
 //! Nothing here authenticates or encrypts: the engine's gRPC and Arrow Flight ports
 //! accept any peer that can reach them. The nodes bind to 127.0.0.1 unless told
 //! otherwise; run them inside a private network (see the crate's README section).
@@ -24,7 +33,8 @@ use std::net::{IpAddr, Ipv4Addr, SocketAddr, TcpListener as StdListener};
 use std::sync::Arc;
 use std::time::Duration;
 
-use ballista::prelude::SessionContextExt;
+use ballista::prelude::{SessionConfigExt, SessionContextExt};
+use ballista_core::config::TaskSchedulingPolicy;
 use ballista_core::registry::BallistaFunctionRegistry;
 use ballista_core::utils::default_session_builder;
 use ballista_executor::executor_process::{ExecutorProcessConfig, start_executor_process};
@@ -132,6 +142,9 @@ pub fn scheduler_session(config: SessionConfig) -> datafusion::common::Result<Se
     Ok(ctx.state())
 }
 
+/// The shortest executor timeout a scheduler accepts (busy executors report every 5 s).
+pub const MIN_EXECUTOR_TIMEOUT_S: u64 = 10;
+
 /// Settings of a scheduler node.
 #[derive(Debug, Clone)]
 pub struct SchedulerSettings {
@@ -143,7 +156,8 @@ pub struct SchedulerSettings {
     /// (default: the bound address).
     pub advertise: Option<String>,
     /// How long an executor may stay silent before its tasks are given to others
-    /// (default 30 s; the engine's own default is 180 s).
+    /// (default 30 s, at least [`MIN_EXECUTOR_TIMEOUT_S`]; the engine's own default is
+    /// 180 s).
     pub executor_timeout: Duration,
     /// Executors needed before the scheduler reports itself ready on `/readyz`
     /// (default 1).
@@ -208,7 +222,15 @@ impl BoundScheduler {
                 "ready executors and task attempts must be at least 1".into(),
             ));
         }
-        let timeout = s.executor_timeout.as_secs().max(2);
+        // Executors report on every poll for work: every 50 ms when idle, at least every
+        // 5 s when every slot is busy.
+        let timeout = s.executor_timeout.as_secs();
+        if timeout < MIN_EXECUTOR_TIMEOUT_S {
+            return Err(ClusterError::Setting(format!(
+                "an executor timeout of {timeout} s is too short: busy executors report every \
+                 5 s, so give at least {MIN_EXECUTOR_TIMEOUT_S} s"
+            )));
+        }
         let mut config = SchedulerConfig {
             bind_host: address.ip().to_string(),
             bind_port: address.port(),
@@ -222,6 +244,7 @@ impl BoundScheduler {
             min_ready_executors: s.ready_executors,
             task_max_failures: s.task_attempts,
             stage_max_failures: s.task_attempts,
+            scheduling_policy: TaskSchedulingPolicy::PullStaged,
             ..SchedulerConfig::default()
         };
         if !s.stock {
@@ -255,10 +278,9 @@ pub struct ExecutorSettings {
     /// Host name or address the scheduler and the other executors use to reach this one
     /// (default: the bound address).
     pub advertise: Option<String>,
-    /// Port for shuffle data (Arrow Flight); 0 picks a free one (default 0).
+    /// Port for shuffle data (Arrow Flight), the executor's only listening port; 0 picks
+    /// a free one (default 0).
     pub data_port: u16,
-    /// Port for task control (gRPC); 0 picks a free one (default 0).
-    pub control_port: u16,
     /// Tasks run at once (default: the machine's cores).
     pub slots: usize,
     /// Memory pool in bytes shared by the running tasks; aggregates beyond it spill
@@ -266,8 +288,6 @@ pub struct ExecutorSettings {
     pub memory_pool: Option<u64>,
     /// Directory for shuffle files (default: a temporary directory).
     pub work_dir: Option<String>,
-    /// Seconds between heartbeats to the scheduler (default 10).
-    pub heartbeat: Duration,
     /// Start without lagwise's functions, exactly as the engine's stock executor does.
     /// Only for checking that clients get a clear error from such a cluster.
     pub stock: bool,
@@ -280,11 +300,9 @@ impl Default for ExecutorSettings {
             bind: IpAddr::V4(Ipv4Addr::LOCALHOST),
             advertise: None,
             data_port: 0,
-            control_port: 0,
             slots: std::thread::available_parallelism().map_or(1, |n| n.get()),
             memory_pool: None,
             work_dir: None,
-            heartbeat: Duration::from_secs(10),
             stock: false,
         }
     }
@@ -324,21 +342,12 @@ impl PlannedExecutor {
         if settings.data_port == 0 {
             settings.data_port = free_port(settings.bind)?;
         }
-        if settings.control_port == 0 {
-            loop {
-                let port = free_port(settings.bind)?;
-                if port != settings.data_port {
-                    settings.control_port = port;
-                    break;
-                }
-            }
-        }
         Ok(Self { settings })
     }
 
-    /// The (data, control) ports.
-    pub fn ports(&self) -> (u16, u16) {
-        (self.settings.data_port, self.settings.control_port)
+    /// The data port (shuffle output is served from it).
+    pub fn data_port(&self) -> u16 {
+        self.settings.data_port
     }
 
     /// Registers with the scheduler and runs tasks until stopped.
@@ -348,14 +357,13 @@ impl PlannedExecutor {
             bind_host: s.bind.to_string(),
             external_host: Some(s.advertise.clone().unwrap_or_else(|| s.bind.to_string())),
             port: s.data_port,
-            grpc_port: s.control_port,
             scheduler_host: s.scheduler.0.clone(),
             scheduler_port: s.scheduler.1,
             scheduler_connect_timeout_seconds: 20,
             vcores: s.slots,
             work_dir: s.work_dir.clone(),
             memory_pool_size: s.memory_pool,
-            executor_heartbeat_interval_seconds: s.heartbeat.as_secs().max(1),
+            task_scheduling_policy: TaskSchedulingPolicy::PullStaged,
             print_thread_info: false,
             override_function_registry: (!s.stock).then(|| Arc::new(executor_registry())),
             ..ExecutorProcessConfig::default()
@@ -374,7 +382,14 @@ pub async fn connect(scheduler_url: &str) -> Result<SessionContext> {
 }
 
 /// [`connect`] with the caller's session settings (partitions, batch size).
+///
+/// Ballista's adaptive planner is switched off for the session: lagwise's aggregates gain
+/// nothing from it (no joins to re-plan), and with Ballista 55.0 its rollback after an
+/// executor dies while a later stage reads the shuffle left the job hanging for good
+/// (`a_killed_executor_never_leaves_a_partial_answer` caught it); the static planner
+/// re-runs the lost tasks.
 pub async fn connect_with(scheduler_url: &str, config: SessionConfig) -> Result<SessionContext> {
+    let config = config.with_ballista_adaptive_query_planner(false);
     let state = datafusion::execution::SessionStateBuilder::new()
         .with_default_features()
         .with_config(config)
@@ -440,10 +455,14 @@ pub async fn collect(ctx: &SessionContext, sql: &str) -> Result<Vec<RecordBatch>
 pub fn explain(error: DataFusionError) -> ClusterError {
     let text = error.to_string();
     if text.contains("ExtensionCodec is not provided") && text.contains("lw_") {
-        ClusterError::NodesWithoutFunctions {
-            side: "scheduler",
-            detail: text,
-        }
+        // Executors decode physical plans (a task that fails to decode fails the job);
+        // the scheduler decodes the client's logical plan (the submission fails).
+        let side = if text.contains("PhysicalExtensionCodec") {
+            "executors"
+        } else {
+            "scheduler"
+        };
+        ClusterError::NodesWithoutFunctions { side, detail: text }
     } else if text.contains("could not be prepared or was rejected by executor") {
         ClusterError::TaskRejected { detail: text }
     } else {

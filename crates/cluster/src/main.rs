@@ -5,8 +5,7 @@
 //! lagwise-node scheduler [--bind ADDR] [--port N] [--advertise HOST]
 //!                        [--executor-timeout SECS] [--ready-executors N] [--task-attempts N]
 //! lagwise-node executor  --scheduler HOST:PORT [--bind ADDR] [--advertise HOST]
-//!                        [--data-port N] [--control-port N] [--slots N]
-//!                        [--memory-pool BYTES] [--work-dir DIR] [--heartbeat SECS]
+//!                        [--data-port N] [--slots N] [--memory-pool BYTES] [--work-dir DIR]
 //! lagwise-node sql       --scheduler HOST:PORT [--table NAME=PARQUET_PATH]...
 //!                        (--query SQL | --file FILE) [--partitions N]
 //! ```
@@ -113,11 +112,9 @@ async fn executor(o: &Options) -> Result<(), ClusterError> {
         "bind",
         "advertise",
         "data-port",
-        "control-port",
         "slots",
         "memory-pool",
         "work-dir",
-        "heartbeat",
         "stock",
         "exit-with-parent",
     ])?;
@@ -127,20 +124,16 @@ async fn executor(o: &Options) -> Result<(), ClusterError> {
         bind: o.parsed::<IpAddr>("bind")?.unwrap_or(defaults.bind),
         advertise: o.value("advertise").map(str::to_string),
         data_port: o.parsed("data-port")?.unwrap_or(0),
-        control_port: o.parsed("control-port")?.unwrap_or(0),
         slots: o.parsed("slots")?.unwrap_or(defaults.slots),
         memory_pool: o.parsed("memory-pool")?,
         work_dir: o.value("work-dir").map(str::to_string),
-        heartbeat: o
-            .parsed::<u64>("heartbeat")?
-            .map_or(defaults.heartbeat, Duration::from_secs),
         stock: o.flag("stock"),
     };
     let bind = settings.bind;
     let planned = PlannedExecutor::plan(settings)?;
-    let (data, control) = planned.ports();
     announce(&format!(
-        "executor listening on {bind}:{data} (data) and {bind}:{control} (control)"
+        "executor listening on {bind}:{} (data)",
+        planned.data_port()
     ));
     planned.serve().await
 }

@@ -37,7 +37,7 @@ use datafusion::arrow::array::{
     StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
 };
 use datafusion::arrow::datatypes::{
-    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, TimeUnit,
+    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, TimeUnit, TimestampMillisecondType,
 };
 use datafusion::common::utils::SingleRowListArrayBuilder;
 use datafusion::common::{DataFusionError, Result, ScalarValue, exec_err, plan_err};
@@ -50,6 +50,7 @@ use datafusion::logical_expr::{
 use datafusion::physical_expr::expressions::Literal;
 use datafusion::prelude::SessionContext;
 use lagwise::{Blueprint, FittedModel, GridSettings, SearchSettings};
+use std::borrow::Cow;
 
 /// The functions this crate provides, ready to register.
 pub fn functions() -> Vec<AggregateUDF> {
@@ -498,34 +499,49 @@ struct SeriesAccumulator {
 }
 
 /// Epoch milliseconds from a timestamp or integer column; a null time is an error.
-fn times_ms(array: &ArrayRef, what: &str) -> Result<Vec<i64>> {
+fn times_ms<'a>(array: &'a ArrayRef, what: &str) -> Result<Cow<'a, [i64]>> {
     if array.null_count() > 0 {
         return exec_err!("{what}: a reading has no time (NULL timestamp)");
     }
-    // (multiply, divide) from the column's unit to milliseconds.
+    // (multiply, divide) from the column's unit to milliseconds; milliseconds are
+    // borrowed as they are.
     let (up, down): (i64, i64) = match array.data_type() {
+        DataType::Timestamp(TimeUnit::Millisecond, _) => {
+            return Ok(Cow::Borrowed(
+                array.as_primitive::<TimestampMillisecondType>().values(),
+            ));
+        }
+        DataType::Int64 => return Ok(Cow::Borrowed(array.as_primitive::<Int64Type>().values())),
         DataType::Timestamp(TimeUnit::Second, _) => (1_000, 1),
-        DataType::Timestamp(TimeUnit::Millisecond, _) | DataType::Int64 => (1, 1),
         DataType::Timestamp(TimeUnit::Microsecond, _) => (1, 1_000),
         DataType::Timestamp(TimeUnit::Nanosecond, _) => (1, 1_000_000),
         other => return exec_err!("{what}: time column of type {other}"),
     };
     let raw = datafusion::arrow::compute::cast(array, &DataType::Int64)?;
-    Ok(raw
-        .as_primitive::<Int64Type>()
-        .values()
-        .iter()
-        .map(|v| v.saturating_mul(up).div_euclid(down))
-        .collect())
+    Ok(Cow::Owned(
+        raw.as_primitive::<Int64Type>()
+            .values()
+            .iter()
+            .map(|v| v.saturating_mul(up).div_euclid(down))
+            .collect(),
+    ))
 }
 
-/// Readings as `f64` from any numeric column, `NULL` as NaN (missing).
-fn readings_of(array: &ArrayRef) -> Result<Vec<f64>> {
+/// Readings as `f64` from any numeric column, `NULL` as NaN (missing); a `Float64` column
+/// without nulls is borrowed as it is.
+fn readings_of(array: &ArrayRef) -> Result<Cow<'_, [f64]>> {
+    if array.null_count() == 0
+        && let Some(p) = array.as_primitive_opt::<Float64Type>()
+    {
+        return Ok(Cow::Borrowed(p.values()));
+    }
     let v = datafusion::arrow::compute::cast(array, &DataType::Float64)?;
     let v = v.as_primitive::<Float64Type>();
-    Ok((0..v.len())
-        .map(|i| if v.is_null(i) { f64::NAN } else { v.value(i) })
-        .collect())
+    Ok(Cow::Owned(
+        (0..v.len())
+            .map(|i| if v.is_null(i) { f64::NAN } else { v.value(i) })
+            .collect(),
+    ))
 }
 
 impl Accumulator for SeriesAccumulator {
@@ -549,7 +565,8 @@ impl Accumulator for SeriesAccumulator {
             }
             self.times
                 .extend_from_slice(times.value(row).as_primitive::<Int64Type>().values());
-            self.values.extend(readings_of(&values.value(row))?);
+            let v = values.value(row);
+            self.values.extend_from_slice(&readings_of(&v)?);
         }
         Ok(())
     }
@@ -643,13 +660,25 @@ impl GroupsAccumulator for SeriesGroups {
             return exec_err!("{what}: time and value columns differ in length");
         }
         self.grow_to(total_num_groups);
-        for (row, &g) in group_indices.iter().enumerate() {
-            if let Some(f) = opt_filter
-                && !(f.is_valid(row) && f.value(row))
-            {
-                continue;
+        // Rows of one group usually come in runs (each tag's readings in time order):
+        // one append per run.
+        let mut row = 0;
+        while row < group_indices.len() {
+            let g = group_indices[row];
+            let end = row
+                + group_indices[row..]
+                    .iter()
+                    .position(|&h| h != g)
+                    .unwrap_or(group_indices.len() - row);
+            match opt_filter {
+                None => self.extend(g, &times[row..end], &readings[row..end]),
+                Some(f) => {
+                    for i in (row..end).filter(|&i| f.is_valid(i) && f.value(i)) {
+                        self.extend(g, &times[i..=i], &readings[i..=i]);
+                    }
+                }
             }
-            self.extend(g, &times[row..=row], &readings[row..=row]);
+            row = end;
         }
         Ok(())
     }
@@ -733,13 +762,13 @@ impl GroupsAccumulator for SeriesGroups {
         let times = ListArray::new(
             Arc::new(Field::new("item", DataType::Int64, true)),
             offsets.clone(),
-            Arc::new(Int64Array::from(times)),
+            Arc::new(Int64Array::from(times.into_owned())),
             nulls.clone(),
         );
         let values = ListArray::new(
             Arc::new(Field::new("item", DataType::Float64, true)),
             offsets,
-            Arc::new(Float64Array::from(readings)),
+            Arc::new(Float64Array::from(readings.into_owned())),
             nulls,
         );
         Ok(vec![Arc::new(times), Arc::new(values)])
@@ -1122,8 +1151,9 @@ impl WatchEvaluator {
         b: &mut StructBuilder,
     ) -> Result<()> {
         let (start, n) = (rows.start, rows.len());
-        let times = times_ms(&values[0].slice(start, n), "lw_watch")?;
-        let readings = readings_of(&values[1].slice(start, n))?;
+        let (time_column, reading_column) = (values[0].slice(start, n), values[1].slice(start, n));
+        let times = times_ms(&time_column, "lw_watch")?;
+        let readings = readings_of(&reading_column)?;
         let stored = datafusion::arrow::compute::cast(&values[2].slice(start, n), &DataType::Utf8)?;
         let stored = stored.as_string::<i32>();
         let levels =
