@@ -607,17 +607,116 @@ impl Accumulator for SeriesAccumulator {
 struct SeriesGroups {
     task: Task,
     /// Epoch milliseconds, per group.
-    times: Vec<Vec<i64>>,
+    times: Vec<GroupTimes>,
     /// NaN = missing, per group.
     values: Vec<Vec<f64>>,
     /// Heap bytes of the groups' vectors' buffers (kept current as they grow).
     bytes: usize,
 }
 
+/// One group's timestamps: while they step evenly (a healthy sensor's readings in time
+/// order, the usual case) only the first, the step and the count are kept — half the
+/// memory a group holds until it is evaluated; the first time that breaks the pattern
+/// turns them into a list.
+#[derive(Debug, Clone, PartialEq)]
+enum GroupTimes {
+    /// `first + k·step` for k < `count`.
+    Even { first: i64, step: i64, count: usize },
+    /// As they came.
+    Listed(Vec<i64>),
+}
+
+impl Default for GroupTimes {
+    fn default() -> Self {
+        GroupTimes::Even {
+            first: 0,
+            step: 0,
+            count: 0,
+        }
+    }
+}
+
+impl GroupTimes {
+    fn len(&self) -> usize {
+        match self {
+            GroupTimes::Even { count, .. } => *count,
+            GroupTimes::Listed(v) => v.len(),
+        }
+    }
+
+    /// Heap bytes held.
+    fn heap_bytes(&self) -> usize {
+        match self {
+            GroupTimes::Even { .. } => 0,
+            GroupTimes::Listed(v) => v.capacity() * std::mem::size_of::<i64>(),
+        }
+    }
+
+    /// The k-th time of an even run (`None` on overflow).
+    fn even_at(first: i64, step: i64, k: usize) -> Option<i64> {
+        i64::try_from(k)
+            .ok()
+            .and_then(|k| step.checked_mul(k))
+            .and_then(|d| first.checked_add(d))
+    }
+
+    /// Appends `times`, staying even while they continue the pattern.
+    fn extend(&mut self, mut times: &[i64]) {
+        if let GroupTimes::Even { first, step, count } = self {
+            let (mut f, mut st, mut n) = (*first, *step, *count);
+            let mut rest = times;
+            while let Some((&t, tail)) = rest.split_first() {
+                let fits = match n {
+                    0 => {
+                        f = t;
+                        true
+                    }
+                    1 => match t.checked_sub(f) {
+                        Some(d) => {
+                            st = d;
+                            true
+                        }
+                        None => false,
+                    },
+                    _ => Self::even_at(f, st, n) == Some(t),
+                };
+                if !fits {
+                    break;
+                }
+                n += 1;
+                rest = tail;
+            }
+            (*first, *step, *count) = (f, st, n);
+            if rest.is_empty() {
+                return;
+            }
+            let mut listed = Vec::with_capacity(n + rest.len());
+            listed.extend((0..n).map(|k| f + st * k as i64));
+            *self = GroupTimes::Listed(listed);
+            times = rest;
+        }
+        if let GroupTimes::Listed(v) = self {
+            v.extend_from_slice(times);
+        }
+    }
+
+    /// The times as a slice, written into `buffer` when they are even.
+    fn as_slice<'a>(&'a self, buffer: &'a mut Vec<i64>) -> &'a [i64] {
+        match self {
+            GroupTimes::Listed(v) => v,
+            GroupTimes::Even { first, step, count } => {
+                buffer.clear();
+                buffer.extend((0..*count).map(|k| first + step * k as i64));
+                buffer
+            }
+        }
+    }
+}
+
 impl SeriesGroups {
     fn grow_to(&mut self, groups: usize) {
         if self.times.len() < groups {
-            self.times.resize_with(groups, Vec::new);
+            self.times.resize_with(groups, GroupTimes::default);
             self.values.resize_with(groups, Vec::new);
         }
     }
@@ -625,20 +724,20 @@ impl SeriesGroups {
     /// Append readings to group `g`, keeping the byte count current.
     fn extend(&mut self, g: usize, times: &[i64], values: &[f64]) {
         let (t, v) = (&mut self.times[g], &mut self.values[g]);
-        let before = t.capacity() * 8 + v.capacity() * 8;
-        t.extend_from_slice(times);
+        let before = t.heap_bytes() + v.capacity() * 8;
+        t.extend(times);
         v.extend_from_slice(values);
-        self.bytes = self.bytes + t.capacity() * 8 + v.capacity() * 8 - before;
+        self.bytes = self.bytes + t.heap_bytes() + v.capacity() * 8 - before;
     }
 
     /// The groups `emit_to` asks for, removed from the accumulator.
-    fn take(&mut self, emit_to: EmitTo) -> (Vec<Vec<i64>>, Vec<Vec<f64>>) {
+    fn take(&mut self, emit_to: EmitTo) -> (Vec<GroupTimes>, Vec<Vec<f64>>) {
         let times = emit_to.take_needed(&mut self.times);
         let values = emit_to.take_needed(&mut self.values);
         let gone: usize = times
             .iter()
             .zip(&values)
-            .map(|(t, v)| t.capacity() * 8 + v.capacity() * 8)
+            .map(|(t, v)| t.heap_bytes() + v.capacity() * 8)
             .sum();
         self.bytes -= gone.min(self.bytes);
         (times, values)
@@ -715,11 +814,16 @@ impl GroupsAccumulator for SeriesGroups {
         use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
         use datafusion::arrow::buffer::OffsetBuffer;
         let (times, values) = self.take(emit_to);
-        let offsets = OffsetBuffer::<i32>::from_lengths(times.iter().map(Vec::len));
+        let offsets = OffsetBuffer::<i32>::from_lengths(times.iter().map(GroupTimes::len));
+        let mut all = Vec::with_capacity(times.iter().map(GroupTimes::len).sum());
+        let mut buffer = Vec::new();
+        for t in &times {
+            all.extend_from_slice(t.as_slice(&mut buffer));
+        }
         let times = ListArray::new(
             Arc::new(Field::new("item", DataType::Int64, true)),
             offsets.clone(),
-            Arc::new(Int64Array::from(times.concat())),
+            Arc::new(Int64Array::from(all)),
             None,
         );
         let values = ListArray::new(
@@ -734,7 +838,11 @@ impl GroupsAccumulator for SeriesGroups {
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
         let (times, values) = self.take(emit_to);
         let task = &self.task;
-        let outcomes = times.iter().zip(&values).map(|(t, v)| run(task, t, v));
+        let mut buffer = Vec::new();
+        let outcomes = times
+            .iter()
+            .zip(&values)
+            .map(|(t, v)| run(task, t.as_slice(&mut buffer), v));
         Ok(Arc::new(result_rows(task, outcomes)))
     }
 
@@ -777,7 +885,8 @@ impl GroupsAccumulator for SeriesGroups {
     fn size(&self) -> usize {
         std::mem::size_of_val(self)
             + self.bytes
-            + (self.times.capacity() + self.values.capacity()) * std::mem::size_of::<Vec<i64>>()
+            + self.times.capacity() * std::mem::size_of::<GroupTimes>()
+            + self.values.capacity() * std::mem::size_of::<Vec<f64>>()
             + self.task.levels.capacity() * std::mem::size_of::<f64>()
     }
 }
@@ -1254,6 +1363,80 @@ mod tests {
         assert_eq!(acc.size(), empty);
     }
 
+    /// A group's times come back exactly as appended, in any chunks, whether they step
+    /// evenly (kept as first, step, count), break the pattern at any point, overflow, or
+    /// repeat; the byte count follows.
+    #[test]
+    fn group_times_come_back_as_appended() {
+        let even: Vec<i64> = (0..50).map(|k| 1_767_225_600_000 + 900_000 * k).collect();
+        let mut late = even.clone();
+        late[31] += 1;
+        let mut swapped = even.clone();
+        swapped.swap(2, 3);
+        let sequences: Vec<Vec<i64>> = vec![
+            even.clone(),
+            late,
+            swapped,
+            vec![7],
+            vec![7, 7, 7, 7],
+            vec![5, 3, 1, -1, -3],
+            vec![i64::MAX - 2, i64::MAX - 1, i64::MAX, i64::MIN],
+            vec![i64::MIN, 0, i64::MAX],
+            vec![0, i64::MAX, -2],
+        ];
+        for seq in &sequences {
+            for chunk in [1, 2, 3, 7, seq.len()] {
+                let mut t = GroupTimes::default();
+                for part in seq.chunks(chunk) {
+                    t.extend(part);
+                }
+                let mut buffer = vec![99; 3];
+                assert_eq!(
+                    t.as_slice(&mut buffer),
+                    seq.as_slice(),
+                    "{seq:?} by {chunk}"
+                );
+                assert_eq!(t.len(), seq.len());
+            }
+        }
+        let mut t = GroupTimes::default();
+        t.extend(&even);
+        assert!(matches!(t, GroupTimes::Even { .. }));
+        assert_eq!(t.heap_bytes(), 0);
+        t.extend(&[0]);
+        assert!(matches!(t, GroupTimes::Listed(_)));
+        assert!(t.heap_bytes() >= 8 * 51);
+        // The grouped accumulator holds 8 bytes per evenly stepped reading, 16 otherwise.
+        let mut groups = SeriesGroups {
+            task: ar1_task(),
+            times: Vec::new(),
+            values: Vec::new(),
+            bytes: 0,
+        };
+        let empty = groups.size();
+        let n = 10_000;
+        let times: ArrayRef = Arc::new(Int64Array::from_iter_values(
+            (0..n as i64).map(|i| i * 1_000),
+        ));
+        let values: ArrayRef = Arc::new(Float64Array::from_iter_values((0..n).map(|i| i as f64)));
+        groups
+            .update_batch(&[times.clone(), values.clone()], &vec![0; n], None, 1)
+            .unwrap();
+        let held = groups.size() - empty;
+        assert!((8 * n..=9 * n).contains(&held), "{held}");
+        let jumbled: ArrayRef = Arc::new(Int64Array::from_iter_values(
+            (0..n as i64).map(|i| (i * 7_919) % n as i64 * 1_000),
+        ));
+        groups
+            .update_batch(&[jumbled, values], &vec![1; n], None, 2)
+            .unwrap();
+        let held = groups.size() - empty;
+        assert!((24 * n..=34 * n).contains(&held), "{held}");
+        let state = groups.state(EmitTo::All).unwrap();
+        assert_eq!(state[0].len(), 2);
+        assert_eq!(groups.bytes, 0);
+    }
+
     fn ar1_task() -> Task {
         let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
         Task {
@@ -1308,8 +1491,9 @@ mod tests {
         let mut partial = fresh();
         let empty = partial.size();
         partial.update_batch(&arrays, &groups, None, 2).unwrap();
+        // Evenly stepped times are kept as (first, step, count): 8 bytes per reading.
         let held = partial.bytes;
-        assert!(held >= 2 * 16 * n && held <= 2 * 32 * n, "{held}");
+        assert!(held >= 2 * 8 * n && held <= 2 * 16 * n, "{held}");
         assert!(partial.size() >= empty + held);
         let state = partial.state(EmitTo::All).unwrap();
         assert_eq!(partial.bytes, 0);
@@ -1340,7 +1524,7 @@ mod tests {
         filtered
             .update_batch(&arrays, &groups, Some(&filter), 2)
             .unwrap();
-        let kept: usize = filtered.times.iter().map(Vec::len).sum();
+        let kept: usize = filtered.times.iter().map(GroupTimes::len).sum();
         assert_eq!(kept, 2 * n - own[0].null_count());
     }
 }
