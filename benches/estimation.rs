@@ -339,5 +339,42 @@ fn smoothing(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, likelihood, fits, monitoring, smoothing);
+/// Timestamped readings onto the grid, 1,000 readings a quarter-hour apart (one dropped
+/// every 97): listed timestamps taking the direct route, the same run given as first
+/// time and step, and jittered timestamps (±2 minutes) taking the general route.
+fn placement(c: &mut Criterion) {
+    let mut group = c.benchmark_group("placement");
+    let q = 900_000i64;
+    let t0 = 1_795_564_800_000i64;
+    let n = 1000usize;
+    let values: Vec<f64> = (0..n)
+        .map(|i| {
+            if i % 97 == 50 {
+                f64::NAN
+            } else {
+                (i as f64 * 0.1).sin()
+            }
+        })
+        .collect();
+    let times: Vec<i64> = (0..n as i64).map(|i| t0 + i * q).collect();
+    let jittered: Vec<i64> = times
+        .iter()
+        .enumerate()
+        .map(|(i, t)| t + ((i * 7919) % 240_001) as i64 - 120_000)
+        .collect();
+    let settings = lagwise::GridSettings::builder(q).build().expect("settings");
+    group.throughput(Throughput::Elements(n as u64));
+    group.bench_function("listed_regular", |b| {
+        b.iter(|| lagwise::place_on_grid(black_box(&times), black_box(&values), &settings))
+    });
+    group.bench_function("evenly", |b| {
+        b.iter(|| lagwise::place_evenly(black_box(t0), q, black_box(&values), &settings))
+    });
+    group.bench_function("listed_jittered", |b| {
+        b.iter(|| lagwise::place_on_grid(black_box(&jittered), black_box(&values), &settings))
+    });
+    group.finish();
+}
+
+criterion_group!(benches, likelihood, fits, monitoring, smoothing, placement);
 criterion_main!(benches);

@@ -135,7 +135,7 @@ mod store;
 pub use base::error::{Error, ErrorKind, Result};
 pub use base::grid::{
     GridReport, GridSettings, GridSettingsBuilder, GriddedSeries, MAX_GRID_SLOTS, SlotRule,
-    TimeAxis, millis_from_seconds, place_on_grid,
+    TimeAxis, millis_from_seconds, place_evenly, place_on_grid,
 };
 pub use estimate::{StageRecord, StopReason};
 pub use filter::kalman::{exact_log_likelihood, reference_log_likelihood};

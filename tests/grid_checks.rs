@@ -3,7 +3,7 @@
 //! the invariances a historian export needs (input order does not matter; readings on the
 //! grid come back unchanged).
 
-use lagwise::{ErrorKind, GridSettings, SlotRule, TimeAxis, place_on_grid};
+use lagwise::{ErrorKind, GridSettings, SlotRule, TimeAxis, place_evenly, place_on_grid};
 use proptest::prelude::*;
 
 const Q: i64 = 15 * 60_000; // a quarter-hour in milliseconds
@@ -211,6 +211,57 @@ proptest! {
         }
     }
 
+    /// An even run given as first time, step and count places exactly as its listed
+    /// timestamps do (values bit for bit, axis, report, error text), whatever the step
+    /// (the cadence, off by a millisecond, half, double, zero, backwards), the offset from
+    /// the slots, the origin, the tolerance, the slot rule, empty readings and signed zeros.
+    #[test]
+    fn an_even_run_places_as_its_listed_times(
+        raw in proptest::collection::vec((-5.0f64..5.0, 0u8..10), 1..120),
+        step_ix in 0usize..7,
+        shift in -Q..Q,
+        origin_ix in 0usize..3,
+        tight in any::<bool>(),
+        rule_ix in 0usize..6,
+    ) {
+        let rule = [SlotRule::Mean, SlotRule::Median, SlotRule::Latest, SlotRule::Earliest,
+                    SlotRule::Smallest, SlotRule::Largest][rule_ix];
+        let step = [Q, Q, Q + 1, Q / 2, 2 * Q, 0, -Q][step_ix];
+        let values: Vec<f64> = raw
+            .iter()
+            .map(|&(v, k)| match k {
+                0 => f64::NAN,
+                1 => -0.0,
+                _ => v,
+            })
+            .collect();
+        let first = T0 + shift;
+        let times: Vec<i64> = (0..values.len() as i64).map(|i| first + i * step).collect();
+        let mut b = GridSettings::builder(Q);
+        b.slot_rule(rule);
+        if tight {
+            b.tolerance_ms(60_000);
+        }
+        match origin_ix {
+            1 => { b.origin_ms(T0 - 3 * Q); }
+            2 => { b.origin_ms(T0 + 5 * Q); }
+            _ => {}
+        }
+        let s = b.build().unwrap();
+        let listed = place_on_grid(&times, &values, &s);
+        let even = place_evenly(first, step, &values, &s);
+        match (listed, even) {
+            (Ok(a), Ok(b)) => {
+                let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+                prop_assert_eq!(bits(&a.values), bits(&b.values));
+                prop_assert_eq!(a.axis, b.axis);
+                prop_assert_eq!(a.report, b.report);
+            }
+            (Err(a), Err(b)) => prop_assert_eq!(a.to_string(), b.to_string()),
+            (a, b) => prop_assert!(false, "{:?} vs {:?}", a, b),
+        }
+    }
+
     /// Readings exactly on the grid come back unchanged.
     #[test]
     fn readings_on_the_grid_are_kept(values in proptest::collection::vec(-1e6f64..1e6, 1..200)) {
@@ -285,6 +336,21 @@ fn the_time_axis_travels_with_models_forecasts_and_monitors() {
 /// Regression (found by the grid fuzz target): readings near ±f64::MAX in one slot
 /// overflowed the mean (and would the median of two) to ±inf; the value must stay a
 /// finite number within the slot's readings.
+/// An even run whose later timestamps would pass the range of i64 is refused with a
+/// typed error that says so (a listed run cannot even be written down).
+#[test]
+fn an_even_run_past_the_time_range_is_refused() {
+    let s = GridSettings::builder(Q).build().unwrap();
+    let e = place_evenly(i64::MAX - 2 * Q, Q, &[1.0; 4], &s).unwrap_err();
+    assert!(matches!(e.kind(), ErrorKind::InvalidArgument { .. }), "{e}");
+    assert!(e.to_string().contains("past the range"), "{e}");
+    let e = place_evenly(T0, Q, &[], &s).unwrap_err();
+    assert!(matches!(e.kind(), ErrorKind::EmptySeries { .. }), "{e}");
+    // The last time exactly at the end of the range is fine.
+    let g = place_evenly(i64::MAX - 3 * Q, Q, &[1.0; 4], &s).unwrap();
+    assert_eq!(g.values, vec![1.0; 4]);
+}
+
 #[test]
 fn huge_readings_in_one_slot_stay_finite() {
     let big = f64::MAX;

@@ -261,50 +261,167 @@ pub fn place_on_grid(
     readings: &[f64],
     settings: &GridSettings,
 ) -> Result<GriddedSeries> {
-    const WHAT: &str = "grid";
     if times_ms.len() != readings.len() {
         return Err(Error::new(ErrorKind::LengthMismatch {
-            what: WHAT,
+            what: GRID,
             left_name: "timestamps",
             left: times_ms.len(),
             right_name: "readings",
             right: readings.len(),
         }));
     }
+    place(Stamps::Listed(times_ms), readings, settings)
+}
+
+/// [`place_on_grid`] for readings taken every `step_ms` milliseconds from `first_ms`
+/// (reading `i` at `first_ms + i·step_ms`), without a timestamp per reading: what a
+/// store that keeps an evenly stepped run as its first time, step and count hands over.
+/// Equal, bit for bit, to [`place_on_grid`] with those timestamps (tested), and as fast
+/// as copying the readings when the step is the cadence.
+///
+/// Errors: those of [`place_on_grid`], and timestamps that would run past the range of
+/// `i64`.
+///
+/// ```
+/// use lagwise::{GridSettings, place_evenly, place_on_grid};
+/// # fn main() -> Result<(), lagwise::Error> {
+/// let q = 15 * 60_000;
+/// let t0 = 1_767_225_600_000;
+/// let values = [50.0, f64::NAN, 51.0, 52.5];
+/// let settings = GridSettings::builder(q).build()?;
+/// let grid = place_evenly(t0, q, &values, &settings)?;
+/// let times: Vec<i64> = (0..4).map(|i| t0 + i * q).collect();
+/// let listed = place_on_grid(&times, &values, &settings)?;
+/// assert_eq!((grid.axis, grid.report), (listed.axis, listed.report));
+/// let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+/// assert_eq!(bits(&grid.values), bits(&listed.values));
+/// assert_eq!(grid.report.missing_slots, 1);
+/// # Ok(()) }
+/// ```
+pub fn place_evenly(
+    first_ms: i64,
+    step_ms: i64,
+    readings: &[f64],
+    settings: &GridSettings,
+) -> Result<GriddedSeries> {
+    let last = i64::try_from(readings.len().saturating_sub(1))
+        .ok()
+        .and_then(|k| step_ms.checked_mul(k))
+        .and_then(|d| first_ms.checked_add(d));
+    if last.is_none() {
+        return Err(Error::invalid(
+            GRID,
+            format!(
+                "{} readings every {step_ms} ms from {first_ms} run past the range of \
+                 epoch milliseconds",
+                readings.len()
+            ),
+        ));
+    }
+    place(
+        Stamps::Stepped {
+            first: first_ms,
+            step: step_ms,
+        },
+        readings,
+        settings,
+    )
+}
+
+const GRID: &str = "grid";
+
+/// The readings' timestamps: one per reading, or an even run (`first + i·step`, every
+/// one of them within `i64`: the caller checks).
+#[derive(Debug, Clone, Copy)]
+enum Stamps<'a> {
+    Listed(&'a [i64]),
+    Stepped { first: i64, step: i64 },
+}
+
+impl Stamps<'_> {
+    fn at(&self, i: usize) -> i64 {
+        match *self {
+            Stamps::Listed(t) => t[i],
+            Stamps::Stepped { first, step } => first + step * i as i64,
+        }
+    }
+
+    /// Readings earlier in time than the one before them.
+    fn out_of_order(&self, n: usize) -> usize {
+        match *self {
+            Stamps::Listed(t) => t.windows(2).filter(|w| w[1] < w[0]).count(),
+            Stamps::Stepped { step, .. } if step < 0 => n.saturating_sub(1),
+            Stamps::Stepped { .. } => 0,
+        }
+    }
+
+    /// Whether each time is the one before plus `cadence`.
+    fn one_cadence_apart(&self, cadence: i64) -> bool {
+        match *self {
+            Stamps::Listed(t) => t
+                .windows(2)
+                .all(|w| w[0].checked_add(cadence) == Some(w[1])),
+            Stamps::Stepped { step, .. } => step == cadence,
+        }
+    }
+
+    /// The earliest time of a reading with a value (`None` when all are NaN).
+    fn first_with_value(&self, readings: &[f64]) -> Option<i64> {
+        let with_value = |v: &f64| !v.is_nan();
+        match *self {
+            Stamps::Listed(t) => t
+                .iter()
+                .zip(readings)
+                .filter(|(_, v)| with_value(v))
+                .map(|(t, _)| *t)
+                .min(),
+            Stamps::Stepped { step, .. } if step < 0 => {
+                readings.iter().rposition(with_value).map(|i| self.at(i))
+            }
+            Stamps::Stepped { .. } => readings.iter().position(with_value).map(|i| self.at(i)),
+        }
+    }
+}
+
+/// [`place_on_grid`] and [`place_evenly`] after their own checks.
+fn place(stamps: Stamps<'_>, readings: &[f64], settings: &GridSettings) -> Result<GriddedSeries> {
     if readings.is_empty() {
-        return Err(Error::new(ErrorKind::EmptySeries { what: WHAT }));
+        return Err(Error::new(ErrorKind::EmptySeries { what: GRID }));
     }
     if let Some(index) = readings.iter().position(|v| v.is_infinite()) {
         return Err(Error::new(ErrorKind::NonFiniteReading {
-            what: WHAT,
+            what: GRID,
             index,
             value: readings[index],
         }));
     }
     let cadence = settings.cadence_ms;
+    // Listed times one cadence apart are an even run: checked once here, every later
+    // question about them is answered without another pass.
+    let stamps = match stamps {
+        Stamps::Listed(t) if t.len() > 1 && stamps.one_cadence_apart(cadence) => Stamps::Stepped {
+            first: t[0],
+            step: cadence,
+        },
+        other => other,
+    };
     let tolerance = settings.tolerance_ms.unwrap_or(cadence / 2);
     let mut report = GridReport {
         readings: readings.len(),
         ..GridReport::default()
     };
-    report.out_of_order = times_ms.windows(2).filter(|w| w[1] < w[0]).count();
+    report.out_of_order = stamps.out_of_order(readings.len());
     // Slots are taken relative to an axis at the epoch-aligned origin first, so that the
     // default origin (the first occupied slot) needs no second pass.
     let origin = match settings.origin_ms {
         Some(o) => o,
         None => {
-            let first = times_ms
-                .iter()
-                .zip(readings)
-                .filter(|(_, v)| !v.is_nan())
-                .map(|(t, _)| *t)
-                .min()
-                .ok_or_else(|| {
-                    Error::new(ErrorKind::AllMissing {
-                        what: WHAT,
-                        length: readings.len(),
-                    })
-                })?;
+            let first = stamps.first_with_value(readings).ok_or_else(|| {
+                Error::new(ErrorKind::AllMissing {
+                    what: GRID,
+                    length: readings.len(),
+                })
+            })?;
             // The slot nearest to the first reading, on the epoch-aligned grid.
             let aligned = TimeAxis::new(0, cadence)?;
             match aligned.nearest_slot(first) {
@@ -315,21 +432,27 @@ pub fn place_on_grid(
         }
     };
     let axis = TimeAxis::new(origin, cadence)?;
-    if let Some(regular) = place_regular(times_ms, readings, settings, axis, tolerance, report) {
+    if let Some(regular) = place_regular(stamps, readings, settings, axis, tolerance, report) {
         return Ok(regular);
     }
-    place_general(times_ms, readings, settings, axis, tolerance, report)
+    match stamps {
+        Stamps::Listed(times) => place_general(times, readings, settings, axis, tolerance, report),
+        Stamps::Stepped { .. } => {
+            let times: Vec<i64> = (0..readings.len()).map(|i| stamps.at(i)).collect();
+            place_general(&times, readings, settings, axis, tolerance, report)
+        }
+    }
 }
 
 /// Readings exactly one cadence apart, in time order (what a historian export of a
 /// healthy sensor holds): reading i falls in slot k + (i − i₀), where k is the slot of
 /// the first reading i₀ with a value, at that reading's offset (slots are
-/// shift-invariant), so the readings are written straight into the grid — no
+/// shift-invariant), so the readings are copied straight into the grid — no
 /// placement list, no sort. `None` when the readings are not like that, or start off the
 /// grid or before the origin, or span too many slots: [`place_general`] then places
 /// them and reports what it finds. Equal, bit for bit, to [`place_general`] (tested).
 fn place_regular(
-    times_ms: &[i64],
+    stamps: Stamps<'_>,
     readings: &[f64],
     settings: &GridSettings,
     axis: TimeAxis,
@@ -337,15 +460,12 @@ fn place_regular(
     mut report: GridReport,
 ) -> Option<GriddedSeries> {
     let cadence = settings.cadence_ms;
-    if !times_ms
-        .windows(2)
-        .all(|w| w[0].checked_add(cadence) == Some(w[1]))
-    {
+    if !stamps.one_cadence_apart(cadence) {
         return None;
     }
     // Empty readings are never placed: slots count from the first reading with a value.
     let i0 = readings.iter().position(|v| !v.is_nan())?;
-    let (first, offset) = axis.nearest_slot(times_ms[i0])?;
+    let (first, offset) = axis.nearest_slot(stamps.at(i0))?;
     if offset.abs() > tolerance {
         return None;
     }
@@ -362,19 +482,21 @@ fn place_regular(
     }
     let axis = TimeAxis::new(axis.time_of(start)?, cadence).ok()?;
     // One reading per slot, and every slot rule gives a lone reading back unchanged (the
-    // mean of one reading is the reading, signed zeros included): the values are written
-    // as they are (the test below holds this against the rules themselves).
-    let mut values = vec![f64::NAN; span as usize];
-    let offset = (first - start) as usize;
-    for (i, &v) in readings.iter().enumerate().skip(i0) {
-        if v.is_nan() {
-            report.empty_readings += 1;
-        } else {
-            values[offset + (i - i0)] = v;
-        }
-    }
-    report.empty_readings += i0;
-    report.missing_slots = values.iter().filter(|v| v.is_nan()).count();
+    // mean of one reading is the reading, signed zeros included): the values are copied
+    // as they are, empty ones as the grid's own NaN (the test below holds this against
+    // the rules themselves).
+    let inside = &readings[i0..=last_index];
+    let lead = (first - start) as usize;
+    let mut values = Vec::with_capacity(span as usize);
+    values.resize(lead, f64::NAN);
+    values.extend(
+        inside
+            .iter()
+            .map(|&v| if v.is_nan() { f64::NAN } else { v }),
+    );
+    let empty_inside = inside.iter().filter(|v| v.is_nan()).count();
+    report.empty_readings = readings.len() - (inside.len() - empty_inside);
+    report.missing_slots = lead + empty_inside;
     Some(GriddedSeries {
         axis,
         values,
@@ -392,7 +514,7 @@ fn place_general(
     tolerance: i64,
     mut report: GridReport,
 ) -> Result<GriddedSeries> {
-    const WHAT: &str = "grid";
+    const WHAT: &str = GRID;
     let cadence = settings.cadence_ms;
     // (slot, time, input position, value) of every kept reading, sorted by slot and time.
     let mut placed: Vec<(u64, i64, usize, f64)> = Vec::with_capacity(readings.len());
@@ -592,7 +714,15 @@ mod tests {
                 let axis = TimeAxis::new(origin_ms, q).unwrap();
                 let tolerance = q / 2;
                 assert!(
-                    place_regular(&times, &values, &settings, axis, tolerance, report).is_some(),
+                    place_regular(
+                        Stamps::Listed(&times),
+                        &values,
+                        &settings,
+                        axis,
+                        tolerance,
+                        report
+                    )
+                    .is_some(),
                     "case {case}: the direct route was not taken"
                 );
                 taken += 1;
@@ -614,10 +744,30 @@ mod tests {
         times[4] += 1;
         let values = vec![1.0; 10];
         let report = GridReport::default();
-        assert!(place_regular(&times, &values, &settings, axis, q / 2, report).is_none());
+        assert!(
+            place_regular(
+                Stamps::Listed(&times),
+                &values,
+                &settings,
+                axis,
+                q / 2,
+                report
+            )
+            .is_none()
+        );
         times[4] = t0 + 5 * q;
         times[5] = t0 + 4 * q;
-        assert!(place_regular(&times, &values, &settings, axis, q / 2, report).is_none());
+        assert!(
+            place_regular(
+                Stamps::Listed(&times),
+                &values,
+                &settings,
+                axis,
+                q / 2,
+                report
+            )
+            .is_none()
+        );
         assert_eq!(
             place_on_grid(&times, &values, &settings)
                 .unwrap()
