@@ -70,7 +70,7 @@
 //!
 //! | step | items |
 //! |---|---|
-//! | put readings on a grid | [`place_on_grid`], [`GridSettings`], [`SlotRule`], [`TimeAxis`], [`GriddedSeries`], [`millis_from_seconds`] |
+//! | put readings on a grid | [`place_on_grid`], [`place_evenly`], [`GridSettings`], [`SlotRule`], [`TimeAxis`], [`GriddedSeries`], [`millis_from_seconds`] |
 //! | look at a series | [`Correlogram`], [`LagValues`], [`BandRule`], [`CrossCorrelogram`], [`PortmanteauScan`], [`augmented_dickey_fuller`], [`kpss`], [`seasonal_strength`], [`find_stuck_runs`] |
 //! | say which model | [`Blueprint`], [`BlueprintBuilder`], [`Term`], [`Estimator`], [`Cycle`] (long cycles by harmonic terms) |
 //! | lag polynomials | [`inverse_roots`] (conventions), [`is_stationary`], [`is_invertible`], [`psi_weights`], [`pi_weights`], [`multiply`], [`step_down`] |
