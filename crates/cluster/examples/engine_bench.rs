@@ -47,6 +47,14 @@ fn main() -> Result<(), Failure> {
     let series = args.first().copied().unwrap_or(100_000);
     let readings = args.get(1).copied().unwrap_or(1_000);
     let threads = args.get(2).copied().unwrap_or(2);
+    // `ENGINE_BENCH_ONLY=bucket,cluster` runs the fleet and the stages named (rows, flat,
+    // bucket, cluster); by default all of them. `ENGINE_BENCH_PLAN` prints the bucket
+    // query's plan.
+    let only = std::env::var("ENGINE_BENCH_ONLY").ok();
+    let wanted = |stage: &str| {
+        only.as_deref()
+            .is_none_or(|o| o.split(',').any(|s| s.trim() == stage))
+    };
     let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../target/engine-bench");
     println!(
         "{series} series × {readings} readings, AR(1) + mean by exact likelihood, {threads} threads"
@@ -75,6 +83,9 @@ fn main() -> Result<(), Failure> {
     let sql = format!(
         "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE_MS})['sigma2'] AS sigma2 FROM readings GROUP BY tag"
     );
+    let bucket_sql = format!(
+        "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE_MS})['sigma2'] AS sigma2 FROM by_bucket GROUP BY bucket, tag"
+    );
 
     // 1. The fleet on the slices.
     let fleet = Fleet::builder().threads(threads).build()?;
@@ -88,13 +99,15 @@ fn main() -> Result<(), Failure> {
 
     // 1b. What `lw_fit` does for each tag, without any engine: the readings placed on
     // the grid, the fit, the full residual check, the criteria and the stored model text.
-    let t = Instant::now();
-    row_work(&bp, &data, threads)?;
-    let row_s = t.elapsed().as_secs_f64();
-    println!(
-        "  (lw_fit's work per tag without an engine: {row_s:.2} s, {:.2}× the fleet)",
-        row_s / fleet_s
-    );
+    if wanted("rows") {
+        let t = Instant::now();
+        row_work(&bp, &data, threads)?;
+        let row_s = t.elapsed().as_secs_f64();
+        println!(
+            "  (lw_fit's work per tag without an engine: {row_s:.2} s, {:.2}× the fleet)",
+            row_s / fleet_s
+        );
+    }
 
     // 2. DataFusion in this process.
     let runtime = tokio::runtime::Builder::new_multi_thread()
@@ -102,144 +115,156 @@ fn main() -> Result<(), Failure> {
         .enable_all()
         .build()?;
     let config = SessionConfig::new().with_target_partitions(threads);
-    let ctx = SessionContext::new_with_config(config.clone());
-    lagwise_sql::register(&ctx);
-    let (rows, in_process_s, floor_s) = runtime.block_on(async {
-        ctx.register_parquet("readings", path_text(&dir)?, ParquetReadOptions::default())
-            .await?;
-        // The engine's own floor: reading the files and grouping the rows by tag.
-        let t = Instant::now();
-        ctx.sql("SELECT tag, count(value) FROM readings GROUP BY tag")
-            .await?
-            .collect()
-            .await?;
-        let floor_s = t.elapsed().as_secs_f64();
-        let t = Instant::now();
-        let out = ctx.sql(&sql).await?.collect().await?;
-        Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64(), floor_s))
-    })?;
-    assert_eq!(rows, series);
-    println!("  (the engine alone, count per tag: {floor_s:.2} s)");
-    println!(
-        "DataFusion in process:           {in_process_s:8.2} s  ({:+.1}% against the fleet)",
-        100.0 * (in_process_s / fleet_s - 1.0)
-    );
-    drop(ctx);
+    if wanted("flat") {
+        let ctx = SessionContext::new_with_config(config.clone());
+        lagwise_sql::register(&ctx);
+        let (rows, in_process_s, floor_s) = runtime.block_on(async {
+            ctx.register_parquet("readings", path_text(&dir)?, ParquetReadOptions::default())
+                .await?;
+            // The engine's own floor: reading the files and grouping the rows by tag.
+            let t = Instant::now();
+            ctx.sql("SELECT tag, count(value) FROM readings GROUP BY tag")
+                .await?
+                .collect()
+                .await?;
+            let floor_s = t.elapsed().as_secs_f64();
+            let t = Instant::now();
+            let out = ctx.sql(&sql).await?.collect().await?;
+            Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64(), floor_s))
+        })?;
+        assert_eq!(rows, series);
+        println!("  (the engine alone, count per tag: {floor_s:.2} s)");
+        println!(
+            "DataFusion in process:           {in_process_s:8.2} s  ({:+.1}% against the fleet)",
+            100.0 * (in_process_s / fleet_s - 1.0)
+        );
+        drop(ctx);
+    }
 
     // 2b. The same readings laid out one tag bucket per directory (`bucket=NN/`, Hive
     // style), the engine told to keep those file partitions: grouping by (bucket, tag)
     // then needs no shuffle, and the aggregate runs in one phase where the rows are read.
     // (Tried: one partition per bucket file with the files' order (tag, time) declared,
     // so that the aggregate emits each tag as the next starts: 18.7 s against 14.3 s.)
-    let mut bucket_config = SessionConfig::new().with_target_partitions(threads);
-    keep_file_partitions(&mut bucket_config);
-    let ctx = SessionContext::new_with_config(bucket_config);
-    lagwise_sql::register(&ctx);
-    let bucket_sql = format!(
-        "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE_MS})['sigma2'] AS sigma2 FROM by_bucket GROUP BY bucket, tag"
-    );
-    let (rows, bucket_s, plan) = runtime.block_on(async {
-        let options = ParquetReadOptions::default()
-            .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
-        ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
-            .await?;
-        let explained = ctx
-            .sql(&format!("EXPLAIN {bucket_sql}"))
-            .await?
-            .collect()
-            .await?;
-        let plan = datafusion::arrow::util::pretty::pretty_format_batches(&explained)?.to_string();
-        let t = Instant::now();
-        let out = ctx.sql(&bucket_sql).await?.collect().await?;
-        Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64(), plan))
-    })?;
-    assert_eq!(rows, series);
-    let single = plan.contains("SinglePartitioned") && !plan.contains("RepartitionExec");
-    if std::env::var_os("ENGINE_BENCH_PLAN").is_some() {
-        println!("{plan}");
-    }
-    println!(
-        "DataFusion, files by tag bucket: {bucket_s:8.2} s  ({:+.1}% against the fleet; one-phase aggregate without a shuffle: {single})",
-        100.0 * (bucket_s / fleet_s - 1.0)
-    );
-    drop(ctx);
-
-    // 3. A Ballista cluster on loopback: a scheduler and two executors with
-    // `threads / 2` slots each (at least one), so the cluster uses the same cores.
-    let node = std::env::current_exe()?
-        .parent()
-        .and_then(Path::parent)
-        .map(|p| p.join("lagwise-node"))
-        .ok_or("cannot locate lagwise-node")?;
-    let slots = (threads / 2).max(1).to_string();
-    let (scheduler, line) = start(&node, &["scheduler", "--ready-executors", "2"])?;
-    let address = line
-        .strip_prefix("scheduler listening on ")
-        .ok_or("unexpected scheduler output")?
-        .to_string();
-    let mut executors = Vec::new();
-    for _ in 0..2 {
-        executors.push(
-            start(
-                &node,
-                &["executor", "--scheduler", &address, "--slots", &slots],
-            )?
-            .0,
-        );
-    }
-    let mut nodes = Nodes(vec![scheduler]);
-    nodes.0.extend(executors);
-    std::thread::sleep(Duration::from_secs(3));
-    let cluster_s = runtime.block_on(async {
-        let ctx = lagwise_cluster::connect_with(
-            &format!("df://{address}"),
-            config.clone().with_target_partitions(2 * FILES),
-        )
-        .await?;
-        ctx.register_parquet("readings", path_text(&dir)?, ParquetReadOptions::default())
-            .await?;
-        let t = Instant::now();
-        let out = lagwise_cluster::collect(&ctx, &sql).await?;
-        let s = t.elapsed().as_secs_f64();
-        assert_eq!(row_count(&out), series);
-        Ok::<_, Failure>(s)
-    })?;
-    println!(
-        "Ballista, 2 executors × {slots} slots: {cluster_s:8.2} s  ({:+.1}% against the fleet)",
-        100.0 * (cluster_s / fleet_s - 1.0)
-    );
-    // The bucket layout on the cluster (the same option travels with the session).
-    let bucketed = runtime.block_on(async {
-        let mut config = config.with_target_partitions(2 * FILES);
-        keep_file_partitions(&mut config);
-        let ctx = lagwise_cluster::connect_with(&format!("df://{address}"), config).await?;
-        let options = ParquetReadOptions::default()
-            .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
-        ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
-            .await?;
-        let t = Instant::now();
-        let out = lagwise_cluster::collect(&ctx, &bucket_sql).await?;
-        let s = t.elapsed().as_secs_f64();
-        assert_eq!(row_count(&out), series);
-        Ok::<_, Failure>(s)
-    });
-    match bucketed {
-        Ok(s) => println!(
-            "Ballista, files by tag bucket:   {s:8.2} s  ({:+.1}% against the fleet)",
-            100.0 * (s / fleet_s - 1.0)
-        ),
-        Err(e) => println!("Ballista, files by tag bucket: failed: {e}"),
-    }
-    for (k, child) in nodes.0.iter().enumerate().skip(1) {
+    if wanted("bucket") {
+        let mut bucket_config = SessionConfig::new().with_target_partitions(threads);
+        keep_file_partitions(&mut bucket_config);
+        let ctx = SessionContext::new_with_config(bucket_config);
+        lagwise_sql::register(&ctx);
+        let (rows, bucket_s, plan) = runtime.block_on(async {
+            let options = ParquetReadOptions::default()
+                .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
+            ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
+                .await?;
+            let explained = ctx
+                .sql(&format!("EXPLAIN {bucket_sql}"))
+                .await?
+                .collect()
+                .await?;
+            let plan =
+                datafusion::arrow::util::pretty::pretty_format_batches(&explained)?.to_string();
+            // The engine's floor here: reading every column and grouping the rows.
+            let t = Instant::now();
+            ctx.sql("SELECT tag, max(ts), count(value) FROM by_bucket GROUP BY bucket, tag")
+                .await?
+                .collect()
+                .await?;
+            let floor_s = t.elapsed().as_secs_f64();
+            println!("  (the engine alone, latest time and count per tag: {floor_s:.2} s)");
+            let t = Instant::now();
+            let out = ctx.sql(&bucket_sql).await?.collect().await?;
+            Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64(), plan))
+        })?;
+        assert_eq!(rows, series);
+        let single = plan.contains("SinglePartitioned") && !plan.contains("RepartitionExec");
+        if std::env::var_os("ENGINE_BENCH_PLAN").is_some() {
+            println!("{plan}");
+        }
         println!(
-            "  executor {k}: peak resident memory {:.0} MB",
-            peak_mb(child.id()).unwrap_or(f64::NAN)
+            "DataFusion, files by tag bucket: {bucket_s:8.2} s  ({:+.1}% against the fleet; one-phase aggregate without a shuffle: {single})",
+            100.0 * (bucket_s / fleet_s - 1.0)
+        );
+        drop(ctx);
+    }
+
+    if wanted("cluster") {
+        // 3. A Ballista cluster on loopback: a scheduler and two executors with
+        // `threads / 2` slots each (at least one), so the cluster uses the same cores.
+        let node = std::env::current_exe()?
+            .parent()
+            .and_then(Path::parent)
+            .map(|p| p.join("lagwise-node"))
+            .ok_or("cannot locate lagwise-node")?;
+        let slots = (threads / 2).max(1).to_string();
+        let (scheduler, line) = start(&node, &["scheduler", "--ready-executors", "2"])?;
+        let address = line
+            .strip_prefix("scheduler listening on ")
+            .ok_or("unexpected scheduler output")?
+            .to_string();
+        let mut executors = Vec::new();
+        for _ in 0..2 {
+            executors.push(
+                start(
+                    &node,
+                    &["executor", "--scheduler", &address, "--slots", &slots],
+                )?
+                .0,
+            );
+        }
+        let mut nodes = Nodes(vec![scheduler]);
+        nodes.0.extend(executors);
+        std::thread::sleep(Duration::from_secs(3));
+        let cluster_s = runtime.block_on(async {
+            let ctx = lagwise_cluster::connect_with(
+                &format!("df://{address}"),
+                config.clone().with_target_partitions(2 * FILES),
+            )
+            .await?;
+            ctx.register_parquet("readings", path_text(&dir)?, ParquetReadOptions::default())
+                .await?;
+            let t = Instant::now();
+            let out = lagwise_cluster::collect(&ctx, &sql).await?;
+            let s = t.elapsed().as_secs_f64();
+            assert_eq!(row_count(&out), series);
+            Ok::<_, Failure>(s)
+        })?;
+        println!(
+            "Ballista, 2 executors × {slots} slots: {cluster_s:8.2} s  ({:+.1}% against the fleet)",
+            100.0 * (cluster_s / fleet_s - 1.0)
+        );
+        // The bucket layout on the cluster (the same option travels with the session).
+        let bucketed = runtime.block_on(async {
+            let mut config = config.with_target_partitions(2 * FILES);
+            keep_file_partitions(&mut config);
+            let ctx = lagwise_cluster::connect_with(&format!("df://{address}"), config).await?;
+            let options = ParquetReadOptions::default()
+                .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
+            ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
+                .await?;
+            let t = Instant::now();
+            let out = lagwise_cluster::collect(&ctx, &bucket_sql).await?;
+            let s = t.elapsed().as_secs_f64();
+            assert_eq!(row_count(&out), series);
+            Ok::<_, Failure>(s)
+        });
+        match bucketed {
+            Ok(s) => println!(
+                "Ballista, files by tag bucket:   {s:8.2} s  ({:+.1}% against the fleet)",
+                100.0 * (s / fleet_s - 1.0)
+            ),
+            Err(e) => println!("Ballista, files by tag bucket: failed: {e}"),
+        }
+        for (k, child) in nodes.0.iter().enumerate().skip(1) {
+            println!(
+                "  executor {k}: peak resident memory {:.0} MB",
+                peak_mb(child.id()).unwrap_or(f64::NAN)
+            );
+        }
+        println!(
+            "  scheduler:  peak resident memory {:.0} MB",
+            peak_mb(nodes.0[0].id()).unwrap_or(f64::NAN)
         );
     }
-    println!(
-        "  scheduler:  peak resident memory {:.0} MB",
-        peak_mb(nodes.0[0].id()).unwrap_or(f64::NAN)
-    );
     Ok(())
 }
 

@@ -32,20 +32,22 @@
 use std::hash::Hash;
 use std::sync::Arc;
 
+use datafusion::arrow::array::RecordBatch;
 use datafusion::arrow::array::{
     Array, ArrayRef, AsArray, BooleanBuilder, Float64Builder, Int64Builder, ListBuilder,
     StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
 };
 use datafusion::arrow::datatypes::{
-    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, TimeUnit, TimestampMillisecondType,
+    DataType, Field, FieldRef, Fields, Float64Type, Int64Type, Schema, TimeUnit,
+    TimestampMillisecondType,
 };
 use datafusion::common::utils::SingleRowListArrayBuilder;
 use datafusion::common::{DataFusionError, Result, ScalarValue, exec_err, plan_err};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::function::{PartitionEvaluatorArgs, WindowUDFFieldArgs};
 use datafusion::logical_expr::{
-    Accumulator, AggregateUDF, AggregateUDFImpl, EmitTo, GroupsAccumulator, PartitionEvaluator,
-    Signature, Volatility, WindowUDF, WindowUDFImpl,
+    Accumulator, AggregateUDF, AggregateUDFImpl, ColumnarValue, EmitTo, GroupsAccumulator,
+    PartitionEvaluator, Signature, Volatility, WindowUDF, WindowUDFImpl,
 };
 use datafusion::physical_expr::expressions::Literal;
 use datafusion::prelude::SessionContext;
@@ -122,6 +124,15 @@ impl Job {
             Job::Ahead => &["blueprint", "cadence_ms", "horizon", "levels"],
         }
     }
+}
+
+/// The type a setting is taken as: a one-entry dictionary of `value`. The engine turns
+/// every argument of an aggregate into a column for each batch of rows it reads; a plain
+/// text constant is copied into every row (the blueprint's JSON: megabytes per batch,
+/// most of the cost of reading a table), a dictionary constant is one value and a shared
+/// key column.
+fn constant_type(value: DataType) -> DataType {
+    DataType::Dictionary(Box::new(DataType::Int32), Box::new(value))
 }
 
 /// Nullable fields from (name, type) pairs.
@@ -265,15 +276,20 @@ impl AggregateUDFImpl for SeriesFunction {
         let mut out = vec![ts, DataType::Float64];
         for (name, t) in names.iter().zip(&arg_types[2..]) {
             out.push(match *name {
-                "blueprint" | "levels" | "cycles" => DataType::Utf8,
+                "blueprint" | "levels" | "cycles" => constant_type(DataType::Utf8),
                 "cadence_ms" | "horizon" | "period" => {
-                    if !t.is_integer() {
+                    // (Coercion runs again on coerced types: a dictionary of integers.)
+                    let value = match t {
+                        DataType::Dictionary(_, v) => v.as_ref(),
+                        t => t,
+                    };
+                    if !value.is_integer() {
                         return plan_err!(
                             "{}: {name} must be an integer, not {t}",
                             self.job.name()
                         );
                     }
-                    DataType::Int64
+                    constant_type(DataType::Int64)
                 }
                 _ => t.clone(),
             });
@@ -291,7 +307,7 @@ impl AggregateUDFImpl for SeriesFunction {
         let task = Task::from_literals(self.job, acc_args.exprs)?;
         Ok(Box::new(SeriesAccumulator {
             task,
-            times: Vec::new(),
+            times: GroupTimes::default(),
             values: Vec::new(),
         }))
     }
@@ -369,9 +385,22 @@ impl Task {
         let Some(names) = job.named(exprs.len()) else {
             return plan_err!("{}: expected arguments {}", job.name(), job.call());
         };
-        let literal = |i: usize| -> Result<&ScalarValue> {
-            match exprs[i].downcast_ref::<Literal>() {
-                Some(l) => Ok(l.value()),
+        // A constant: a literal, or an expression of literals (a cast the planner has not
+        // folded), evaluated without rows; a dictionary constant gives its one value.
+        let literal = |i: usize| -> Result<ScalarValue> {
+            let value = match exprs[i].downcast_ref::<Literal>() {
+                Some(l) => Some(l.value().clone()),
+                None => {
+                    let no_rows = RecordBatch::new_empty(Arc::new(Schema::empty()));
+                    match exprs[i].evaluate(&no_rows) {
+                        Ok(ColumnarValue::Scalar(v)) => Some(v),
+                        _ => None,
+                    }
+                }
+            };
+            match value {
+                Some(ScalarValue::Dictionary(_, v)) => Ok(*v),
+                Some(v) => Ok(v),
                 None => plan_err!(
                     "{}: {} must be a constant (executors read settings from the query)",
                     job.name(),
@@ -383,13 +412,13 @@ impl Task {
             match literal(i)? {
                 ScalarValue::Utf8(Some(s))
                 | ScalarValue::LargeUtf8(Some(s))
-                | ScalarValue::Utf8View(Some(s)) => Ok(s.clone()),
+                | ScalarValue::Utf8View(Some(s)) => Ok(s),
                 other => plan_err!("{}: {} must be text, got {other}", job.name(), names[i - 2]),
             }
         };
         let integer = |i: usize| -> Result<i64> {
             match literal(i)? {
-                ScalarValue::Int64(Some(v)) => Ok(*v),
+                ScalarValue::Int64(Some(v)) => Ok(v),
                 other => other
                     .cast_to(&DataType::Int64)
                     .ok()
@@ -493,7 +522,7 @@ impl Task {
 struct SeriesAccumulator {
     task: Task,
     /// Epoch milliseconds.
-    times: Vec<i64>,
+    times: GroupTimes,
     /// NaN = missing.
     values: Vec<f64>,
 }
@@ -552,7 +581,7 @@ impl Accumulator for SeriesAccumulator {
         if times.len() != readings.len() {
             return exec_err!("{what}: time and value columns differ in length");
         }
-        self.times.extend_from_slice(&times);
+        self.times.extend(&times);
         self.values.extend_from_slice(&readings);
         Ok(())
     }
@@ -564,7 +593,7 @@ impl Accumulator for SeriesAccumulator {
                 continue;
             }
             self.times
-                .extend_from_slice(times.value(row).as_primitive::<Int64Type>().values());
+                .extend(times.value(row).as_primitive::<Int64Type>().values());
             let v = values.value(row);
             self.values.extend_from_slice(&readings_of(&v)?);
         }
@@ -572,9 +601,8 @@ impl Accumulator for SeriesAccumulator {
     }
 
     fn state(&mut self) -> Result<Vec<ScalarValue>> {
-        let times: ArrayRef = Arc::new(datafusion::arrow::array::Int64Array::from(std::mem::take(
-            &mut self.times,
-        )));
+        let times = std::mem::take(&mut self.times).into_vec();
+        let times: ArrayRef = Arc::new(datafusion::arrow::array::Int64Array::from(times));
         let values: ArrayRef = Arc::new(datafusion::arrow::array::Float64Array::from(
             std::mem::take(&mut self.values),
         ));
@@ -592,7 +620,7 @@ impl Accumulator for SeriesAccumulator {
 
     fn size(&self) -> usize {
         std::mem::size_of_val(self)
-            + self.times.capacity() * std::mem::size_of::<i64>()
+            + self.times.heap_bytes()
             + self.values.capacity() * std::mem::size_of::<f64>()
             + self.task.levels.capacity() * std::mem::size_of::<f64>()
     }
@@ -697,6 +725,18 @@ impl GroupTimes {
         }
         if let GroupTimes::Listed(v) = self {
             v.extend_from_slice(times);
+        }
+    }
+
+    /// The times, one per reading.
+    fn into_vec(self) -> Vec<i64> {
+        match self {
+            GroupTimes::Listed(v) => v,
+            even => {
+                let mut buffer = Vec::with_capacity(even.len());
+                even.as_slice(&mut buffer);
+                buffer
+            }
         }
     }
 
@@ -838,11 +878,7 @@ impl GroupsAccumulator for SeriesGroups {
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
         let (times, values) = self.take(emit_to);
         let task = &self.task;
-        let mut buffer = Vec::new();
-        let outcomes = times
-            .iter()
-            .zip(&values)
-            .map(|(t, v)| run(task, t.as_slice(&mut buffer), v));
+        let outcomes = times.iter().zip(&values).map(|(t, v)| run(task, t, v));
         Ok(Arc::new(result_rows(task, outcomes)))
     }
 
@@ -907,11 +943,16 @@ thread_local! {
         std::cell::RefCell::new(lagwise::FitWorkspace::new());
 }
 
-fn run(task: &Task, times: &[i64], values: &[f64]) -> std::result::Result<Outcome, String> {
-    if times.is_empty() {
-        return Err("the group has no readings".into());
+fn run(task: &Task, times: &GroupTimes, values: &[f64]) -> std::result::Result<Outcome, String> {
+    let grid = match *times {
+        _ if times.len() == 0 => return Err("the group has no readings".into()),
+        // An even run goes onto the grid without a timestamp per reading.
+        GroupTimes::Even { first, step, .. } => {
+            lagwise::place_evenly(first, step, values, &task.grid)
+        }
+        GroupTimes::Listed(ref t) => lagwise::place_on_grid(t, values, &task.grid),
     }
-    let grid = lagwise::place_on_grid(times, values, &task.grid).map_err(|e| e.to_string())?;
+    .map_err(|e| e.to_string())?;
     let present = grid.values.iter().filter(|v| !v.is_nan()).count();
     let missing = grid.values.len() - present;
     let (model, note) = match (&task.blueprint, task.job) {
@@ -1332,8 +1373,9 @@ mod tests {
     use super::*;
     use datafusion::arrow::array::{Float64Array, Int64Array};
 
-    /// The memory the accumulator reports covers what it holds: 16 bytes per reading
-    /// (time and value) at least, and not more than twice that plus its fixed part.
+    /// The memory the accumulator reports covers what it holds: 8 bytes per reading for
+    /// evenly stepped times (the value; the times are first, step and count), 16 once
+    /// they break the pattern, and not more than twice that plus its fixed part.
     #[test]
     fn size_counts_the_readings_held() {
         let task = Task {
@@ -1346,17 +1388,25 @@ mod tests {
         };
         let mut acc = SeriesAccumulator {
             task,
-            times: Vec::new(),
+            times: GroupTimes::default(),
             values: Vec::new(),
         };
         let empty = acc.size();
         let n = 10_000;
         let times: ArrayRef = Arc::new(Int64Array::from_iter_values(0..n as i64));
         let values: ArrayRef = Arc::new(Float64Array::from_iter_values((0..n).map(|i| i as f64)));
+        acc.update_batch(&[times, values.clone()]).unwrap();
+        let held = acc.size() - empty;
+        assert!(held >= 8 * n, "{held}");
+        assert!(held <= 16 * n, "{held}");
+        // A repeated time: the times are listed from then on.
+        let times: ArrayRef = Arc::new(Int64Array::from_iter_values(
+            (0..n as i64).map(|i| n as i64 - 1 + i),
+        ));
         acc.update_batch(&[times, values]).unwrap();
         let held = acc.size() - empty;
-        assert!(held >= 16 * n, "{held}");
-        assert!(held <= 32 * n, "{held}");
+        assert!(held >= 16 * 2 * n, "{held}");
+        assert!(held <= 32 * 2 * n, "{held}");
         // The state hands the readings over and the accumulator shrinks back.
         let state = acc.state().unwrap();
         assert_eq!(state.len(), 2);
@@ -1435,6 +1485,60 @@ mod tests {
         let state = groups.state(EmitTo::All).unwrap();
         assert_eq!(state[0].len(), 2);
         assert_eq!(groups.bytes, 0);
+    }
+
+    /// Settings are taken as one-entry dictionaries (the engine then hands over one value
+    /// and a shared key column per batch instead of the text copied into every row), the
+    /// coercion gives the same types when run again on its own output, and settings
+    /// are read from a literal or a constant expression (a cast), never from a column.
+    #[test]
+    fn settings_travel_as_dictionary_constants() {
+        use datafusion::physical_expr::expressions::{CastExpr, Column};
+        let f = SeriesFunction::new(Job::Fit);
+        let ts = DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into()));
+        let given = [
+            ts.clone(),
+            DataType::Float64,
+            DataType::Utf8View,
+            DataType::Int32,
+        ];
+        let coerced = f.coerce_types(&given).unwrap();
+        assert_eq!(coerced[2], constant_type(DataType::Utf8));
+        assert_eq!(coerced[3], constant_type(DataType::Int64));
+        assert_eq!(f.coerce_types(&coerced).unwrap(), coerced);
+        let bad = [ts, DataType::Float64, DataType::Utf8, DataType::Float64];
+        assert!(f.coerce_types(&bad).is_err());
+
+        let json =
+            lagwise::blueprint_to_json(&Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap())
+                .unwrap();
+        let column: Arc<dyn datafusion::physical_expr::PhysicalExpr> =
+            Arc::new(Column::new("ts", 0));
+        let dictionary = ScalarValue::Dictionary(
+            Box::new(DataType::Int32),
+            Box::new(ScalarValue::Utf8(Some(json.clone()))),
+        );
+        let cadence: Arc<dyn datafusion::physical_expr::PhysicalExpr> = Arc::new(CastExpr::new(
+            Arc::new(Literal::new(ScalarValue::Int32(Some(900_000)))),
+            constant_type(DataType::Int64),
+            None,
+        ));
+        let exprs: Vec<Arc<dyn datafusion::physical_expr::PhysicalExpr>> = vec![
+            column.clone(),
+            column.clone(),
+            Arc::new(Literal::new(dictionary)),
+            cadence.clone(),
+        ];
+        let task = Task::from_literals(Job::Fit, &exprs).unwrap();
+        assert_eq!(task.grid, GridSettings::builder(900_000).build().unwrap());
+        assert!(task.blueprint.is_some());
+        // A setting read from a column is refused with a message that says why.
+        let exprs = vec![column.clone(), column.clone(), column, cadence];
+        let e = Task::from_literals(Job::Fit, &exprs).unwrap_err();
+        assert!(
+            e.to_string().contains("blueprint must be a constant"),
+            "{e}"
+        );
     }
 
     fn ar1_task() -> Task {
