@@ -49,7 +49,6 @@ use datafusion::logical_expr::{
     Accumulator, AggregateUDF, AggregateUDFImpl, ColumnarValue, EmitTo, GroupsAccumulator,
     PartitionEvaluator, Signature, Volatility, WindowUDF, WindowUDFImpl,
 };
-use datafusion::physical_expr::expressions::Literal;
 use datafusion::prelude::SessionContext;
 use lagwise::{Blueprint, FittedModel, GridSettings, SearchSettings};
 use std::borrow::Cow;
@@ -388,20 +387,11 @@ impl Task {
         // A constant: a literal, or an expression of literals (a cast the planner has not
         // folded), evaluated without rows; a dictionary constant gives its one value.
         let literal = |i: usize| -> Result<ScalarValue> {
-            let value = match exprs[i].downcast_ref::<Literal>() {
-                Some(l) => Some(l.value().clone()),
-                None => {
-                    let no_rows = RecordBatch::new_empty(Arc::new(Schema::empty()));
-                    match exprs[i].evaluate(&no_rows) {
-                        Ok(ColumnarValue::Scalar(v)) => Some(v),
-                        _ => None,
-                    }
-                }
-            };
-            match value {
-                Some(ScalarValue::Dictionary(_, v)) => Ok(*v),
-                Some(v) => Ok(v),
-                None => plan_err!(
+            let no_rows = RecordBatch::new_empty(Arc::new(Schema::empty()));
+            match exprs[i].evaluate(&no_rows) {
+                Ok(ColumnarValue::Scalar(ScalarValue::Dictionary(_, v))) => Ok(*v),
+                Ok(ColumnarValue::Scalar(v)) => Ok(v),
+                _ => plan_err!(
                     "{}: {} must be a constant (executors read settings from the query)",
                     job.name(),
                     names[i - 2]
@@ -1493,7 +1483,7 @@ mod tests {
     /// are read from a literal or a constant expression (a cast), never from a column.
     #[test]
     fn settings_travel_as_dictionary_constants() {
-        use datafusion::physical_expr::expressions::{CastExpr, Column};
+        use datafusion::physical_expr::expressions::{CastExpr, Column, Literal};
         let f = SeriesFunction::new(Job::Fit);
         let ts = DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into()));
         let given = [
@@ -1516,7 +1506,7 @@ mod tests {
             Arc::new(Column::new("ts", 0));
         let dictionary = ScalarValue::Dictionary(
             Box::new(DataType::Int32),
-            Box::new(ScalarValue::Utf8(Some(json.clone()))),
+            Box::new(ScalarValue::Utf8(Some(json))),
         );
         let cadence: Arc<dyn datafusion::physical_expr::PhysicalExpr> = Arc::new(CastExpr::new(
             Arc::new(Literal::new(ScalarValue::Int32(Some(900_000)))),
