@@ -5,7 +5,8 @@
 //!    BY tag` over a Parquet directory of the same readings (tag, timestamp, value; rows
 //!    in time order per file, each tag in one of 16 files), then the same files laid out
 //!    one per `bucket=NN/` directory and grouped by (bucket, tag) with the engine keeping
-//!    file partitions (`datafusion.optimizer.preserve_file_partitions`),
+//!    file partitions (`datafusion.optimizer.preserve_file_partitions`), and by bucket
+//!    alone with the by-tag function `lw_fit_by_tag`,
 //! 3. the same query on a Ballista cluster: a scheduler and two executors started here
 //!    from `lagwise-node` (next to this example's binary) as separate processes on
 //!    127.0.0.1, stopped at the end; their peak resident memory is read from /proc.
@@ -48,7 +49,7 @@ fn main() -> Result<(), Failure> {
     let readings = args.get(1).copied().unwrap_or(1_000);
     let threads = args.get(2).copied().unwrap_or(2);
     // `ENGINE_BENCH_ONLY=bucket,cluster` runs the fleet and the stages named (rows, flat,
-    // bucket, cluster); by default all of them. `ENGINE_BENCH_PLAN` prints the bucket
+    // bucket, tags, cluster); by default all of them. `ENGINE_BENCH_PLAN` prints the bucket
     // query's plan.
     let only = std::env::var("ENGINE_BENCH_ONLY").ok();
     let wanted = |stage: &str| {
@@ -86,15 +87,25 @@ fn main() -> Result<(), Failure> {
     let bucket_sql = format!(
         "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE_MS})['sigma2'] AS sigma2 FROM by_bucket GROUP BY bucket, tag"
     );
+    // The by-tag function: the engine groups by bucket only, the function splits each
+    // bucket's rows by tag.
+    let tags_sql = format!(
+        "SELECT f['tag'] AS tag, f['sigma2'] AS sigma2 FROM (
+           SELECT unnest(lw_fit_by_tag(tag, ts, value, '{json}', {CADENCE_MS})) AS f
+           FROM by_bucket GROUP BY bucket)"
+    );
 
     // 1. The fleet on the slices.
     let fleet = Fleet::builder().threads(threads).build()?;
     let slices: Vec<&[f64]> = data.iter().map(Vec::as_slice).collect();
-    let t = Instant::now();
-    let report = fleet.fit_slices(&bp, &slices);
-    let fleet_s = t.elapsed().as_secs_f64();
-    assert_eq!(report.fitted(), series, "every series fits");
-    drop(report);
+    let time_fleet = || {
+        let t = Instant::now();
+        let report = fleet.fit_slices(&bp, &slices);
+        let s = t.elapsed().as_secs_f64();
+        assert_eq!(report.fitted(), series, "every series fits");
+        s
+    };
+    let fleet_s = time_fleet();
     println!("Fleet on the slices:             {fleet_s:8.2} s");
 
     // 1b. What `lw_fit` does for each tag, without any engine: the readings placed on
@@ -146,57 +157,46 @@ fn main() -> Result<(), Failure> {
     // then needs no shuffle, and the aggregate runs in one phase where the rows are read.
     // (Tried: one partition per bucket file with the files' order (tag, time) declared,
     // so that the aggregate emits each tag as the next starts: 18.7 s against 14.3 s.)
-    if wanted("bucket") {
-        let mut bucket_config = SessionConfig::new().with_target_partitions(threads);
-        keep_file_partitions(&mut bucket_config);
-        let ctx = SessionContext::new_with_config(bucket_config);
-        lagwise_sql::register(&ctx);
-        let (rows, bucket_s, plan) = runtime.block_on(async {
-            let options = ParquetReadOptions::default()
-                .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
-            ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
-                .await?;
-            let explained = ctx
-                .sql(&format!("EXPLAIN {bucket_sql}"))
-                .await?
-                .collect()
-                .await?;
-            let plan =
-                datafusion::arrow::util::pretty::pretty_format_batches(&explained)?.to_string();
-            // The engine's floor here: reading every column and grouping the rows.
-            let t = Instant::now();
-            ctx.sql("SELECT tag, max(ts), count(value) FROM by_bucket GROUP BY bucket, tag")
-                .await?
-                .collect()
-                .await?;
-            let floor_s = t.elapsed().as_secs_f64();
-            println!("  (the engine alone, latest time and count per tag: {floor_s:.2} s)");
-            // `ENGINE_BENCH_ONLY=bucket` makes this the process's first large query: its
-            // memory is touched for the first time (page faults, slow on a fresh virtual
-            // machine); a second run reuses it, as a long-running process does.
-            if !wanted("flat") {
-                let t = Instant::now();
-                ctx.sql(&bucket_sql).await?.collect().await?;
-                println!(
-                    "  (first run in this process, memory not yet touched: {:.2} s, {:.2}× the fleet)",
-                    t.elapsed().as_secs_f64(),
-                    t.elapsed().as_secs_f64() / fleet_s
-                );
-            }
-            let t = Instant::now();
-            let out = ctx.sql(&bucket_sql).await?.collect().await?;
-            Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64(), plan))
-        })?;
-        assert_eq!(rows, series);
-        let single = plan.contains("SinglePartitioned") && !plan.contains("RepartitionExec");
-        if std::env::var_os("ENGINE_BENCH_PLAN").is_some() {
-            println!("{plan}");
+    // 2b. The same readings laid out one tag bucket per directory (`bucket=NN/`, Hive
+    // style), the engine told to keep those file partitions: grouping by (bucket, tag)
+    // then needs no shuffle, and the aggregate runs in one phase where the rows are read.
+    // (Tried: one partition per bucket file with the files' order (tag, time) declared,
+    // so that the aggregate emits each tag as the next starts: slower.)
+    // 2c. The by-tag function on the same files, grouped by bucket alone.
+    let stages = [
+        (
+            "bucket",
+            &bucket_sql,
+            "SELECT tag, max(ts), count(value) FROM by_bucket GROUP BY bucket, tag",
+            "DataFusion, files by tag bucket:",
+        ),
+        (
+            "tags",
+            &tags_sql,
+            "SELECT bucket, count(tag), max(ts), count(value) FROM by_bucket GROUP BY bucket",
+            "DataFusion, by tag in buckets:  ",
+        ),
+    ];
+    // `ENGINE_BENCH_ROUNDS=n`: n − 1 more rounds of the fleet and each in-process bucket
+    // query in turn, so that the ratio is seen several times on a noisy machine.
+    let rounds = std::env::var("ENGINE_BENCH_ROUNDS")
+        .ok()
+        .and_then(|r| r.parse().ok())
+        .unwrap_or(1);
+    let bench = BucketBench {
+        runtime: &runtime,
+        threads,
+        by_bucket: &by_bucket,
+        fleet_s,
+        first_query: !wanted("flat"),
+        expected: series,
+        rounds,
+        time_fleet: &time_fleet,
+    };
+    for (stage, query, floor, label) in stages {
+        if wanted(stage) {
+            bench.run([floor, query], label)?;
         }
-        println!(
-            "DataFusion, files by tag bucket: {bucket_s:8.2} s  ({:+.1}% against the fleet; one-phase aggregate without a shuffle: {single})",
-            100.0 * (bucket_s / fleet_s - 1.0)
-        );
-        drop(ctx);
     }
 
     if wanted("cluster") {
@@ -244,27 +244,33 @@ fn main() -> Result<(), Failure> {
             "Ballista, 2 executors × {slots} slots: {cluster_s:8.2} s  ({:+.1}% against the fleet)",
             100.0 * (cluster_s / fleet_s - 1.0)
         );
-        // The bucket layout on the cluster (the same option travels with the session).
-        let bucketed = runtime.block_on(async {
-            let mut config = config.with_target_partitions(2 * FILES);
-            keep_file_partitions(&mut config);
-            let ctx = lagwise_cluster::connect_with(&format!("df://{address}"), config).await?;
-            let options = ParquetReadOptions::default()
-                .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
-            ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
-                .await?;
-            let t = Instant::now();
-            let out = lagwise_cluster::collect(&ctx, &bucket_sql).await?;
-            let s = t.elapsed().as_secs_f64();
-            assert_eq!(row_count(&out), series);
-            Ok::<_, Failure>(s)
-        });
-        match bucketed {
-            Ok(s) => println!(
-                "Ballista, files by tag bucket:   {s:8.2} s  ({:+.1}% against the fleet)",
-                100.0 * (s / fleet_s - 1.0)
-            ),
-            Err(e) => println!("Ballista, files by tag bucket: failed: {e}"),
+        // The bucket layout on the cluster (the same option travels with the session),
+        // grouped by (bucket, tag) and with the by-tag function by bucket.
+        for (query, label) in [
+            (&bucket_sql, "Ballista, files by tag bucket:  "),
+            (&tags_sql, "Ballista, by tag in buckets:    "),
+        ] {
+            let bucketed = runtime.block_on(async {
+                let mut config = config.clone().with_target_partitions(2 * FILES);
+                keep_file_partitions(&mut config);
+                let ctx = lagwise_cluster::connect_with(&format!("df://{address}"), config).await?;
+                let options = ParquetReadOptions::default()
+                    .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
+                ctx.register_parquet("by_bucket", path_text(&by_bucket)?, options)
+                    .await?;
+                let t = Instant::now();
+                let out = lagwise_cluster::collect(&ctx, query).await?;
+                let s = t.elapsed().as_secs_f64();
+                assert_eq!(row_count(&out), series);
+                Ok::<_, Failure>(s)
+            });
+            match bucketed {
+                Ok(s) => println!(
+                    "{label} {s:8.2} s  ({:+.1}% against the fleet)",
+                    100.0 * (s / fleet_s - 1.0)
+                ),
+                Err(e) => println!("{label} failed: {e}"),
+            }
         }
         for (k, child) in nodes.0.iter().enumerate().skip(1) {
             println!(
@@ -278,6 +284,95 @@ fn main() -> Result<(), Failure> {
         );
     }
     Ok(())
+}
+
+/// What the in-process bucket stages share.
+struct BucketBench<'a> {
+    runtime: &'a tokio::runtime::Runtime,
+    threads: usize,
+    by_bucket: &'a Path,
+    fleet_s: f64,
+    /// The stage's query is the process's first large one.
+    first_query: bool,
+    /// Result rows (one per tag).
+    expected: usize,
+    rounds: usize,
+    /// Fits the fleet again, giving its wall time.
+    time_fleet: &'a dyn Fn() -> f64,
+}
+
+impl BucketBench<'_> {
+    /// One query over the bucket files in a new in-process context: the engine's floor
+    /// (reading every column, no fitting), then the query itself, once more before that
+    /// when it is the process's first large query, then further rounds of the fleet and
+    /// the query in turn.
+    fn run(&self, [floor, query]: [&str; 2], label: &str) -> Result<(), Failure> {
+        let mut bucket_config = SessionConfig::new().with_target_partitions(self.threads);
+        keep_file_partitions(&mut bucket_config);
+        let ctx = SessionContext::new_with_config(bucket_config);
+        lagwise_sql::register(&ctx);
+        let ctx = &ctx;
+        let timed = |sql: String| async move {
+            let t = Instant::now();
+            let out = ctx.sql(&sql).await?.collect().await?;
+            Ok::<_, Failure>((row_count(&out), t.elapsed().as_secs_f64()))
+        };
+        let (rows, bucket_s, plan) = self.runtime.block_on(async {
+            let options = ParquetReadOptions::default()
+                .table_partition_cols(vec![("bucket".to_string(), DataType::Int32)]);
+            ctx.register_parquet("by_bucket", path_text(self.by_bucket)?, options)
+                .await?;
+            let explained = ctx
+                .sql(&format!("EXPLAIN {query}"))
+                .await?
+                .collect()
+                .await?;
+            let plan =
+                datafusion::arrow::util::pretty::pretty_format_batches(&explained)?.to_string();
+            let (_, floor_s) = timed(floor.to_string()).await?;
+            println!("  (the engine alone, every column read and grouped: {floor_s:.2} s)");
+            // When this is the process's first large query, its memory is touched for the
+            // first time (page faults, slow on a fresh virtual machine); a second run
+            // reuses it, as a long-running process does.
+            if self.first_query {
+                let (_, s) = timed(query.to_string()).await?;
+                println!(
+                    "  (first run in this process, memory not yet touched: {s:.2} s, {:.2}× the fleet)",
+                    s / self.fleet_s
+                );
+            }
+            let (rows, s) = timed(query.to_string()).await?;
+            Ok::<_, Failure>((rows, s, plan))
+        })?;
+        if std::env::var_os("ENGINE_BENCH_PLAN").is_some() {
+            println!("{plan}");
+        }
+        if rows != self.expected {
+            return Err(format!("{label} gave {rows} rows for {} tags", self.expected).into());
+        }
+        let single = plan.contains("SinglePartitioned") && !plan.contains("RepartitionExec");
+        println!(
+            "{label} {bucket_s:8.2} s  ({:+.1}% against the fleet; one-phase aggregate without a shuffle: {single})",
+            100.0 * (bucket_s / self.fleet_s - 1.0)
+        );
+        if self.rounds > 1 {
+            let mut ratios = vec![bucket_s / self.fleet_s];
+            for _ in 1..self.rounds {
+                let fleet_s = (self.time_fleet)();
+                let (_, s) = self.runtime.block_on(timed(query.to_string()))?;
+                ratios.push(s / fleet_s);
+            }
+            let listed: Vec<String> = ratios.iter().map(|r| format!("{r:.3}")).collect();
+            ratios.sort_by(f64::total_cmp);
+            println!(
+                "  ({} rounds of the fleet and this query in turn: {}× the fleet; median {:.3}×)",
+                self.rounds,
+                listed.join(", "),
+                ratios[ratios.len() / 2]
+            );
+        }
+        Ok(())
+    }
 }
 
 /// Let a scan of Hive-style directories declare its partitioning by the partition column

@@ -421,6 +421,15 @@ async fn fits_and_forecasts_on_two_executors_equal_the_fleet_bitwise() {
         .await
         .unwrap();
     assert_eq!(check_fits(&fits, &fleet), TAGS);
+    // The by-tag function, the engine grouping by a coarse key (two groups, partial
+    // states of readings with their tags shuffled between the executors).
+    let by_tag = format!(
+        "SELECT f['tag'] AS tag, f AS fit FROM (
+           SELECT unnest(lw_fit_by_tag(tag, ts, value, '{json}', {CADENCE})) AS f
+           FROM readings GROUP BY tag < 'KB-SS1500-DP')"
+    );
+    let fits = lagwise_cluster::collect(&ctx, &by_tag).await.unwrap();
+    assert_eq!(check_fits(&fits, &fleet), TAGS);
     let ahead = lagwise_cluster::collect(&ctx, &ahead_sql(&json, 8))
         .await
         .unwrap();

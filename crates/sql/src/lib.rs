@@ -14,6 +14,22 @@
 //! | `lw_ahead` | `ts, value, blueprint, cadence_ms, horizon, levels` | `{steps, error}`: one step per horizon step with its UTC time, mean, sd and bounds per level |
 //! | `lw_check` | `ts, value, blueprint, cadence_ms` | the residual check: whiteness, normality, changing variance, verdict |
 //! | `lw_watch` (window) | `ts, value, stored, alarm_level` | per new reading: prediction, sd, interval, z, outside, slot (see [`watch_function`]) |
+//! | `lw_fit_by_tag`, `lw_choose_by_tag`, `lw_ahead_by_tag`, `lw_check_by_tag` | `tag`, then the same arguments | a list with one row per tag of the group, in tag order: `tag` and the per-tag function's fields |
+//!
+//! The by-tag functions are for groups of many tags — a bucket of tags, a site, a
+//! Hive-style partition of the files:
+//!
+//! ```sql
+//! SELECT f['tag'] AS tag, f['sigma2'] AS sigma2
+//! FROM (SELECT unnest(lw_fit_by_tag(tag, ts, value, '<blueprint JSON>', 900000)) AS f
+//!       FROM readings GROUP BY bucket)
+//! ```
+//!
+//! Each tag's row equals the per-tag function's row, bit for bit. The engine then hashes a
+//! small key per row instead of the tag's text, and the function splits the group's rows
+//! by tag itself, one look-up per run of rows of the same tag (historian exports hold a
+//! tag's readings together). Every group is evaluated by one engine thread: group by a
+//! key with at least as many values as the engine has partitions.
 //!
 //! `ts` is a timestamp column of any unit (or `BIGINT` epoch milliseconds); `value` any
 //! numeric column, `NULL` = a missing reading; `blueprint` the persisted blueprint text
@@ -35,7 +51,7 @@ use std::sync::Arc;
 use datafusion::arrow::array::RecordBatch;
 use datafusion::arrow::array::{
     Array, ArrayRef, AsArray, BooleanBuilder, Float64Builder, Int64Builder, ListBuilder,
-    StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
+    StringArray, StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
 };
 use datafusion::arrow::datatypes::{
     DataType, Field, FieldRef, Fields, Float64Type, Int64Type, Schema, TimeUnit,
@@ -55,9 +71,12 @@ use std::borrow::Cow;
 
 /// The functions this crate provides, ready to register.
 pub fn functions() -> Vec<AggregateUDF> {
-    [Job::Fit, Job::Choose, Job::Ahead, Job::Check]
+    [false, true]
         .into_iter()
-        .map(|job| AggregateUDF::from(SeriesFunction::new(job)))
+        .flat_map(|tagged| {
+            [Job::Fit, Job::Choose, Job::Ahead, Job::Check]
+                .map(|job| AggregateUDF::from(SeriesFunction::new(job, tagged)))
+        })
         .collect()
 }
 
@@ -88,6 +107,23 @@ impl Job {
             Job::Check => "lw_check",
         }
     }
+    /// The name of the function that does the job for every tag of a group.
+    fn tagged_name(self) -> &'static str {
+        match self {
+            Job::Fit => "lw_fit_by_tag",
+            Job::Choose => "lw_choose_by_tag",
+            Job::Ahead => "lw_ahead_by_tag",
+            Job::Check => "lw_check_by_tag",
+        }
+    }
+    /// The function's name, with a tag column first or without.
+    fn function_name(self, tagged: bool) -> &'static str {
+        if tagged {
+            self.tagged_name()
+        } else {
+            self.name()
+        }
+    }
     /// An optional last argument after the settings.
     fn optional(self) -> Option<&'static str> {
         match self {
@@ -106,9 +142,11 @@ impl Job {
         names.push(extra);
         (args == 2 + names.len()).then_some(names)
     }
-    /// The call's shape for messages: `(ts, value, cadence_ms, period[, cycles])`.
-    fn call(self) -> String {
-        let mut out = format!("(ts, value, {}", self.settings().join(", "));
+    /// The call's shape for messages: `(ts, value, cadence_ms, period[, cycles])`, with
+    /// `tag, ` first for the by-tag functions.
+    fn call(self, tagged: bool) -> String {
+        let lead = if tagged { "tag, " } else { "" };
+        let mut out = format!("({lead}ts, value, {}", self.settings().join(", "));
         if let Some(extra) = self.optional() {
             out.push_str(&format!("[, {extra}]"));
         }
@@ -236,45 +274,40 @@ fn check_fields() -> Fields {
 #[derive(Debug, Clone, PartialEq, Eq, Hash)]
 struct SeriesFunction {
     job: Job,
+    /// Takes a tag column first and does the job for every tag of a group (`lw_*_by_tag`).
+    tagged: bool,
     signature: Signature,
 }
 
 impl SeriesFunction {
-    fn new(job: Job) -> Self {
+    fn new(job: Job, tagged: bool) -> Self {
         SeriesFunction {
             job,
+            tagged,
             signature: Signature::user_defined(Volatility::Immutable),
         }
     }
-}
 
-impl AggregateUDFImpl for SeriesFunction {
-    fn name(&self) -> &str {
-        self.job.name()
-    }
-    fn signature(&self) -> &Signature {
-        &self.signature
-    }
-    fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
+    /// Types for `ts, value, settings…` (the arguments after the tag).
+    fn coerce_series(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
+        let name = self.name();
         let Some(names) = self.job.named(arg_types.len()) else {
             return plan_err!(
-                "{} takes {}; {} arguments given",
-                self.job.name(),
-                self.job.call(),
-                arg_types.len()
+                "{name} takes {}; {} arguments given",
+                self.job.call(self.tagged),
+                arg_types.len() + usize::from(self.tagged)
             );
         };
-        let ts = time_type(self.job.name(), &arg_types[0])?;
+        let ts = time_type(name, &arg_types[0])?;
         if !(arg_types[1].is_numeric() || arg_types[1] == DataType::Null) {
             return plan_err!(
-                "{}: the value column must be numeric, not {}",
-                self.job.name(),
+                "{name}: the value column must be numeric, not {}",
                 arg_types[1]
             );
         }
         let mut out = vec![ts, DataType::Float64];
-        for (name, t) in names.iter().zip(&arg_types[2..]) {
-            out.push(match *name {
+        for (setting, t) in names.iter().zip(&arg_types[2..]) {
+            out.push(match *setting {
                 "blueprint" | "levels" | "cycles" => constant_type(DataType::Utf8),
                 "cadence_ms" | "horizon" | "period" => {
                     // (Coercion runs again on coerced types: a dictionary of integers.)
@@ -283,10 +316,7 @@ impl AggregateUDFImpl for SeriesFunction {
                         t => t,
                     };
                     if !value.is_integer() {
-                        return plan_err!(
-                            "{}: {name} must be an integer, not {t}",
-                            self.job.name()
-                        );
+                        return plan_err!("{name}: {setting} must be an integer, not {t}");
                     }
                     constant_type(DataType::Int64)
                 }
@@ -295,20 +325,80 @@ impl AggregateUDFImpl for SeriesFunction {
         }
         Ok(out)
     }
+
+    fn task(&self, exprs: &[Arc<dyn datafusion::physical_expr::PhysicalExpr>]) -> Result<Task> {
+        let lead = usize::from(self.tagged);
+        if exprs.len() < lead {
+            return plan_err!(
+                "{}: expected arguments {}",
+                self.name(),
+                self.job.call(true)
+            );
+        }
+        Task::from_literals(self.job, self.tagged, &exprs[lead..])
+    }
+}
+
+impl AggregateUDFImpl for SeriesFunction {
+    fn name(&self) -> &str {
+        self.job.function_name(self.tagged)
+    }
+    fn signature(&self) -> &Signature {
+        &self.signature
+    }
+    fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
+        if !self.tagged {
+            return self.coerce_series(arg_types);
+        }
+        let Some((tag, rest)) = arg_types.split_first() else {
+            return plan_err!(
+                "{} takes {}; no arguments given",
+                self.name(),
+                self.job.call(true)
+            );
+        };
+        let tag = match tag {
+            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => tag.clone(),
+            DataType::Null => DataType::Utf8View,
+            DataType::Dictionary(_, v)
+                if matches!(
+                    v.as_ref(),
+                    DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View
+                ) =>
+            {
+                DataType::Utf8View
+            }
+            other => {
+                return plan_err!("{}: the tag column must be text, not {other}", self.name());
+            }
+        };
+        let mut out = vec![tag];
+        out.extend(self.coerce_series(rest)?);
+        Ok(out)
+    }
     fn return_type(&self, _arg_types: &[DataType]) -> Result<DataType> {
-        Ok(DataType::Struct(match self.job {
+        let fields = match self.job {
             Job::Fit | Job::Choose => model_fields(),
             Job::Ahead => ahead_fields(),
             Job::Check => check_fields(),
-        }))
+        };
+        Ok(if self.tagged {
+            tagged_rows(fields)
+        } else {
+            DataType::Struct(fields)
+        })
     }
     fn accumulator(&self, acc_args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
-        let task = Task::from_literals(self.job, acc_args.exprs)?;
-        Ok(Box::new(SeriesAccumulator {
-            task,
-            times: GroupTimes::default(),
-            values: Vec::new(),
-        }))
+        let task = self.task(acc_args.exprs)?;
+        Ok(if self.tagged {
+            Box::new(TagAccumulator(TagGroups::new(task)))
+        } else {
+            Box::new(SeriesAccumulator {
+                task,
+                times: GroupTimes::default(),
+                values: Vec::new(),
+            })
+        })
     }
     fn groups_accumulator_supported(&self, _args: AccumulatorArgs) -> bool {
         true
@@ -317,34 +407,51 @@ impl AggregateUDFImpl for SeriesFunction {
         &self,
         args: AccumulatorArgs,
     ) -> Result<Box<dyn GroupsAccumulator>> {
-        let task = Task::from_literals(self.job, args.exprs)?;
-        Ok(Box::new(SeriesGroups {
-            task,
-            times: Vec::new(),
-            values: Vec::new(),
-            bytes: 0,
-        }))
+        let task = self.task(args.exprs)?;
+        Ok(if self.tagged {
+            Box::new(TagGroups::new(task))
+        } else {
+            Box::new(SeriesGroups {
+                task,
+                gathered: Gathered::default(),
+            })
+        })
     }
     fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
-        Ok(vec![
+        let list = |part: &str, item: DataType| {
             Arc::new(Field::new(
-                format!("{}[times]", args.name),
-                DataType::List(Arc::new(Field::new("item", DataType::Int64, true))),
+                format!("{}[{part}]", args.name),
+                DataType::List(Arc::new(Field::new("item", item, true))),
                 true,
-            )),
-            Arc::new(Field::new(
-                format!("{}[values]", args.name),
-                float_list(),
-                true,
-            )),
-        ])
+            ))
+        };
+        let mut fields = Vec::with_capacity(3);
+        if self.tagged {
+            // One tag per reading (the state of a by-tag function is its readings with
+            // their tags: only plans with a partial and a final stage use it).
+            fields.push(list("tags", DataType::Utf8));
+        }
+        fields.push(list("times", DataType::Int64));
+        fields.push(list("values", DataType::Float64));
+        Ok(fields)
     }
+}
+
+/// The result type of a by-tag function: a list with one struct per tag, the tag first.
+fn tagged_rows(fields: Fields) -> DataType {
+    let mut all = vec![Arc::new(Field::new("tag", DataType::Utf8, true))];
+    all.extend(fields.iter().cloned());
+    DataType::List(Arc::new(Field::new(
+        "item",
+        DataType::Struct(all.into()),
+        true,
+    )))
 }
 
 /// The `cycles` argument of `lw_choose`: `period:max_harmonics` pairs separated by commas,
 /// e.g. `'672:10'` (a weekly cycle of quarter-hour readings, up to 10 harmonics) or
 /// `'96:8, 672:6'`.
-fn cycle_bounds(text: &str, job: Job) -> Result<Vec<(usize, usize)>> {
+fn cycle_bounds(text: &str, name: &str) -> Result<Vec<(usize, usize)>> {
     text.split(',')
         .filter(|part| !part.trim().is_empty())
         .map(|part| {
@@ -355,7 +462,7 @@ fn cycle_bounds(text: &str, job: Job) -> Result<Vec<(usize, usize)>> {
                 || {
                     plan_err!(
                         "{}: cycles '{text}' must be period:max_harmonics pairs separated by commas, such as '672:10' or '96:8, 672:6'",
-                        job.name()
+                        name
                     )
                 },
                 Ok,
@@ -368,6 +475,8 @@ fn cycle_bounds(text: &str, job: Job) -> Result<Vec<(usize, usize)>> {
 #[derive(Debug, Clone)]
 struct Task {
     job: Job,
+    /// Done for every tag of a group (the `lw_*_by_tag` functions).
+    tagged: bool,
     grid: GridSettings,
     blueprint: Option<Blueprint>,
     /// The order search's settings (`lw_choose`).
@@ -377,12 +486,21 @@ struct Task {
 }
 
 impl Task {
+    /// The function's name, for messages.
+    fn name(&self) -> &'static str {
+        self.job.function_name(self.tagged)
+    }
+
+    /// The settings of `job` from `exprs`: `ts, value, settings…` (after the tag for a
+    /// by-tag function).
     fn from_literals(
         job: Job,
+        tagged: bool,
         exprs: &[Arc<dyn datafusion::physical_expr::PhysicalExpr>],
     ) -> Result<Self> {
+        let name = job.function_name(tagged);
         let Some(names) = job.named(exprs.len()) else {
-            return plan_err!("{}: expected arguments {}", job.name(), job.call());
+            return plan_err!("{}: expected arguments {}", name, job.call(tagged));
         };
         // A constant: a literal, or an expression of literals (a cast the planner has not
         // folded), evaluated without rows; a dictionary constant gives its one value.
@@ -393,7 +511,7 @@ impl Task {
                 Ok(ColumnarValue::Scalar(v)) => Ok(v),
                 _ => plan_err!(
                     "{}: {} must be a constant (executors read settings from the query)",
-                    job.name(),
+                    name,
                     names[i - 2]
                 ),
             }
@@ -403,7 +521,7 @@ impl Task {
                 ScalarValue::Utf8(Some(s))
                 | ScalarValue::LargeUtf8(Some(s))
                 | ScalarValue::Utf8View(Some(s)) => Ok(s),
-                other => plan_err!("{}: {} must be text, got {other}", job.name(), names[i - 2]),
+                other => plan_err!("{}: {} must be text, got {other}", name, names[i - 2]),
             }
         };
         let integer = |i: usize| -> Result<i64> {
@@ -417,13 +535,7 @@ impl Task {
                         _ => None,
                     })
                     .map_or_else(
-                        || {
-                            plan_err!(
-                                "{}: {} must be an integer, got {other}",
-                                job.name(),
-                                names[i - 2]
-                            )
-                        },
+                        || plan_err!("{}: {} must be an integer, got {other}", name, names[i - 2]),
                         Ok,
                     ),
             }
@@ -437,22 +549,22 @@ impl Task {
         let cadence = integer(at("cadence_ms"))?;
         let grid = GridSettings::builder(cadence)
             .build()
-            .map_err(|e| DataFusionError::Plan(format!("{}: cadence_ms: {e}", job.name())))?;
-        let blueprint =
-            if names.contains(&"blueprint") {
-                let json = text(at("blueprint"))?;
-                Some(lagwise::blueprint_from_json(&json).map_err(|e| {
-                    DataFusionError::Plan(format!("{}: blueprint: {e}", job.name()))
-                })?)
-            } else {
-                None
-            };
+            .map_err(|e| DataFusionError::Plan(format!("{}: cadence_ms: {e}", name)))?;
+        let blueprint = if names.contains(&"blueprint") {
+            let json = text(at("blueprint"))?;
+            Some(
+                lagwise::blueprint_from_json(&json)
+                    .map_err(|e| DataFusionError::Plan(format!("{}: blueprint: {e}", name)))?,
+            )
+        } else {
+            None
+        };
         let period = if names.contains(&"period") {
             let p = integer(at("period"))?;
             if !(1..=lagwise::MAX_PERIOD as i64).contains(&p) {
                 return plan_err!(
                     "{}: period {p} must be 1 (no seasonal cycle) to {}",
-                    job.name(),
+                    name,
                     lagwise::MAX_PERIOD
                 );
             }
@@ -460,36 +572,37 @@ impl Task {
         } else {
             1
         };
-        let search = if job == Job::Choose {
-            let mut settings = SearchSettings::builder();
-            settings.period(period);
-            if names.contains(&"cycles") {
-                for (cycle, bound) in cycle_bounds(&text(at("cycles"))?, job)? {
-                    settings.cycle(cycle, bound);
+        let search =
+            if job == Job::Choose {
+                let mut settings = SearchSettings::builder();
+                settings.period(period);
+                if names.contains(&"cycles") {
+                    for (cycle, bound) in cycle_bounds(&text(at("cycles"))?, name)? {
+                        settings.cycle(cycle, bound);
+                    }
                 }
-            }
-            Some(settings.build().map_err(|e| {
-                DataFusionError::Plan(format!("{}: search settings: {e}", job.name()))
-            })?)
-        } else {
-            None
-        };
+                Some(settings.build().map_err(|e| {
+                    DataFusionError::Plan(format!("{}: search settings: {e}", name))
+                })?)
+            } else {
+                None
+            };
         let (horizon, levels) = if job == Job::Ahead {
             let h = integer(at("horizon"))?;
             if !(1..=100_000).contains(&h) {
-                return plan_err!("{}: horizon {h} must be 1 to 100,000 steps", job.name());
+                return plan_err!("{}: horizon {h} must be 1 to 100,000 steps", name);
             }
             let text = text(at("levels"))?;
             let levels: Vec<f64> = serde_json::from_str(&text).map_err(|e| {
                 DataFusionError::Plan(format!(
                     "{}: levels must be a JSON list of numbers such as [0.8, 0.95]: {e}",
-                    job.name()
+                    name
                 ))
             })?;
             if levels.is_empty() || levels.iter().any(|l| !(*l > 0.0 && *l < 1.0)) {
                 return plan_err!(
                     "{}: levels {text} must be one or more numbers in (0, 1)",
-                    job.name()
+                    name
                 );
             }
             (h as usize, levels)
@@ -498,6 +611,7 @@ impl Task {
         };
         Ok(Task {
             job,
+            tagged,
             grid,
             blueprint,
             search,
@@ -565,7 +679,7 @@ fn readings_of(array: &ArrayRef) -> Result<Cow<'_, [f64]>> {
 
 impl Accumulator for SeriesAccumulator {
     fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
-        let what = self.task.job.name();
+        let what = self.task.name();
         let times = times_ms(&values[0], what)?;
         let readings = readings_of(&values[1])?;
         if times.len() != readings.len() {
@@ -624,11 +738,17 @@ impl Accumulator for SeriesAccumulator {
 #[derive(Debug)]
 struct SeriesGroups {
     task: Task,
-    /// Epoch milliseconds, per group.
+    gathered: Gathered,
+}
+
+/// Series gathered by index: each one's times and readings.
+#[derive(Debug, Default)]
+struct Gathered {
+    /// Epoch milliseconds, per series.
     times: Vec<GroupTimes>,
-    /// NaN = missing, per group.
+    /// NaN = missing, per series.
     values: Vec<Vec<f64>>,
-    /// Heap bytes of the groups' vectors' buffers (kept current as they grow).
+    /// Heap bytes of the series' vectors' buffers (kept current as they grow).
     bytes: usize,
 }
 
@@ -683,26 +803,41 @@ impl GroupTimes {
         if let GroupTimes::Even { first, step, count } = self {
             let (mut f, mut st, mut n) = (*first, *step, *count);
             let mut rest = times;
-            while let Some((&t, tail)) = rest.split_first() {
-                let fits = match n {
-                    0 => {
-                        f = t;
-                        true
-                    }
-                    1 => match t.checked_sub(f) {
-                        Some(d) => {
-                            st = d;
-                            true
-                        }
-                        None => false,
-                    },
-                    _ => Self::even_at(f, st, n) == Some(t),
+            // The first two times set the pattern.
+            while n < 2 {
+                let Some((&t, tail)) = rest.split_first() else {
+                    break;
                 };
-                if !fits {
+                if n == 0 {
+                    f = t;
+                } else if let Some(d) = t.checked_sub(f) {
+                    st = d;
+                } else {
                     break;
                 }
                 n += 1;
                 rest = tail;
+            }
+            if n >= 2 {
+                // Each time one step on from the one before (one addition per reading);
+                // the last one's time computed directly then confirms that every
+                // `first + k·step` of the run is exact (|k·step| grows with k).
+                let mut last = Self::even_at(f, st, n - 1).unwrap_or(f);
+                let mut run = rest
+                    .iter()
+                    .take_while(|&&t| {
+                        let next = last.checked_add(st);
+                        last = t;
+                        next == Some(t)
+                    })
+                    .count();
+                if run > 0 && Self::even_at(f, st, n + run - 1).is_none() {
+                    run = (0..run)
+                        .take_while(|&i| Self::even_at(f, st, n + i) == Some(rest[i]))
+                        .count();
+                }
+                n += run;
+                rest = &rest[run..];
             }
             (*first, *step, *count) = (f, st, n);
             if rest.is_empty() {
@@ -743,7 +878,7 @@ impl GroupTimes {
     }
 }
 
-impl SeriesGroups {
+impl Gathered {
     fn grow_to(&mut self, groups: usize) {
         if self.times.len() < groups {
             self.times.resize_with(groups, GroupTimes::default);
@@ -772,6 +907,13 @@ impl SeriesGroups {
         self.bytes -= gone.min(self.bytes);
         (times, values)
     }
+
+    /// Heap bytes held, the index vectors included.
+    fn heap_bytes(&self) -> usize {
+        self.bytes
+            + self.times.capacity() * std::mem::size_of::<GroupTimes>()
+            + self.values.capacity() * std::mem::size_of::<Vec<f64>>()
+    }
 }
 
 impl GroupsAccumulator for SeriesGroups {
@@ -782,13 +924,13 @@ impl GroupsAccumulator for SeriesGroups {
         opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
         total_num_groups: usize,
     ) -> Result<()> {
-        let what = self.task.job.name();
+        let what = self.task.name();
         let times = times_ms(&values[0], what)?;
         let readings = readings_of(&values[1])?;
         if times.len() != readings.len() || times.len() != group_indices.len() {
             return exec_err!("{what}: time and value columns differ in length");
         }
-        self.grow_to(total_num_groups);
+        self.gathered.grow_to(total_num_groups);
         // Rows of one group usually come in runs (each tag's readings in time order):
         // one append per run.
         let mut row = 0;
@@ -800,10 +942,12 @@ impl GroupsAccumulator for SeriesGroups {
                     .position(|&h| h != g)
                     .unwrap_or(group_indices.len() - row);
             match opt_filter {
-                None => self.extend(g, &times[row..end], &readings[row..end]),
+                None => self
+                    .gathered
+                    .extend(g, &times[row..end], &readings[row..end]),
                 Some(f) => {
                     for i in (row..end).filter(|&i| f.is_valid(i) && f.value(i)) {
-                        self.extend(g, &times[i..=i], &readings[i..=i]);
+                        self.gathered.extend(g, &times[i..=i], &readings[i..=i]);
                     }
                 }
             }
@@ -819,7 +963,7 @@ impl GroupsAccumulator for SeriesGroups {
         total_num_groups: usize,
     ) -> Result<()> {
         let (times, readings) = (values[0].as_list::<i32>(), values[1].as_list::<i32>());
-        self.grow_to(total_num_groups);
+        self.gathered.grow_to(total_num_groups);
         for (row, &g) in group_indices.iter().enumerate() {
             if times.is_null(row) {
                 continue;
@@ -830,10 +974,10 @@ impl GroupsAccumulator for SeriesGroups {
             // The states this accumulator writes hold plain f64 (NaN = missing): taken as
             // they are; anything else is converted.
             match v.as_primitive_opt::<Float64Type>() {
-                Some(p) if p.null_count() == 0 => self.extend(g, t, p.values()),
+                Some(p) if p.null_count() == 0 => self.gathered.extend(g, t, p.values()),
                 _ => {
                     let v = readings_of(&v)?;
-                    self.extend(g, t, &v);
+                    self.gathered.extend(g, t, &v);
                 }
             }
         }
@@ -843,7 +987,7 @@ impl GroupsAccumulator for SeriesGroups {
     fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
         use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
         use datafusion::arrow::buffer::OffsetBuffer;
-        let (times, values) = self.take(emit_to);
+        let (times, values) = self.gathered.take(emit_to);
         let offsets = OffsetBuffer::<i32>::from_lengths(times.iter().map(GroupTimes::len));
         let mut all = Vec::with_capacity(times.iter().map(GroupTimes::len).sum());
         let mut buffer = Vec::new();
@@ -866,7 +1010,7 @@ impl GroupsAccumulator for SeriesGroups {
     }
 
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
-        let (times, values) = self.take(emit_to);
+        let (times, values) = self.gathered.take(emit_to);
         let task = &self.task;
         let outcomes = times.iter().zip(&values).map(|(t, v)| run(task, t, v));
         Ok(Arc::new(result_rows(task, outcomes)))
@@ -881,7 +1025,7 @@ impl GroupsAccumulator for SeriesGroups {
     ) -> Result<Vec<ArrayRef>> {
         use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
         use datafusion::arrow::buffer::{NullBuffer, OffsetBuffer};
-        let what = self.task.job.name();
+        let what = self.task.name();
         let times = times_ms(&values[0], what)?;
         let readings = readings_of(&values[1])?;
         let n = times.len();
@@ -910,10 +1054,403 @@ impl GroupsAccumulator for SeriesGroups {
 
     fn size(&self) -> usize {
         std::mem::size_of_val(self)
-            + self.bytes
-            + self.times.capacity() * std::mem::size_of::<GroupTimes>()
-            + self.values.capacity() * std::mem::size_of::<Vec<f64>>()
+            + self.gathered.heap_bytes()
             + self.task.levels.capacity() * std::mem::size_of::<f64>()
+    }
+}
+
+/// A tag column of any string type, read row by row.
+enum Tags<'a> {
+    Plain(&'a datafusion::arrow::array::StringArray),
+    Large(&'a datafusion::arrow::array::LargeStringArray),
+    View(&'a datafusion::arrow::array::StringViewArray),
+}
+
+impl<'a> Tags<'a> {
+    fn of(array: &'a ArrayRef, what: &str) -> Result<Self> {
+        Ok(match array.data_type() {
+            DataType::Utf8 => Tags::Plain(array.as_string::<i32>()),
+            DataType::LargeUtf8 => Tags::Large(array.as_string::<i64>()),
+            DataType::Utf8View => Tags::View(array.as_string_view()),
+            other => return exec_err!("{what}: tag column of type {other}"),
+        })
+    }
+
+    /// Row `i`'s tag (`None` for a null).
+    fn get(&self, i: usize) -> Option<&'a str> {
+        match self {
+            Tags::Plain(a) => a.is_valid(i).then(|| a.value(i)),
+            Tags::Large(a) => a.is_valid(i).then(|| a.value(i)),
+            Tags::View(a) => a.is_valid(i).then(|| a.value(i)),
+        }
+    }
+
+    /// Whether rows `i` and `j` carry the same tag. Two equal views are the same text (a
+    /// view holds the length and either all the bytes or where they are), which is how a
+    /// reader hands over one dictionary entry repeated: no bytes compared.
+    fn same(&self, i: usize, j: usize) -> bool {
+        if let Tags::View(a) = self
+            && a.views()[i] == a.views()[j]
+            && a.is_valid(i) == a.is_valid(j)
+        {
+            return true;
+        }
+        self.get(i) == self.get(j)
+    }
+}
+
+/// A batch's tags, epoch milliseconds and readings (NaN = missing).
+type TaggedRows<'a> = (Tags<'a>, Cow<'a, [i64]>, Cow<'a, [f64]>);
+
+/// One group's tags, each with its series.
+#[derive(Debug, Default)]
+struct TagSet {
+    /// Each tag's series index.
+    index: std::collections::HashMap<Box<str>, usize>,
+    /// The series of rows without a tag.
+    untagged: Option<usize>,
+    /// The tag of each series (`None`: rows without a tag).
+    names: Vec<Option<Box<str>>>,
+    gathered: Gathered,
+    /// Bytes of the tags' text (held twice: index and names).
+    text_bytes: usize,
+}
+
+impl TagSet {
+    /// The series index of `tag`, a new series for a tag not seen before.
+    fn slot(&mut self, tag: Option<&str>) -> usize {
+        let next = self.names.len();
+        let found = match tag {
+            Some(t) => self.index.get(t).copied(),
+            None => self.untagged,
+        };
+        if let Some(k) = found {
+            return k;
+        }
+        match tag {
+            Some(t) => {
+                self.index.insert(t.into(), next);
+                self.text_bytes += 2 * t.len();
+            }
+            None => self.untagged = Some(next),
+        }
+        self.names.push(tag.map(Into::into));
+        self.gathered.grow_to(next + 1);
+        next
+    }
+
+    /// Heap bytes held (the index's table estimated from its capacity).
+    fn heap_bytes(&self) -> usize {
+        self.gathered.heap_bytes()
+            + self.text_bytes
+            + self.index.capacity() * (std::mem::size_of::<(Box<str>, usize)>() + 1)
+            + self.names.capacity() * std::mem::size_of::<Option<Box<str>>>()
+    }
+}
+
+/// The by-tag functions' accumulator: per group, the readings of every tag in it. The
+/// engine groups rows by a coarse key (a bucket of tags, a site, a file partition) and
+/// this splits each group's rows by tag itself: a tag's readings usually come in runs,
+/// and one look-up per run replaces the engine's hashing of the tag on every row. Each
+/// group's result is a list with one row per tag, in tag order, each row the same function
+/// of the tag's readings as the per-tag function's result.
+#[derive(Debug)]
+struct TagGroups {
+    task: Task,
+    sets: Vec<TagSet>,
+    /// Heap bytes of all sets (kept current as they grow).
+    bytes: usize,
+}
+
+impl TagGroups {
+    fn new(task: Task) -> Self {
+        TagGroups {
+            task,
+            sets: Vec::new(),
+            bytes: 0,
+        }
+    }
+
+    fn grow_to(&mut self, groups: usize) {
+        if self.sets.len() < groups {
+            self.sets.resize_with(groups, TagSet::default);
+        }
+    }
+
+    /// Rows `tags`, `times`, `readings` into the groups `group_of(row)`, the rows a
+    /// `filter` passes only; one look-up per run of rows with the same group and tag.
+    fn add(
+        &mut self,
+        tags: &Tags<'_>,
+        times: &[i64],
+        readings: &[f64],
+        group_of: impl Fn(usize) -> usize,
+        filter: Option<&datafusion::arrow::array::BooleanArray>,
+    ) {
+        let n = times.len();
+        let mut row = 0;
+        while row < n {
+            let g = group_of(row);
+            let mut end = row + 1;
+            while end < n && group_of(end) == g && tags.same(end, row) {
+                end += 1;
+            }
+            let set = &mut self.sets[g];
+            let before = set.heap_bytes();
+            let k = set.slot(tags.get(row));
+            match filter {
+                None => set
+                    .gathered
+                    .extend(k, &times[row..end], &readings[row..end]),
+                Some(f) => {
+                    for i in (row..end).filter(|&i| f.is_valid(i) && f.value(i)) {
+                        set.gathered.extend(k, &times[i..=i], &readings[i..=i]);
+                    }
+                }
+            }
+            self.bytes = self.bytes + set.heap_bytes() - before;
+            row = end;
+        }
+    }
+
+    /// The sets `emit_to` asks for, removed.
+    fn take(&mut self, emit_to: EmitTo) -> Vec<TagSet> {
+        let sets = emit_to.take_needed(&mut self.sets);
+        let gone: usize = sets.iter().map(TagSet::heap_bytes).sum();
+        self.bytes -= gone.min(self.bytes);
+        sets
+    }
+
+    /// The columns `[tag, ts, value]` of `values`, checked.
+    fn columns<'a>(&self, values: &'a [ArrayRef]) -> Result<TaggedRows<'a>> {
+        let what = self.task.name();
+        let [tags, times, readings, ..] = values else {
+            return exec_err!("{what}: expected tag, time and value columns");
+        };
+        let (tags, times, readings) = (
+            Tags::of(tags, what)?,
+            times_ms(times, what)?,
+            readings_of(readings)?,
+        );
+        let n = times.len();
+        let rows = match &tags {
+            Tags::Plain(a) => a.len(),
+            Tags::Large(a) => a.len(),
+            Tags::View(a) => a.len(),
+        };
+        if readings.len() != n || rows != n {
+            return exec_err!("{what}: tag, time and value columns differ in length");
+        }
+        Ok((tags, times, readings))
+    }
+}
+
+impl GroupsAccumulator for TagGroups {
+    fn update_batch(
+        &mut self,
+        values: &[ArrayRef],
+        group_indices: &[usize],
+        opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
+        total_num_groups: usize,
+    ) -> Result<()> {
+        let (tags, times, readings) = self.columns(values)?;
+        if group_indices.len() != times.len() {
+            return exec_err!("{}: group indices and rows differ", self.task.name());
+        }
+        self.grow_to(total_num_groups);
+        self.add(&tags, &times, &readings, |i| group_indices[i], opt_filter);
+        Ok(())
+    }
+
+    fn merge_batch(
+        &mut self,
+        values: &[ArrayRef],
+        group_indices: &[usize],
+        total_num_groups: usize,
+    ) -> Result<()> {
+        let [tags, times, readings, ..] = values else {
+            return exec_err!("{}: state of three lists expected", self.task.name());
+        };
+        let (tags, times, readings) = (
+            tags.as_list::<i32>(),
+            times.as_list::<i32>(),
+            readings.as_list::<i32>(),
+        );
+        self.grow_to(total_num_groups);
+        for (row, &g) in group_indices.iter().enumerate() {
+            if times.is_null(row) {
+                continue;
+            }
+            let columns = [tags.value(row), times.value(row), readings.value(row)];
+            let (t, ms, v) = self.columns(&columns)?;
+            self.add(&t, &ms, &v, |_| g, None);
+        }
+        Ok(())
+    }
+
+    fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
+        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
+        use datafusion::arrow::buffer::OffsetBuffer;
+        let sets = self.take(emit_to);
+        let per_set = |s: &TagSet| s.gathered.times.iter().map(GroupTimes::len).sum::<usize>();
+        let offsets = OffsetBuffer::<i32>::from_lengths(sets.iter().map(per_set));
+        let total: usize = sets.iter().map(per_set).sum();
+        let mut tags = StringBuilder::with_capacity(total, 0);
+        let mut all_times = Vec::with_capacity(total);
+        let mut all_values = Vec::with_capacity(total);
+        let mut buffer = Vec::new();
+        for set in &sets {
+            for ((name, t), v) in set
+                .names
+                .iter()
+                .zip(&set.gathered.times)
+                .zip(&set.gathered.values)
+            {
+                for _ in 0..t.len() {
+                    tags.append_option(name.as_deref());
+                }
+                all_times.extend_from_slice(t.as_slice(&mut buffer));
+                all_values.extend_from_slice(v);
+            }
+        }
+        let list = |item: DataType, array: ArrayRef| -> ArrayRef {
+            Arc::new(ListArray::new(
+                Arc::new(Field::new("item", item, true)),
+                offsets.clone(),
+                array,
+                None,
+            ))
+        };
+        Ok(vec![
+            list(DataType::Utf8, Arc::new(tags.finish())),
+            list(DataType::Int64, Arc::new(Int64Array::from(all_times))),
+            list(DataType::Float64, Arc::new(Float64Array::from(all_values))),
+        ])
+    }
+
+    fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
+        use datafusion::arrow::array::ListArray;
+        use datafusion::arrow::buffer::OffsetBuffer;
+        let sets = self.take(emit_to);
+        // Each set's series in tag order (rows without a tag first).
+        let mut order = Vec::new();
+        let mut lengths = Vec::with_capacity(sets.len());
+        for (s, set) in sets.iter().enumerate() {
+            let start = order.len();
+            order.extend((0..set.names.len()).map(|k| (s, k)));
+            order[start..].sort_by(|a, b| set.names[a.1].cmp(&set.names[b.1]));
+            lengths.push(set.names.len());
+        }
+        let task = &self.task;
+        let outcomes = order.iter().map(|&(s, k)| {
+            let g = &sets[s].gathered;
+            run(task, &g.times[k], &g.values[k])
+        });
+        let rows = result_rows(task, outcomes);
+        let tags: StringArray = order
+            .iter()
+            .map(|&(s, k)| sets[s].names[k].as_deref())
+            .collect();
+        let DataType::List(item) = tagged_rows(rows.fields().clone()) else {
+            unreachable!("tagged_rows gives a list type")
+        };
+        let DataType::Struct(fields) = item.data_type().clone() else {
+            unreachable!("a list of structs")
+        };
+        let (_, columns, _) = rows.into_parts();
+        let mut all: Vec<ArrayRef> = vec![Arc::new(tags)];
+        all.extend(columns);
+        let rows = StructArray::try_new(fields, all, None)?;
+        Ok(Arc::new(ListArray::try_new(
+            item,
+            OffsetBuffer::<i32>::from_lengths(lengths),
+            Arc::new(rows),
+            None,
+        )?))
+    }
+
+    /// Each row as its own group's state (one reading per list; a row the filter drops is
+    /// a null list, which `merge_batch` skips).
+    fn convert_to_state(
+        &self,
+        values: &[ArrayRef],
+        opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
+    ) -> Result<Vec<ArrayRef>> {
+        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
+        use datafusion::arrow::buffer::{NullBuffer, OffsetBuffer};
+        let (tags, times, readings) = self.columns(values)?;
+        let n = times.len();
+        let offsets = OffsetBuffer::<i32>::from_lengths(std::iter::repeat_n(1, n));
+        let nulls = opt_filter.map(|f| {
+            NullBuffer::from(
+                (0..n)
+                    .map(|i| f.is_valid(i) && f.value(i))
+                    .collect::<Vec<_>>(),
+            )
+        });
+        let tags: StringArray = (0..n).map(|i| tags.get(i)).collect();
+        let list = |item: DataType, array: ArrayRef| -> ArrayRef {
+            Arc::new(ListArray::new(
+                Arc::new(Field::new("item", item, true)),
+                offsets.clone(),
+                array,
+                nulls.clone(),
+            ))
+        };
+        Ok(vec![
+            list(DataType::Utf8, Arc::new(tags)),
+            list(
+                DataType::Int64,
+                Arc::new(Int64Array::from(times.into_owned())),
+            ),
+            list(
+                DataType::Float64,
+                Arc::new(Float64Array::from(readings.into_owned())),
+            ),
+        ])
+    }
+
+    fn size(&self) -> usize {
+        std::mem::size_of_val(self)
+            + self.bytes
+            + self.sets.capacity() * std::mem::size_of::<TagSet>()
+            + self.task.levels.capacity() * std::mem::size_of::<f64>()
+    }
+}
+
+/// A by-tag function without `GROUP BY` (the whole input one group).
+#[derive(Debug)]
+struct TagAccumulator(TagGroups);
+
+impl Accumulator for TagAccumulator {
+    fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        let (tags, times, readings) = self.0.columns(values)?;
+        self.0.grow_to(1);
+        self.0.add(&tags, &times, &readings, |_| 0, None);
+        Ok(())
+    }
+
+    fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
+        let rows = states.first().map_or(0, |s| s.len());
+        self.0.merge_batch(states, &vec![0; rows], 1)
+    }
+
+    fn state(&mut self) -> Result<Vec<ScalarValue>> {
+        self.0.grow_to(1);
+        self.0
+            .state(EmitTo::All)?
+            .iter()
+            .map(|a| ScalarValue::try_from_array(a, 0))
+            .collect()
+    }
+
+    fn evaluate(&mut self) -> Result<ScalarValue> {
+        self.0.grow_to(1);
+        ScalarValue::try_from_array(&self.0.evaluate(EmitTo::All)?, 0)
+    }
+
+    fn size(&self) -> usize {
+        self.0.size()
     }
 }
 
@@ -1370,6 +1907,7 @@ mod tests {
     fn size_counts_the_readings_held() {
         let task = Task {
             job: Job::Fit,
+            tagged: false,
             grid: GridSettings::builder(1_000).build().unwrap(),
             blueprint: None,
             search: None,
@@ -1423,6 +1961,9 @@ mod tests {
             vec![i64::MAX - 2, i64::MAX - 1, i64::MAX, i64::MIN],
             vec![i64::MIN, 0, i64::MAX],
             vec![0, i64::MAX, -2],
+            // Each time one step on, but `first + 2·step` overflows on the way.
+            vec![i64::MAX, 0, -i64::MAX],
+            vec![i64::MAX, 0, -i64::MAX, i64::MIN],
         ];
         for seq in &sequences {
             for chunk in [1, 2, 3, 7, seq.len()] {
@@ -1449,9 +1990,7 @@ mod tests {
         // The grouped accumulator holds 8 bytes per evenly stepped reading, 16 otherwise.
         let mut groups = SeriesGroups {
             task: ar1_task(),
-            times: Vec::new(),
-            values: Vec::new(),
-            bytes: 0,
+            gathered: Gathered::default(),
         };
         let empty = groups.size();
         let n = 10_000;
@@ -1474,7 +2013,7 @@ mod tests {
         assert!((24 * n..=34 * n).contains(&held), "{held}");
         let state = groups.state(EmitTo::All).unwrap();
         assert_eq!(state[0].len(), 2);
-        assert_eq!(groups.bytes, 0);
+        assert_eq!(groups.gathered.bytes, 0);
     }
 
     /// Settings are taken as one-entry dictionaries (the engine then hands over one value
@@ -1484,7 +2023,7 @@ mod tests {
     #[test]
     fn settings_travel_as_dictionary_constants() {
         use datafusion::physical_expr::expressions::{CastExpr, Column, Literal};
-        let f = SeriesFunction::new(Job::Fit);
+        let f = SeriesFunction::new(Job::Fit, false);
         let ts = DataType::Timestamp(TimeUnit::Millisecond, Some("UTC".into()));
         let given = [
             ts.clone(),
@@ -1519,12 +2058,12 @@ mod tests {
             Arc::new(Literal::new(dictionary)),
             cadence.clone(),
         ];
-        let task = Task::from_literals(Job::Fit, &exprs).unwrap();
+        let task = Task::from_literals(Job::Fit, false, &exprs).unwrap();
         assert_eq!(task.grid, GridSettings::builder(900_000).build().unwrap());
         assert!(task.blueprint.is_some());
         // A setting read from a column is refused with a message that says why.
         let exprs = vec![column.clone(), column.clone(), column, cadence];
-        let e = Task::from_literals(Job::Fit, &exprs).unwrap_err();
+        let e = Task::from_literals(Job::Fit, false, &exprs).unwrap_err();
         assert!(
             e.to_string().contains("blueprint must be a constant"),
             "{e}"
@@ -1535,6 +2074,7 @@ mod tests {
         let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
         Task {
             job: Job::Fit,
+            tagged: false,
             grid: GridSettings::builder(1_000).build().unwrap(),
             blueprint: Some(bp),
             search: None,
@@ -1576,9 +2116,7 @@ mod tests {
     fn grouped_path_holds_counts_and_equals_direct_fits() {
         let fresh = || SeriesGroups {
             task: ar1_task(),
-            times: Vec::new(),
-            values: Vec::new(),
-            bytes: 0,
+            gathered: Gathered::default(),
         };
         let n = 400;
         let (arrays, groups, series) = interleaved(n);
@@ -1586,11 +2124,11 @@ mod tests {
         let empty = partial.size();
         partial.update_batch(&arrays, &groups, None, 2).unwrap();
         // Evenly stepped times are kept as (first, step, count): 8 bytes per reading.
-        let held = partial.bytes;
+        let held = partial.gathered.bytes;
         assert!(held >= 2 * 8 * n && held <= 2 * 16 * n, "{held}");
         assert!(partial.size() >= empty + held);
         let state = partial.state(EmitTo::All).unwrap();
-        assert_eq!(partial.bytes, 0);
+        assert_eq!(partial.gathered.bytes, 0);
         // The final stage: groups numbered the other way round, emitted one at a time.
         let mut last = fresh();
         last.merge_batch(&state, &[1, 0], 2).unwrap();
@@ -1618,7 +2156,106 @@ mod tests {
         filtered
             .update_batch(&arrays, &groups, Some(&filter), 2)
             .unwrap();
-        let kept: usize = filtered.times.iter().map(GroupTimes::len).sum();
+        let kept: usize = filtered.gathered.times.iter().map(GroupTimes::len).sum();
         assert_eq!(kept, 2 * n - own[0].null_count());
+    }
+
+    /// Tags as views: equal views are equal tags without comparing bytes, and unequal
+    /// views can still be equal tags (the same text in two buffers, or written twice);
+    /// nulls are a tag of their own.
+    #[test]
+    fn view_tags_compare_by_text() {
+        use datafusion::arrow::array::StringViewBuilder;
+        let long = "KB-SS000123-DIFFPRESS";
+        let mut b = StringViewBuilder::new().with_fixed_block_size(64);
+        b.append_value(long);
+        b.append_value(long);
+        b.append_value("KB-SS000124-DIFFPRESS");
+        b.append_null();
+        b.append_null();
+        b.append_value("short");
+        b.append_value("short");
+        // Fill the block so the next copy lands in another buffer.
+        b.append_value("x".repeat(60));
+        b.append_value(long);
+        let a: ArrayRef = Arc::new(b.finish());
+        let tags = Tags::of(&a, "test").unwrap();
+        let Tags::View(v) = &tags else { panic!() };
+        assert_ne!(v.views()[0], v.views()[8], "two copies of the text");
+        assert!(tags.same(0, 1) && tags.same(0, 8) && tags.same(8, 0));
+        assert!(!tags.same(0, 2) && !tags.same(2, 8));
+        assert!(tags.same(3, 4) && !tags.same(3, 0) && !tags.same(5, 3));
+        assert!(tags.same(5, 6) && !tags.same(5, 7));
+        assert_eq!(tags.get(3), None);
+        assert_eq!(tags.get(8), Some(long));
+    }
+
+    /// The by-tag accumulator: rows of three tags (and untagged rows) interleaved over two
+    /// groups give each group a list in tag order whose rows equal the per-tag fits; its
+    /// size covers the readings held and returns to its fixed part when they leave; a
+    /// state merged elsewhere gives the same results.
+    #[test]
+    fn by_tag_groups_split_rows_by_tag() {
+        let mut task = ar1_task();
+        task.tagged = true;
+        let n = 300;
+        let (arrays, _, series) = interleaved(n);
+        // Rows alternate tags A and B (newest first); tag B's rows go to group 1, and
+        // every third of A's rows to group 1 as well.
+        let tags: Vec<&str> = (0..2 * n)
+            .map(|i| if i % 2 == 0 { "A" } else { "B" })
+            .collect();
+        let groups: Vec<usize> = (0..2 * n)
+            .map(|i| usize::from(i % 2 == 1 || (i / 2) % 3 == 0))
+            .collect();
+        let tag_column: ArrayRef = Arc::new(StringArray::from(tags));
+        let columns = [tag_column, arrays[0].clone(), arrays[1].clone()];
+        let mut acc = TagGroups::new(task);
+        let empty = acc.size();
+        acc.update_batch(&columns, &groups, None, 2).unwrap();
+        assert!(acc.bytes >= 16 * n, "{}", acc.bytes);
+        assert!(acc.size() >= empty + acc.bytes);
+        let state = acc.state(EmitTo::All).unwrap();
+        assert_eq!(acc.bytes, 0);
+        assert_eq!(state.len(), 3);
+        assert_eq!(
+            state[1].as_list::<i32>().value(0).len() + state[1].as_list::<i32>().value(1).len(),
+            2 * n
+        );
+        let mut last = TagGroups::new(acc.task.clone());
+        last.merge_batch(&state, &[0, 1], 2).unwrap();
+        let out = last.evaluate(EmitTo::All).unwrap();
+        let lists = out.as_list::<i32>();
+        // Group 0: A's rows not sent to group 1; group 1: B whole, and the rest of A.
+        let g0 = lists.value(0);
+        let g1 = lists.value(1);
+        let (g0, g1) = (g0.as_struct(), g1.as_struct());
+        let names = |s: &StructArray| {
+            let t = s.column(0).as_string::<i32>();
+            (0..s.len())
+                .map(|i| t.value(i).to_string())
+                .collect::<Vec<_>>()
+        };
+        assert_eq!(names(g0), ["A"]);
+        assert_eq!(names(g1), ["A", "B"]);
+        let sigma2 = g1
+            .column_by_name("sigma2")
+            .unwrap()
+            .as_primitive::<Float64Type>();
+        let direct = ar1_task().blueprint.unwrap().fit(&series[1]).unwrap();
+        assert_eq!(sigma2.value(1), direct.innovation_variance());
+        // Group 1's A: every third reading of A, times three seconds apart: on a grid of
+        // 1 s between its first and last reading, two of every three slots are missing.
+        let missing = g1
+            .column_by_name("missing")
+            .unwrap()
+            .as_primitive::<Int64Type>();
+        let kept = n / 3;
+        assert_eq!(missing.value(0) as usize, 3 * (kept - 1) + 1 - kept);
+        let readings = g0
+            .column_by_name("readings")
+            .unwrap()
+            .as_primitive::<Int64Type>();
+        assert_eq!(readings.value(0) as usize, n - kept);
     }
 }

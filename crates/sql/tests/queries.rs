@@ -523,3 +523,99 @@ async fn order_search_with_weekly_cycles() {
         );
     }
 }
+
+/// The by-tag functions, grouped by a coarse key (two groups, in two stages with merged
+/// states), by the tag itself, without `GROUP BY` (the whole table one group) and over
+/// tags as `Utf8`, `LargeUtf8` and `Utf8View`: every tag's row equals the per-tag
+/// function's row for that tag, bit for bit, and each list is in tag order.
+#[tokio::test]
+async fn by_tag_functions_equal_the_per_tag_ones() {
+    let (batch, _) = readings(24, 500);
+    let ctx = context(4);
+    let half = batch.num_rows() / 2;
+    let table = MemTable::try_new(
+        batch.schema(),
+        vec![
+            vec![batch.slice(0, half)],
+            vec![batch.slice(half, batch.num_rows() - half)],
+        ],
+    )
+    .unwrap();
+    ctx.register_table("readings", Arc::new(table)).unwrap();
+    let (_, json) = blueprint();
+    let per_tag = rows_of(
+        &ctx,
+        &format!(
+            "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE}) AS r,
+                    lw_ahead(ts, value, '{json}', {CADENCE}, 8, '[0.9]') AS a
+             FROM readings GROUP BY tag ORDER BY tag"
+        ),
+    )
+    .await;
+    let per_tag =
+        datafusion::arrow::compute::concat_batches(&per_tag[0].schema(), &per_tag).unwrap();
+    assert_eq!(per_tag.num_rows(), 24);
+    // Rows of a struct column as text (floats printed to the last bit by the formatter's
+    // shortest round-trip form), the tag field left out.
+    let rendered = |rows: &StructArray, r: usize| -> String {
+        let fields: Vec<String> = rows
+            .fields()
+            .iter()
+            .zip(rows.columns())
+            .filter(|(f, _)| f.name() != "tag")
+            .map(|(f, c)| {
+                let v = datafusion::common::ScalarValue::try_from_array(c, r).unwrap();
+                format!("{}={v:?}", f.name())
+            })
+            .collect();
+        fields.join("; ")
+    };
+    let tags = per_tag.column(0).as_string::<i32>();
+    let fits = per_tag.column(1).as_struct();
+    let aheads = per_tag.column(2).as_struct();
+    let own_fit: Vec<String> = (0..24).map(|r| rendered(fits, r)).collect();
+    let own_ahead: Vec<String> = (0..24).map(|r| rendered(aheads, r)).collect();
+    assert!(own_fit.iter().all(|t| t.contains("sigma2=Float64(")));
+
+    for tag_type in ["Utf8", "LargeUtf8", "Utf8View"] {
+        for grouping in ["GROUP BY tag < 'KB-SS0410-TR'", "GROUP BY tag", ""] {
+            let sql = format!(
+                "SELECT lw_fit_by_tag(arrow_cast(tag, '{tag_type}'), ts, value, '{json}', {CADENCE}) AS f,
+                        lw_ahead_by_tag(arrow_cast(tag, '{tag_type}'), ts, value, '{json}', {CADENCE}, 8, '[0.9]') AS a
+                 FROM readings {grouping}"
+            );
+            let out = rows_of(&ctx, &sql).await;
+            let mut seen = 0;
+            for b in &out {
+                for (col, own) in [(0, &own_fit), (1, &own_ahead)] {
+                    let lists = b.column(col).as_list::<i32>();
+                    for g in 0..b.num_rows() {
+                        let rows = lists.value(g);
+                        let rows = rows.as_struct();
+                        let names = rows.column_by_name("tag").unwrap().as_string::<i32>();
+                        for r in 0..rows.len() {
+                            assert!(r == 0 || names.value(r - 1) < names.value(r), "tag order");
+                            let k = (0..24).find(|&k| tags.value(k) == names.value(r)).unwrap();
+                            assert_eq!(rendered(rows, r), own[k], "{tag_type} {grouping}");
+                            seen += 1;
+                        }
+                    }
+                }
+            }
+            assert_eq!(seen, 48, "{tag_type} {grouping}");
+        }
+    }
+    // A tag column that is not text is refused with a message that names it.
+    let e = ctx
+        .sql(&format!(
+            "SELECT lw_fit_by_tag(value, ts, value, '{json}', {CADENCE}) FROM readings"
+        ))
+        .await
+        .map(|_| ())
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("lw_fit_by_tag: the tag column must be text"),
+        "{e}"
+    );
+}
