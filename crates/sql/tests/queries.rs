@@ -361,6 +361,31 @@ async fn order_search_and_residual_check_run_per_tag() {
     let chosen = b.column(1).as_string::<i32>();
     assert!(chosen.value(0).starts_with("ARMA"), "{}", chosen.value(0));
     assert!(!b.column(2).is_null(0));
+    // The by-tag search chooses the same model for each tag, with the same explanation.
+    let per_tag = rows_of(
+        &ctx,
+        &format!(
+            "SELECT tag, c['model'] AS model, c['note'] AS note, c['sigma2'] AS sigma2 FROM (
+               SELECT tag, lw_choose(ts, value, {CADENCE}, 1) AS c FROM readings GROUP BY tag)
+             ORDER BY tag"
+        ),
+    )
+    .await;
+    let by_tag = rows_of(
+        &ctx,
+        &format!(
+            "SELECT c['tag'] AS tag, c['model'] AS model, c['note'] AS note, c['sigma2'] AS sigma2
+             FROM (SELECT unnest(lw_choose_by_tag(tag, ts, value, {CADENCE}, 1)) AS c FROM readings)"
+        ),
+    )
+    .await;
+    let text = |batches: &[RecordBatch]| {
+        datafusion::arrow::util::pretty::pretty_format_batches(batches)
+            .unwrap()
+            .to_string()
+    };
+    assert_eq!(text(&by_tag), text(&per_tag));
+    assert!(text(&by_tag).contains("KB-SS0401-TR"), "{}", text(&by_tag));
 }
 
 /// `lw_watch` over new readings joined with the stored models from `lw_fit`: every
@@ -547,7 +572,8 @@ async fn by_tag_functions_equal_the_per_tag_ones() {
         &ctx,
         &format!(
             "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE}) AS r,
-                    lw_ahead(ts, value, '{json}', {CADENCE}, 8, '[0.9]') AS a
+                    lw_ahead(ts, value, '{json}', {CADENCE}, 8, '[0.9]') AS a,
+                    lw_check(ts, value, '{json}', {CADENCE}) AS c
              FROM readings GROUP BY tag ORDER BY tag"
         ),
     )
@@ -575,19 +601,22 @@ async fn by_tag_functions_equal_the_per_tag_ones() {
     let aheads = per_tag.column(2).as_struct();
     let own_fit: Vec<String> = (0..24).map(|r| rendered(fits, r)).collect();
     let own_ahead: Vec<String> = (0..24).map(|r| rendered(aheads, r)).collect();
+    let checks = per_tag.column(3).as_struct();
+    let own_check: Vec<String> = (0..24).map(|r| rendered(checks, r)).collect();
     assert!(own_fit.iter().all(|t| t.contains("sigma2=Float64(")));
 
     for tag_type in ["Utf8", "LargeUtf8", "Utf8View"] {
         for grouping in ["GROUP BY tag < 'KB-SS0410-TR'", "GROUP BY tag", ""] {
             let sql = format!(
                 "SELECT lw_fit_by_tag(arrow_cast(tag, '{tag_type}'), ts, value, '{json}', {CADENCE}) AS f,
-                        lw_ahead_by_tag(arrow_cast(tag, '{tag_type}'), ts, value, '{json}', {CADENCE}, 8, '[0.9]') AS a
+                        lw_ahead_by_tag(arrow_cast(tag, '{tag_type}'), ts, value, '{json}', {CADENCE}, 8, '[0.9]') AS a,
+                        lw_check_by_tag(arrow_cast(tag, '{tag_type}'), ts, value, '{json}', {CADENCE}) AS c
                  FROM readings {grouping}"
             );
             let out = rows_of(&ctx, &sql).await;
             let mut seen = 0;
             for b in &out {
-                for (col, own) in [(0, &own_fit), (1, &own_ahead)] {
+                for (col, own) in [(0, &own_fit), (1, &own_ahead), (2, &own_check)] {
                     let lists = b.column(col).as_list::<i32>();
                     for g in 0..b.num_rows() {
                         let rows = lists.value(g);
@@ -602,7 +631,7 @@ async fn by_tag_functions_equal_the_per_tag_ones() {
                     }
                 }
             }
-            assert_eq!(seen, 48, "{tag_type} {grouping}");
+            assert_eq!(seen, 3 * 24, "{tag_type} {grouping}");
         }
     }
     // A tag column that is not text is refused with a message that names it.
