@@ -10,7 +10,9 @@ use datafusion::arrow::datatypes::{DataType, Field, Fields};
 use datafusion::common::{Result, ScalarValue, exec_err};
 use datafusion::logical_expr::{Accumulator, EmitTo, GroupsAccumulator};
 
-use crate::{Gathered, GroupTimes, Task, readings_of, result_rows, run, times_ms};
+use crate::{
+    Gathered, GroupTimes, Task, one_row_lists, readings_of, result_rows, run, state_lists, times_ms,
+};
 
 /// The result type of a by-tag function: a list with one struct per tag, the tag first.
 pub(crate) fn tagged_rows(fields: Fields) -> DataType {
@@ -162,16 +164,8 @@ impl TagGroups {
             let set = &mut self.sets[g];
             let before = set.heap_bytes();
             let k = set.slot(tags.get(row));
-            match filter {
-                None => set
-                    .gathered
-                    .extend(k, &times[row..end], &readings[row..end]),
-                Some(f) => {
-                    for i in (row..end).filter(|&i| f.is_valid(i) && f.value(i)) {
-                        set.gathered.extend(k, &times[i..=i], &readings[i..=i]);
-                    }
-                }
-            }
+            set.gathered
+                .extend_rows(k, times, readings, row..end, filter);
             self.bytes = self.bytes + set.heap_bytes() - before;
             row = end;
         }
@@ -253,7 +247,7 @@ impl GroupsAccumulator for TagGroups {
     }
 
     fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
-        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
+        use datafusion::arrow::array::{Float64Array, Int64Array};
         use datafusion::arrow::buffer::OffsetBuffer;
         let sets = self.take(emit_to);
         let per_set = |s: &TagSet| s.gathered.times.iter().map(GroupTimes::len).sum::<usize>();
@@ -277,19 +271,15 @@ impl GroupsAccumulator for TagGroups {
                 all_values.extend_from_slice(v);
             }
         }
-        let list = |item: DataType, array: ArrayRef| -> ArrayRef {
-            Arc::new(ListArray::new(
-                Arc::new(Field::new("item", item, true)),
-                offsets.clone(),
-                array,
-                None,
-            ))
-        };
-        Ok(vec![
-            list(DataType::Utf8, Arc::new(tags.finish())),
-            list(DataType::Int64, Arc::new(Int64Array::from(all_times))),
-            list(DataType::Float64, Arc::new(Float64Array::from(all_values))),
-        ])
+        Ok(state_lists(
+            &offsets,
+            None,
+            vec![
+                Arc::new(tags.finish()),
+                Arc::new(Int64Array::from(all_times)),
+                Arc::new(Float64Array::from(all_values)),
+            ],
+        ))
     }
 
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
@@ -340,38 +330,17 @@ impl GroupsAccumulator for TagGroups {
         values: &[ArrayRef],
         opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
     ) -> Result<Vec<ArrayRef>> {
-        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
-        use datafusion::arrow::buffer::{NullBuffer, OffsetBuffer};
+        use datafusion::arrow::array::{Float64Array, Int64Array};
         let (tags, times, readings) = self.columns(values)?;
-        let n = times.len();
-        let offsets = OffsetBuffer::<i32>::from_lengths(std::iter::repeat_n(1, n));
-        let nulls = opt_filter.map(|f| {
-            NullBuffer::from(
-                (0..n)
-                    .map(|i| f.is_valid(i) && f.value(i))
-                    .collect::<Vec<_>>(),
-            )
-        });
-        let tags: StringArray = (0..n).map(|i| tags.get(i)).collect();
-        let list = |item: DataType, array: ArrayRef| -> ArrayRef {
-            Arc::new(ListArray::new(
-                Arc::new(Field::new("item", item, true)),
-                offsets.clone(),
-                array,
-                nulls.clone(),
-            ))
-        };
-        Ok(vec![
-            list(DataType::Utf8, Arc::new(tags)),
-            list(
-                DataType::Int64,
+        let tags: StringArray = (0..times.len()).map(|i| tags.get(i)).collect();
+        Ok(one_row_lists(
+            vec![
+                Arc::new(tags),
                 Arc::new(Int64Array::from(times.into_owned())),
-            ),
-            list(
-                DataType::Float64,
                 Arc::new(Float64Array::from(readings.into_owned())),
-            ),
-        ])
+            ],
+            opt_filter,
+        ))
     }
 
     fn size(&self) -> usize {

@@ -50,9 +50,10 @@ use std::sync::Arc;
 
 use datafusion::arrow::array::RecordBatch;
 use datafusion::arrow::array::{
-    Array, ArrayRef, AsArray, BooleanBuilder, Float64Builder, Int64Builder, ListBuilder,
+    Array, ArrayRef, AsArray, BooleanBuilder, Float64Builder, Int64Builder, ListArray, ListBuilder,
     StringBuilder, StructArray, StructBuilder, TimestampMillisecondBuilder,
 };
+use datafusion::arrow::buffer::{NullBuffer, OffsetBuffer};
 use datafusion::arrow::datatypes::{
     DataType, Field, FieldRef, Fields, Float64Type, Int64Type, Schema, TimeUnit,
     TimestampMillisecondType,
@@ -887,6 +888,26 @@ impl Gathered {
         self.bytes = self.bytes + t.heap_bytes() + v.capacity() * 8 - before;
     }
 
+    /// Rows `rows` of a batch appended to series `g`: all of them at once, or those
+    /// that `filter` passes.
+    fn extend_rows(
+        &mut self,
+        g: usize,
+        times: &[i64],
+        readings: &[f64],
+        rows: std::ops::Range<usize>,
+        filter: Option<&datafusion::arrow::array::BooleanArray>,
+    ) {
+        match filter {
+            None => self.extend(g, &times[rows.clone()], &readings[rows]),
+            Some(f) => {
+                for i in rows.filter(|&i| f.is_valid(i) && f.value(i)) {
+                    self.extend(g, &times[i..=i], &readings[i..=i]);
+                }
+            }
+        }
+    }
+
     /// The groups `emit_to` asks for, removed from the accumulator.
     fn take(&mut self, emit_to: EmitTo) -> (Vec<GroupTimes>, Vec<Vec<f64>>) {
         let times = emit_to.take_needed(&mut self.times);
@@ -933,16 +954,8 @@ impl GroupsAccumulator for SeriesGroups {
                     .iter()
                     .position(|&h| h != g)
                     .unwrap_or(group_indices.len() - row);
-            match opt_filter {
-                None => self
-                    .gathered
-                    .extend(g, &times[row..end], &readings[row..end]),
-                Some(f) => {
-                    for i in (row..end).filter(|&i| f.is_valid(i) && f.value(i)) {
-                        self.gathered.extend(g, &times[i..=i], &readings[i..=i]);
-                    }
-                }
-            }
+            self.gathered
+                .extend_rows(g, &times, &readings, row..end, opt_filter);
             row = end;
         }
         Ok(())
@@ -977,8 +990,7 @@ impl GroupsAccumulator for SeriesGroups {
     }
 
     fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
-        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
-        use datafusion::arrow::buffer::OffsetBuffer;
+        use datafusion::arrow::array::{Float64Array, Int64Array};
         let (times, values) = self.gathered.take(emit_to);
         let offsets = OffsetBuffer::<i32>::from_lengths(times.iter().map(GroupTimes::len));
         let mut all = Vec::with_capacity(times.iter().map(GroupTimes::len).sum());
@@ -986,19 +998,14 @@ impl GroupsAccumulator for SeriesGroups {
         for t in &times {
             all.extend_from_slice(t.as_slice(&mut buffer));
         }
-        let times = ListArray::new(
-            Arc::new(Field::new("item", DataType::Int64, true)),
-            offsets.clone(),
-            Arc::new(Int64Array::from(all)),
+        Ok(state_lists(
+            &offsets,
             None,
-        );
-        let values = ListArray::new(
-            Arc::new(Field::new("item", DataType::Float64, true)),
-            offsets,
-            Arc::new(Float64Array::from(values.concat())),
-            None,
-        );
-        Ok(vec![Arc::new(times), Arc::new(values)])
+            vec![
+                Arc::new(Int64Array::from(all)),
+                Arc::new(Float64Array::from(values.concat())),
+            ],
+        ))
     }
 
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
@@ -1015,33 +1022,17 @@ impl GroupsAccumulator for SeriesGroups {
         values: &[ArrayRef],
         opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
     ) -> Result<Vec<ArrayRef>> {
-        use datafusion::arrow::array::{Float64Array, Int64Array, ListArray};
-        use datafusion::arrow::buffer::{NullBuffer, OffsetBuffer};
+        use datafusion::arrow::array::{Float64Array, Int64Array};
         let what = self.task.name();
         let times = times_ms(&values[0], what)?;
         let readings = readings_of(&values[1])?;
-        let n = times.len();
-        let offsets = OffsetBuffer::<i32>::from_lengths(std::iter::repeat_n(1, n));
-        let nulls = opt_filter.map(|f| {
-            NullBuffer::from(
-                (0..n)
-                    .map(|i| f.is_valid(i) && f.value(i))
-                    .collect::<Vec<_>>(),
-            )
-        });
-        let times = ListArray::new(
-            Arc::new(Field::new("item", DataType::Int64, true)),
-            offsets.clone(),
-            Arc::new(Int64Array::from(times.into_owned())),
-            nulls.clone(),
-        );
-        let values = ListArray::new(
-            Arc::new(Field::new("item", DataType::Float64, true)),
-            offsets,
-            Arc::new(Float64Array::from(readings.into_owned())),
-            nulls,
-        );
-        Ok(vec![Arc::new(times), Arc::new(values)])
+        Ok(one_row_lists(
+            vec![
+                Arc::new(Int64Array::from(times.into_owned())),
+                Arc::new(Float64Array::from(readings.into_owned())),
+            ],
+            opt_filter,
+        ))
     }
 
     fn size(&self) -> usize {
@@ -1049,6 +1040,44 @@ impl GroupsAccumulator for SeriesGroups {
             + self.gathered.heap_bytes()
             + self.task.levels.capacity() * std::mem::size_of::<f64>()
     }
+}
+
+/// State columns: each of `arrays` cut into lists at `offsets` (one list per group),
+/// with `nulls` for groups that have no state.
+fn state_lists(
+    offsets: &OffsetBuffer<i32>,
+    nulls: Option<NullBuffer>,
+    arrays: Vec<ArrayRef>,
+) -> Vec<ArrayRef> {
+    arrays
+        .into_iter()
+        .map(|array| -> ArrayRef {
+            Arc::new(ListArray::new(
+                Arc::new(Field::new("item", array.data_type().clone(), true)),
+                offsets.clone(),
+                array,
+                nulls.clone(),
+            ))
+        })
+        .collect()
+}
+
+/// Each row of `arrays` as its own group's state: one-entry lists, a row the filter drops
+/// a null list (which `merge_batch` skips).
+fn one_row_lists(
+    arrays: Vec<ArrayRef>,
+    opt_filter: Option<&datafusion::arrow::array::BooleanArray>,
+) -> Vec<ArrayRef> {
+    let n = arrays.first().map_or(0, |a| a.len());
+    let offsets = OffsetBuffer::<i32>::from_lengths(std::iter::repeat_n(1, n));
+    let nulls = opt_filter.map(|f| {
+        NullBuffer::from(
+            (0..n)
+                .map(|i| f.is_valid(i) && f.value(i))
+                .collect::<Vec<_>>(),
+        )
+    });
+    state_lists(&offsets, nulls, arrays)
 }
 
 /// What one group comes to.

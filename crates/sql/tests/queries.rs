@@ -88,6 +88,16 @@ fn context(partitions: usize) -> SessionContext {
     ctx
 }
 
+/// `batch` as a memory table of two partitions (its two halves).
+fn two_partitions(batch: &RecordBatch) -> Arc<MemTable> {
+    let half = batch.num_rows() / 2;
+    let parts = vec![
+        vec![batch.slice(0, half)],
+        vec![batch.slice(half, batch.num_rows() - half)],
+    ];
+    Arc::new(MemTable::try_new(batch.schema(), parts).unwrap())
+}
+
 fn blueprint() -> (Blueprint, String) {
     let bp = Blueprint::builder().nonseasonal(1, 0, 0).build().unwrap();
     let json = lagwise::blueprint_to_json(&bp).unwrap();
@@ -114,16 +124,8 @@ async fn fits_equal_the_library_bitwise() {
     let ctx = context(4);
     // Two batches in separate partitions of a memory table: the aggregate runs in
     // partial and final stages and merges states.
-    let half = batch.num_rows() / 2;
-    let table = MemTable::try_new(
-        batch.schema(),
-        vec![
-            vec![batch.slice(0, half)],
-            vec![batch.slice(half, batch.num_rows() - half)],
-        ],
-    )
-    .unwrap();
-    ctx.register_table("readings", Arc::new(table)).unwrap();
+    ctx.register_table("readings", two_partitions(&batch))
+        .unwrap();
     let (bp, json) = blueprint();
     let sql = format!(
         "SELECT tag, lw_fit(ts, value, '{json}', {CADENCE}) AS fit FROM readings GROUP BY tag ORDER BY tag"
@@ -557,16 +559,8 @@ async fn order_search_with_weekly_cycles() {
 async fn by_tag_functions_equal_the_per_tag_ones() {
     let (batch, _) = readings(24, 500);
     let ctx = context(4);
-    let half = batch.num_rows() / 2;
-    let table = MemTable::try_new(
-        batch.schema(),
-        vec![
-            vec![batch.slice(0, half)],
-            vec![batch.slice(half, batch.num_rows() - half)],
-        ],
-    )
-    .unwrap();
-    ctx.register_table("readings", Arc::new(table)).unwrap();
+    ctx.register_table("readings", two_partitions(&batch))
+        .unwrap();
     let (_, json) = blueprint();
     let per_tag = rows_of(
         &ctx,
