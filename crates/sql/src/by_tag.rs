@@ -15,14 +15,20 @@ use crate::{
 };
 
 /// The result type of a by-tag function: a list with one struct per tag, the tag first.
-pub(crate) fn tagged_rows(fields: Fields) -> DataType {
+pub(crate) fn tagged_rows(fields: &Fields) -> DataType {
+    DataType::List(list_item(tagged_fields(fields)))
+}
+
+/// `tag`, then `fields`.
+fn tagged_fields(fields: &Fields) -> Fields {
     let mut all = vec![Arc::new(Field::new("tag", DataType::Utf8, true))];
     all.extend(fields.iter().cloned());
-    DataType::List(Arc::new(Field::new(
-        "item",
-        DataType::Struct(all.into()),
-        true,
-    )))
+    all.into()
+}
+
+/// The item of a list of structs with `fields`.
+fn list_item(fields: Fields) -> Arc<Field> {
+    Arc::new(Field::new("item", DataType::Struct(fields), true))
 }
 
 /// A tag column of any string type, read row by row.
@@ -40,6 +46,14 @@ impl<'a> Tags<'a> {
             DataType::Utf8View => Tags::View(array.as_string_view()),
             other => return exec_err!("{what}: tag column of type {other}"),
         })
+    }
+
+    fn len(&self) -> usize {
+        match self {
+            Tags::Plain(a) => a.len(),
+            Tags::Large(a) => a.len(),
+            Tags::View(a) => a.len(),
+        }
     }
 
     /// Row `i`'s tag (`None` for a null).
@@ -191,12 +205,7 @@ impl TagGroups {
             readings_of(readings)?,
         );
         let n = times.len();
-        let rows = match &tags {
-            Tags::Plain(a) => a.len(),
-            Tags::Large(a) => a.len(),
-            Tags::View(a) => a.len(),
-        };
-        if readings.len() != n || rows != n {
+        if readings.len() != n || tags.len() != n {
             return exec_err!("{what}: tag, time and value columns differ in length");
         }
         Ok((tags, times, readings))
@@ -305,18 +314,13 @@ impl GroupsAccumulator for TagGroups {
             .iter()
             .map(|&(s, k)| sets[s].names[k].as_deref())
             .collect();
-        let DataType::List(item) = tagged_rows(rows.fields().clone()) else {
-            unreachable!("tagged_rows gives a list type")
-        };
-        let DataType::Struct(fields) = item.data_type().clone() else {
-            unreachable!("a list of structs")
-        };
+        let fields = tagged_fields(rows.fields());
         let (_, columns, _) = rows.into_parts();
         let mut all: Vec<ArrayRef> = vec![Arc::new(tags)];
         all.extend(columns);
-        let rows = StructArray::try_new(fields, all, None)?;
+        let rows = StructArray::try_new(fields.clone(), all, None)?;
         Ok(Arc::new(ListArray::try_new(
-            item,
+            list_item(fields),
             OffsetBuffer::<i32>::from_lengths(lengths),
             Arc::new(rows),
             None,

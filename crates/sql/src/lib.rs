@@ -387,7 +387,7 @@ impl AggregateUDFImpl for SeriesFunction {
             Job::Check => check_fields(),
         };
         Ok(if self.tagged {
-            tagged_rows(fields)
+            tagged_rows(&fields)
         } else {
             DataType::Struct(fields)
         })
